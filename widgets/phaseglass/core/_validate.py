@@ -1,0 +1,92 @@
+"""Argument checks shared by every constructor and entry point.
+
+Each helper raises with a message that names the argument, says what was
+expected and what was received, so the user can fix the call without reading
+our source.
+"""
+
+import numbers
+
+import numpy as np
+
+__all__ = [
+    "check_positive",
+    "check_int",
+    "check_fraction",
+    "check_in",
+    "check_callable",
+    "as_points",
+]
+
+
+def check_positive(name, value, *, allow_zero=False, allow_array=False):
+    """Return ``value`` as a float (or float array) after checking it is > 0."""
+    if allow_array and np.ndim(value) > 0:
+        arr = np.asarray(value, dtype=float)
+        bad = ~np.isfinite(arr) | ((arr < 0) if allow_zero else (arr <= 0))
+        if np.any(bad):
+            op = ">= 0" if allow_zero else "> 0"
+            raise ValueError(f"`{name}` must be finite and {op} everywhere, got {arr[bad][:3]}")
+        return arr
+    if isinstance(value, bool) or not isinstance(value, numbers.Real):
+        raise TypeError(f"`{name}` must be a real number, got {type(value).__name__} {value!r}")
+    value = float(value)
+    ok = value >= 0 if allow_zero else value > 0
+    if not (ok and np.isfinite(value)):
+        op = ">= 0" if allow_zero else "> 0"
+        raise ValueError(f"`{name}` must be finite and {op}, got {value!r}")
+    return value
+
+
+def check_int(name, value, *, minimum=None):
+    """Return ``value`` as an int after checking its type and lower bound."""
+    if isinstance(value, bool) or not isinstance(value, numbers.Integral):
+        if isinstance(value, numbers.Real) and float(value).is_integer():
+            value = int(value)
+        else:
+            raise TypeError(f"`{name}` must be an integer, got {type(value).__name__} {value!r}")
+    value = int(value)
+    if minimum is not None and value < minimum:
+        raise ValueError(f"`{name}` must be >= {minimum}, got {value}")
+    return value
+
+
+def check_fraction(name, value, *, closed_right=False):
+    """Return ``value`` as a float in [0, 1) (or [0, 1] with ``closed_right``)."""
+    if isinstance(value, bool) or not isinstance(value, numbers.Real):
+        raise TypeError(f"`{name}` must be a real number, got {type(value).__name__} {value!r}")
+    value = float(value)
+    ok = 0.0 <= value <= 1.0 if closed_right else 0.0 <= value < 1.0
+    if not ok:
+        interval = "[0, 1]" if closed_right else "[0, 1)"
+        raise ValueError(f"`{name}` must lie in {interval}, got {value!r}")
+    return value
+
+
+def check_in(name, value, choices):
+    """Check that ``value`` is one of ``choices``."""
+    if value not in choices:
+        listed = ", ".join(repr(c) for c in choices)
+        raise ValueError(f"`{name}` must be one of {listed}; got {value!r}")
+    return value
+
+
+def check_callable(name, value):
+    if not callable(value):
+        raise TypeError(f"`{name}` must be callable, got {type(value).__name__} {value!r}")
+    return value
+
+
+def as_points(name, x, dim):
+    """Return ``x`` as a float array of shape (n, dim) and whether it was a single point.
+
+    Accepts (dim,) or (n, dim); anything else is a ValueError naming ``name``.
+    """
+    arr = np.asarray(x, dtype=float)
+    if arr.ndim == 1 and arr.shape[0] == dim:
+        return arr[None, :], True
+    if arr.ndim == 2 and arr.shape[1] == dim:
+        return arr, False
+    raise ValueError(
+        f"`{name}` must have shape ({dim},) or (n, {dim}), got shape {arr.shape}"
+    )

@@ -1,0 +1,416 @@
+"""The sampling loop: ``Sampler.step()`` for live views, ``sample()`` for batch runs.
+
+Both share one code path: ``sample`` only loops over ``Sampler.step``.
+"""
+
+import sys
+import time
+from collections import deque
+
+import numpy as np
+
+from ._validate import check_fraction, check_in, check_int
+from .adaptation import DualAveraging, estimate_metric, warmup_windows
+from .kernels import ChainState, Kernel
+from .leapfrog import integrate, trajectory_from
+from .run import Run
+from .streams import Streams
+from .target import Target
+
+__all__ = ["Sampler", "sample"]
+
+_INIT_TRIES = 100
+_MAX_KEPT_DIVERGENCES = 500
+
+
+class _Recorder:
+    """Per-draw records of a batch of chains; a ring buffer when ``capacity`` is set."""
+
+    def __init__(self, n_chains, capacity=None):
+        self.n_chains = n_chains
+        self.capacity = capacity
+        self.arrays = {}
+        self.count = 0
+
+    def append(self, record):
+        if not self.arrays:
+            size = self.capacity or 256
+            for k, v in record.items():
+                v = np.asarray(v)
+                self.arrays[k] = np.empty((self.n_chains, size) + v.shape[1:], dtype=v.dtype)
+        size = next(iter(self.arrays.values())).shape[1]
+        if self.capacity is None and self.count >= size:
+            for k, a in self.arrays.items():
+                grown = np.empty((a.shape[0], 2 * size) + a.shape[2:], dtype=a.dtype)
+                grown[:, :size] = a
+                self.arrays[k] = grown
+        slot = self.count % self.capacity if self.capacity else self.count
+        for k, v in record.items():
+            if k in self.arrays:
+                self.arrays[k][:, slot] = v
+        self.count += 1
+
+    @property
+    def kept(self):
+        return min(self.count, self.capacity) if self.capacity else self.count
+
+    def get(self, name):
+        """Chronological (n_chains, kept, ...) copy of one field."""
+        a = self.arrays[name]
+        if self.capacity and self.count > self.capacity:
+            start = self.count % self.capacity
+            return np.concatenate([a[:, start:], a[:, :start]], axis=1)
+        return a[:, :self.count].copy()
+
+
+def _progress(done, total, started, label, stream=sys.stderr):
+    """One-line progress that works in a terminal and in a notebook output area."""
+    frac = done / max(total, 1)
+    bar = "#" * int(24 * frac)
+    rate = done / max(time.perf_counter() - started, 1e-9)
+    end = "\n" if done >= total else ""
+    print(f"\r{label} [{bar:<24}] {done}/{total} ({rate:,.0f}/s)", end=end, file=stream, flush=True)
+
+
+class Sampler:
+    """Run a kernel on a batch of chains, one transition at a time.
+
+    Parameters
+    ----------
+    target : Target
+    kernel : Kernel
+        Used as given (not copied): change its knobs between ``step`` calls.
+    initial : array_like, shape (dim,) or (n_chains, dim), optional
+        Start on the user's scale. ``None`` draws uniform(-2, 2) on the
+        sampler's (unconstrained) scale (common practice), retrying a chain up
+        to 100 times where the log-density is not finite.
+    n_chains : int
+    seed : None, int, SeedSequence or Generator
+        Chain ``k`` uses the ``k``-th child of ``SeedSequence(seed)``.
+    keep_trajectories : bool
+        Keep the batch Trajectory of every transition (``run.trajectories``).
+    capacity : int, optional
+        Keep only the latest ``capacity`` draws (a ring buffer), so live play
+        runs in bounded memory however long it goes.
+
+    Attributes
+    ----------
+    state : ChainState
+    last_trajectory : Trajectory or None
+        The latest batch trajectory when ``step(record=True)`` or
+        ``keep_trajectories`` was used.
+    divergences : deque of (chain, draw, Trajectory)
+        A replay of each divergent transition (the latest 500).
+
+    Examples
+    --------
+    >>> import phaseglass as pg
+    >>> s = pg.Sampler(pg.demos.correlated_gaussian(), pg.HMC(0.3, 8), n_chains=2, seed=1)
+    >>> _ = s.step(5)
+    >>> s.run.draws.shape
+    (2, 5, 2)
+    """
+
+    def __init__(self, target, kernel, initial=None, *, n_chains=4, seed=None,
+                 keep_trajectories=False, capacity=None):
+        if not isinstance(target, Target):
+            raise TypeError(
+                f"`target` must be a phaseglass Target, got {type(target).__name__}; "
+                "wrap your log-density with pg.Target(log_density, grad, dim=...)"
+            )
+        if not isinstance(kernel, Kernel):
+            raise TypeError(
+                f"`kernel` must be a phaseglass kernel such as pg.HMC(step_size, n_steps), "
+                f"got {type(kernel).__name__}"
+            )
+        self.target = target
+        self.kernel = kernel
+        self.n_chains = check_int("n_chains", n_chains, minimum=1)
+        if capacity is not None:
+            capacity = check_int("capacity", capacity, minimum=1)
+        self.capacity = capacity
+        self.keep_trajectories = bool(keep_trajectories)
+        kernel.prepare(target)
+        self.streams = Streams(seed, self.n_chains, shared=kernel.shared_stream)
+        self.seed = self.streams.entropy
+        position = self._initial_positions(initial)
+        with np.errstate(all="ignore"):
+            if kernel.uses_gradient:
+                logp, grad = target._value_and_grad_rows(position)
+            else:
+                logp, grad = target.log_density(position), None
+        if kernel.uses_gradient and not np.all(np.isfinite(grad)):
+            bad = int(np.flatnonzero(~np.isfinite(grad).all(axis=1))[0])
+            raise ValueError(
+                f"`initial` gives a non-finite gradient for chain {bad} at "
+                f"{target.to_user(position[bad])}; choose another start"
+            )
+        self.state = ChainState(position, logp, grad)
+        self.state.extra = kernel.init_extra(target, self.state, self.streams)
+        self.initial = target.to_user(position)
+        self.reset_records()
+
+    # ---------------------------------------------------------------- set-up
+    def _initial_positions(self, initial):
+        t = self.target
+        if initial is not None:
+            x = np.asarray(initial, dtype=float)
+            if x.shape == (t.dim,):
+                x = np.broadcast_to(x, (self.n_chains, t.dim))
+            elif x.shape != (self.n_chains, t.dim):
+                raise ValueError(
+                    f"`initial` must have shape ({t.dim},) or (n_chains, dim) = "
+                    f"({self.n_chains}, {t.dim}), got {x.shape}"
+                )
+            z = t.from_user(x)
+            with np.errstate(all="ignore"):
+                logp = t.log_density(z)
+            bad = np.flatnonzero(~np.isfinite(logp) | ~np.isfinite(z).all(axis=1))
+            if bad.size:
+                k = int(bad[0])
+                raise ValueError(
+                    f"`initial` has a non-finite log-density ({logp[k]}) for chain {k} at "
+                    f"x = {x[k]}; start inside the support"
+                )
+            return np.array(z, dtype=float)
+        z = 4.0 * self.streams.uniform(t.dim) - 2.0
+        with np.errstate(all="ignore"):
+            for _ in range(_INIT_TRIES):
+                logp = t.log_density(z)
+                bad = ~np.isfinite(logp)
+                if not bad.any():
+                    return z
+                z[bad] = (4.0 * self.streams.uniform(t.dim) - 2.0)[bad]
+        raise ValueError(
+            f"no finite log-density found after {_INIT_TRIES} random starts in (-2, 2) for "
+            f"chains {np.flatnonzero(bad).tolist()}; pass `initial` inside the support"
+        )
+
+    def reset_records(self):
+        """Forget recorded draws (the chains keep their current state)."""
+        self._records = _Recorder(self.n_chains, self.capacity)
+        self.trajectories = deque(maxlen=self.capacity) if self.keep_trajectories else None
+        self.divergences = deque(maxlen=_MAX_KEPT_DIVERGENCES)
+        self.last_trajectory = None
+        self.last_info = None
+
+    @property
+    def n_draws(self):
+        """Number of transitions recorded since the last reset."""
+        return self._records.count
+
+    # ------------------------------------------------------------------ step
+    def step(self, n=1, *, record=False):
+        """Advance every chain by ``n`` transitions and record them.
+
+        Parameters
+        ----------
+        n : int
+        record : bool
+            Keep the latest transition's batch Trajectory in ``last_trajectory``.
+
+        Returns
+        -------
+        dict
+            The per-chain records of the last transition.
+        """
+        n = check_int("n", n, minimum=1)
+        info = None
+        for _ in range(n):
+            info = self._one(record or self.keep_trajectories)
+        return info
+
+    def _one(self, record):
+        state = self.state
+        start = state.position
+        info = self.kernel.transition(self.target, state, self.streams, record=record)
+        traj = info.pop("trajectory", None)
+        start_momentum = info.pop("start_momentum", None)
+        info["position"] = state.position
+        if traj is not None:
+            self.last_trajectory = traj
+            if self.trajectories is not None:
+                self.trajectories.append(traj)
+        if np.any(info["divergent"]):
+            self._keep_divergences(info, start, start_momentum, traj)
+        self._records.append(info)
+        self.last_info = info
+        return info
+
+    def _keep_divergences(self, info, start, start_momentum, traj):
+        """Store a replay of each divergent transition (its start and trajectory)."""
+        draw = self._records.count
+        rows = np.flatnonzero(info["divergent"])
+        if traj is None and start_momentum is not None:
+            # replay without counting: a replay is not sampling work
+            counts = (self.target.n_density, self.target.n_grad)
+            q, p = start[rows], start_momentum[rows]
+            with np.errstate(all="ignore"):
+                logp, grad = self.target._value_and_grad_rows(q)
+            eps = info["step_size"][rows]
+            res = integrate(self.target, q, p, logp, grad, eps, self.kernel.n_steps,
+                            self.kernel.metric, self.kernel.max_energy_error, record=True)
+            self.target.n_density, self.target.n_grad = counts
+            traj = trajectory_from(res, eps, self.kernel.n_steps, self.kernel.max_energy_error, False)
+            rows_in_traj = range(len(rows))
+        elif traj is not None:
+            rows_in_traj = rows
+        else:
+            return
+        for chain, r in zip(rows, rows_in_traj):
+            self.divergences.append((int(chain), draw, _select(traj, r)))
+
+    # ---------------------------------------------------------------- warm-up
+    def warm_up(self, n, *, target_accept=None, metric="diagonal", progress=False):
+        """Tune the kernel for ``n`` transitions: dual averaging plus metric windows.
+
+        Parameters
+        ----------
+        n : int
+        target_accept : float, optional
+            Defaults to the kernel's ``default_target_accept``.
+        metric : {"diagonal", "dense", None}
+            Metric estimated in doubling windows from pooled warm-up draws
+            (regularised); ``None`` keeps the kernel's metric.
+
+        Returns
+        -------
+        ndarray, shape (n,)
+            The tuned knob's value at each warm-up transition.
+        """
+        n = check_int("warmup", n, minimum=0)
+        check_in("metric", metric, ("diagonal", "dense", None))
+        knob = self.kernel.tuned_knob
+        history = np.full(n, np.nan)
+        if n == 0:
+            return history
+        if target_accept is None:
+            target_accept = self.kernel.default_target_accept
+        target_accept = check_fraction("target_accept", target_accept)
+        if not 0 < target_accept < 1:
+            raise ValueError(f"`target_accept` must lie in (0, 1), got {target_accept}")
+        da = DualAveraging(getattr(self.kernel, knob), target_accept) if knob else None
+        ends = warmup_windows(n) if (metric and self.kernel.uses_gradient or metric and knob) else []
+        window_start = int(0.15 * n)
+        window = []
+        started = time.perf_counter()
+        for i in range(n):
+            info = self._one(False)
+            if da is not None:
+                setattr(self.kernel, knob, da.update(np.mean(info["accept_prob"])))
+                history[i] = getattr(self.kernel, knob)
+            if i >= window_start:
+                window.append(self.state.position.copy())
+            if ends and i + 1 == ends[0]:
+                ends.pop(0)
+                pooled = np.concatenate(window, axis=0)
+                self.kernel.metric = estimate_metric(pooled, metric)
+                self.kernel.metric_changed(self.state)
+                window = []
+                if da is not None:
+                    da.restart(getattr(self.kernel, knob))
+            if progress and (i % max(n // 50, 1) == 0 or i + 1 == n):
+                _progress(i + 1, n, started, "warm-up")
+        if da is not None:
+            setattr(self.kernel, knob, da.final)
+        self.reset_records()
+        return history
+
+    # -------------------------------------------------------------- results
+    @property
+    def run(self):
+        """A Run of everything recorded since the last reset."""
+        rec = self._records
+        fields = {k: rec.get(k) for k in rec.arrays} if rec.arrays else {}
+        return Run.from_records(
+            fields, target=self.target, kernel=self.kernel, seed=self.seed,
+            trajectories=None if self.trajectories is None else list(self.trajectories),
+            divergences=list(self.divergences), first_draw=rec.count - rec.kept,
+            n_chains=self.n_chains,
+        )
+
+
+def _select(traj, row):
+    """One chain's Trajectory out of a batch Trajectory."""
+    from .leapfrog import Trajectory
+
+    div = bool(traj.divergent[row])
+    return Trajectory(
+        positions=traj.positions[row], momenta=traj.momenta[row], potential=traj.potential[row],
+        kinetic=traj.kinetic[row], hamiltonian=traj.hamiltonian[row],
+        energy_error=traj.energy_error[row], divergent=div,
+        divergence_step=int(traj.divergence_step[row]) if div else None,
+        step_size=float(np.asarray(traj.step_size).reshape(-1)[row if np.ndim(traj.step_size) else 0]),
+        n_steps=traj.n_steps, max_energy_error=traj.max_energy_error,
+    )
+
+
+def sample(target, kernel, initial=None, n_draws=1000, *, n_chains=4, warmup=0, seed=None,
+           target_accept=None, keep_trajectories=False, metric_adaptation="diagonal",
+           progress=False):
+    """Draw from ``target`` with ``kernel`` on several chains.
+
+    Parameters
+    ----------
+    target : Target
+    kernel : Kernel
+        Copied first; the tuned copy is returned as ``run.kernel``.
+    initial : array_like, shape (dim,) or (n_chains, dim), optional
+        User-scale start; ``None`` draws uniform(-2, 2) on the sampler's scale.
+    n_draws : int
+        Draws kept per chain after warm-up.
+    n_chains : int
+    warmup : int
+        Transitions of tuning before the kept draws: dual averaging of the
+        step size (Hoffman & Gelman 2014, JMLR, sec. 3.2) toward
+        ``target_accept``, and a regularised metric estimated from warm-up
+        draws.
+    seed : None, int, SeedSequence or Generator
+        The same seed gives identical draws.
+    target_accept : float, optional
+        Defaults to the kernel's own (0.8 for HMC, 0.9 for one-step
+        persistent schemes, 0.234 for random walk).
+    keep_trajectories : bool
+        Keep every transition's Trajectory in ``run.trajectories``.
+    metric_adaptation : {"diagonal", "dense", None}
+    progress : bool
+        Print a one-line progress bar (terminal or notebook).
+
+    Returns
+    -------
+    Run
+
+    Notes
+    -----
+    Diagnostics computed from the Run can reveal problems but never prove
+    that the chains have converged.
+
+    Examples
+    --------
+    >>> import phaseglass as pg
+    >>> run = pg.sample(pg.demos.correlated_gaussian(), pg.HMC(0.3, 10), n_draws=200, warmup=200, seed=3)
+    >>> run.draws.shape
+    (4, 200, 2)
+    """
+    if not isinstance(kernel, Kernel):
+        raise TypeError(
+            f"`kernel` must be a phaseglass kernel such as pg.HMC(step_size, n_steps), "
+            f"got {type(kernel).__name__}"
+        )
+    n_draws = check_int("n_draws", n_draws, minimum=1)
+    warmup = check_int("warmup", warmup, minimum=0)
+    kernel = kernel.copy()
+    sampler = Sampler(target, kernel, initial, n_chains=n_chains, seed=seed)
+    history = sampler.warm_up(warmup, target_accept=target_accept, metric=metric_adaptation,
+                              progress=progress)
+    sampler.keep_trajectories = bool(keep_trajectories)
+    sampler.reset_records()
+    started = time.perf_counter()
+    for i in range(n_draws):
+        sampler.step()
+        if progress and (i % max(n_draws // 50, 1) == 0 or i + 1 == n_draws):
+            _progress(i + 1, n_draws, started, "sampling")
+    run = sampler.run
+    run.n_warmup = warmup
+    run.warmup_history = history
+    return run

@@ -1,0 +1,431 @@
+"""Wrap a user's log-density so every sampler sees one counted, checked interface."""
+
+import warnings
+from dataclasses import dataclass
+
+import numpy as np
+
+from ._validate import as_points, check_callable, check_int
+
+__all__ = ["Target", "GradientCheck"]
+
+_FD_WARNING = (
+    "no gradient was given, so phaseglass uses central finite differences "
+    "(2*dim log-density evaluations per gradient, accurate to about 1e-7). Pass "
+    "grad=f (f(x) returns shape (dim,)) or value_and_grad=f (returns (logp, grad)) "
+    "to Target for speed and accuracy."
+)
+
+
+def _sigmoid(z):
+    return 0.5 * (1.0 + np.tanh(0.5 * z))
+
+
+class _Bounds:
+    """Standard unconstraining transforms, one per coordinate.
+
+    One-sided bounds use ``x = lo + exp(z)`` (or ``hi - exp(z)``), two-sided bounds
+    use ``x = lo + (hi - lo) * sigmoid(z)``; ``log_jacobian`` is log |dx/dz| summed
+    over coordinates.
+    """
+
+    def __init__(self, bounds, dim):
+        if len(bounds) != dim:
+            raise ValueError(f"`bounds` must have one (lo, hi) pair per coordinate ({dim}), got {len(bounds)}")
+        lo = np.full(dim, -np.inf)
+        hi = np.full(dim, np.inf)
+        for i, pair in enumerate(bounds):
+            if pair is None:
+                continue
+            try:
+                a, b = pair
+            except (TypeError, ValueError):
+                raise ValueError(f"`bounds[{i}]` must be a (lo, hi) pair or None, got {pair!r}") from None
+            lo[i] = -np.inf if a is None else float(a)
+            hi[i] = np.inf if b is None else float(b)
+            if not lo[i] < hi[i]:
+                raise ValueError(f"`bounds[{i}]` must have lo < hi, got {pair!r}")
+        self.lo, self.hi = lo, hi
+        self.lower_only = np.isfinite(lo) & ~np.isfinite(hi)
+        self.upper_only = ~np.isfinite(lo) & np.isfinite(hi)
+        self.both = np.isfinite(lo) & np.isfinite(hi)
+        self.any = bool(np.any(self.lower_only | self.upper_only | self.both))
+
+    def to_user(self, z):
+        x = np.array(z, dtype=float, copy=True)
+        with np.errstate(over="ignore"):
+            if self.lower_only.any():
+                x[..., self.lower_only] = self.lo[self.lower_only] + np.exp(z[..., self.lower_only])
+            if self.upper_only.any():
+                x[..., self.upper_only] = self.hi[self.upper_only] - np.exp(z[..., self.upper_only])
+            if self.both.any():
+                lo, hi = self.lo[self.both], self.hi[self.both]
+                x[..., self.both] = lo + (hi - lo) * _sigmoid(z[..., self.both])
+        return x
+
+    def from_user(self, x):
+        x = np.asarray(x, dtype=float)
+        z = np.array(x, copy=True)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            if self.lower_only.any():
+                z[..., self.lower_only] = np.log(x[..., self.lower_only] - self.lo[self.lower_only])
+            if self.upper_only.any():
+                z[..., self.upper_only] = np.log(self.hi[self.upper_only] - x[..., self.upper_only])
+            if self.both.any():
+                lo, hi = self.lo[self.both], self.hi[self.both]
+                t = (x[..., self.both] - lo) / (hi - lo)
+                z[..., self.both] = np.log(t) - np.log1p(-t)
+        return z
+
+    def jacobian_terms(self, z):
+        """Return (log|dx/dz| summed, dx/dz per coordinate, d log|dx/dz| / dz)."""
+        logj = np.zeros(z.shape[:-1])
+        dxdz = np.ones_like(z)
+        dlogj = np.zeros_like(z)
+        with np.errstate(over="ignore"):
+            one = self.lower_only | self.upper_only
+            if one.any():
+                zz = z[..., one]
+                logj = logj + zz.sum(axis=-1)
+                sign = np.where(self.lower_only[one], 1.0, -1.0)
+                dxdz[..., one] = sign * np.exp(zz)
+                dlogj[..., one] = 1.0
+            if self.both.any():
+                zz = z[..., self.both]
+                width = self.hi[self.both] - self.lo[self.both]
+                s = _sigmoid(zz)
+                # log(sigmoid) + log(1 - sigmoid) written stably
+                logj = logj + (np.log(width) - np.logaddexp(0.0, -zz) - np.logaddexp(0.0, zz)).sum(axis=-1)
+                dxdz[..., self.both] = width * s * (1.0 - s)
+                dlogj[..., self.both] = 1.0 - 2.0 * s
+        return logj, dxdz, dlogj
+
+
+@dataclass(frozen=True)
+class GradientCheck:
+    """Comparison of a supplied gradient with central finite differences.
+
+    Attributes
+    ----------
+    ok : bool
+        True when every ``rel_error`` is below ``rtol``.
+    max_rel_error : float
+    rel_error : ndarray, shape (n_points, dim)
+        ``|supplied - numeric| / (max(|supplied|, |numeric|) + atol)``.
+    supplied, numeric : ndarray, shape (n_points, dim)
+    points : ndarray, shape (n_points, dim)
+    names : tuple of str
+    rtol : float
+    """
+
+    ok: bool
+    max_rel_error: float
+    rel_error: np.ndarray
+    supplied: np.ndarray
+    numeric: np.ndarray
+    points: np.ndarray
+    names: tuple
+    rtol: float
+
+    def worst(self, k=3):
+        """Return up to ``k`` (name, rel_error, supplied, numeric) rows, worst first."""
+        per_coord = np.nanmax(self.rel_error, axis=0)
+        order = np.argsort(-np.nan_to_num(per_coord, nan=np.inf))[:k]
+        rows = []
+        for i in order:
+            j = int(np.nanargmax(np.nan_to_num(self.rel_error[:, i], nan=np.inf)))
+            rows.append((self.names[i], float(per_coord[i]), float(self.supplied[j, i]), float(self.numeric[j, i])))
+        return rows
+
+    def __repr__(self):
+        verdict = "gradient agrees with finite differences" if self.ok else "GRADIENT MISMATCH"
+        lines = [
+            f"GradientCheck({verdict}: max relative error {self.max_rel_error:.2e}, "
+            f"tolerance {self.rtol:.0e}, {self.points.shape[0]} point(s))"
+        ]
+        for name, err, sup, num in self.worst():
+            flag = "  <-- check this" if err > self.rtol else ""
+            lines.append(f"  {name}: rel. error {err:.2e} (supplied {sup:.6g}, numeric {num:.6g}){flag}")
+        return "\n".join(lines)
+
+
+class Target:
+    """A log-density the samplers can use: shapes checked, evaluations counted.
+
+    Parameters
+    ----------
+    log_density : callable
+        ``log_density(x)`` with ``x`` shaped (dim,) returns a float; with
+        ``vectorized=True`` it takes (n, dim) and returns (n,). May return -inf
+        outside the support.
+    grad : callable, optional
+        Gradient of ``log_density`` with the same calling convention, returning
+        (dim,) or (n, dim). Without it (and without ``value_and_grad``) central
+        finite differences are used, with a one-time warning.
+    dim : int, optional
+        Number of parameters; inferred from ``names`` or ``bounds`` when omitted.
+    vectorized : bool
+        Whether the functions accept a batch of points (n, dim).
+    bounds : sequence of (lo, hi) or None, optional
+        Per-coordinate support on the user's scale; ``None`` or infinite ends
+        mean unbounded. Bounded coordinates are sampled on an unconstrained
+        scale (log for one-sided, logit for two-sided bounds) with the
+        log-Jacobian added; draws come back on the user's scale.
+    names : sequence of str, optional
+        Parameter names used in summaries and plots.
+    value_and_grad : callable, optional
+        A joint function returning ``(log_density, grad)``; used in place of
+        two calls when given (many models share work between the two).
+
+    Notes
+    -----
+    ``log_density``, ``grad`` and ``value_and_grad`` methods work on the
+    *sampler's* scale (unconstrained when ``bounds`` are given; identical to the
+    user's scale otherwise). ``to_user`` and ``from_user`` convert. Every point
+    evaluated is counted in ``n_density`` and ``n_grad``.
+
+    Examples
+    --------
+    >>> import numpy as np, phaseglass as pg
+    >>> t = pg.Target(lambda x: -0.5 * x @ x, lambda x: -x, dim=2)
+    >>> t.value_and_grad(np.array([1.0, 2.0]))
+    (-2.5, array([-1., -2.]))
+    """
+
+    def __init__(self, log_density, grad=None, *, dim=None, vectorized=False, bounds=None,
+                 names=None, value_and_grad=None):
+        self._user_logp = check_callable("log_density", log_density)
+        self._user_grad = None if grad is None else check_callable("grad", grad)
+        self._user_vg = None if value_and_grad is None else check_callable("value_and_grad", value_and_grad)
+        if dim is None:
+            if names is not None:
+                dim = len(names)
+            elif bounds is not None:
+                dim = len(bounds)
+            else:
+                raise ValueError(
+                    "`dim` could not be inferred: pass dim=<number of parameters> "
+                    "(or names=[...] or bounds=[...] with one entry per parameter)"
+                )
+        self.dim = check_int("dim", dim, minimum=1)
+        self.vectorized = bool(vectorized)
+        if names is None:
+            names = [f"x[{i}]" for i in range(self.dim)]
+        names = tuple(str(n) for n in names)
+        if len(names) != self.dim:
+            raise ValueError(f"`names` must have {self.dim} entries (one per coordinate), got {len(names)}")
+        if len(set(names)) != len(names):
+            raise ValueError(f"`names` must be unique, got {names}")
+        self.names = names
+        self._bounds = None if bounds is None else _Bounds(bounds, self.dim)
+        if self._bounds is not None and not self._bounds.any:
+            self._bounds = None
+        self.has_gradient = self._user_grad is not None or self._user_vg is not None
+        if not self.has_gradient:
+            warnings.warn(_FD_WARNING, UserWarning, stacklevel=2)
+        self.reset_counts()
+
+    # ------------------------------------------------------------------ counts
+    def reset_counts(self):
+        """Set ``n_density`` and ``n_grad`` back to zero."""
+        self.n_density = 0
+        self.n_grad = 0
+
+    # ------------------------------------------------------------ user scale
+    @property
+    def bounded(self):
+        """Whether any coordinate is transformed."""
+        return self._bounds is not None
+
+    @property
+    def bounds(self):
+        """(lo, hi) arrays of shape (dim,) on the user's scale (infinite when unbounded)."""
+        if self._bounds is None:
+            return np.full(self.dim, -np.inf), np.full(self.dim, np.inf)
+        return self._bounds.lo.copy(), self._bounds.hi.copy()
+
+    def to_user(self, z):
+        """Map points from the sampler's scale to the user's scale (any leading shape)."""
+        z = np.asarray(z, dtype=float)
+        return z.copy() if self._bounds is None else self._bounds.to_user(z)
+
+    def from_user(self, x):
+        """Map points from the user's scale to the sampler's scale (any leading shape)."""
+        x = np.asarray(x, dtype=float)
+        return x.copy() if self._bounds is None else self._bounds.from_user(x)
+
+    # ------------------------------------------------------------ raw calls
+    def _call_logp(self, x):
+        """User log-density on user-scale points (n, dim) -> (n,)."""
+        n = x.shape[0]
+        self.n_density += n
+        if self.vectorized:
+            out = np.asarray(self._user_logp(x), dtype=float)
+            if out.shape != (n,):
+                out = out.reshape(-1) if out.size == n else out
+                if out.shape != (n,):
+                    raise ValueError(
+                        f"`log_density` (vectorized) must return shape ({n},) for input "
+                        f"of shape {x.shape}, got shape {np.shape(out)}"
+                    )
+            return out
+        out = np.empty(n)
+        for k in range(n):
+            v = np.asarray(self._user_logp(x[k]), dtype=float)
+            if v.size != 1:
+                raise ValueError(
+                    f"`log_density` must return a scalar for input of shape ({self.dim},), "
+                    f"got shape {v.shape}; pass vectorized=True if it takes a batch"
+                )
+            out[k] = v.reshape(())
+        return out
+
+    def _check_grad_shape(self, g, n, single_call):
+        want = (self.dim,) if single_call else (n, self.dim)
+        if g.shape != want:
+            raise ValueError(f"`grad` must return shape {want}, got shape {g.shape}")
+
+    def _call_grad(self, x):
+        n = x.shape[0]
+        if self._user_grad is None and self._user_vg is None:
+            return self._fd_grad(x)
+        self.n_grad += n
+        if self._user_grad is not None:
+            if self.vectorized:
+                g = np.asarray(self._user_grad(x), dtype=float)
+                self._check_grad_shape(g, n, False)
+                return g
+            rows = []
+            for k in range(n):
+                g = np.asarray(self._user_grad(x[k]), dtype=float)
+                self._check_grad_shape(g, 1, True)
+                rows.append(g)
+            return np.stack(rows)
+        # only a joint function: the value comes for free, we just drop it
+        self.n_grad -= n
+        return self._call_vg(x)[1]
+
+    def _call_vg(self, x):
+        n = x.shape[0]
+        if self._user_vg is None:
+            return self._call_logp(x), self._call_grad(x)
+        self.n_density += n
+        self.n_grad += n
+        if self.vectorized:
+            v, g = self._user_vg(x)
+            v = np.asarray(v, dtype=float).reshape(-1)
+            g = np.asarray(g, dtype=float)
+            if v.shape != (n,):
+                raise ValueError(f"`value_and_grad` must return values of shape ({n},), got {v.shape}")
+            self._check_grad_shape(g, n, False)
+            return v, g
+        vals = np.empty(n)
+        grads = np.empty((n, self.dim))
+        for k in range(n):
+            v, g = self._user_vg(x[k])
+            vals[k] = float(np.asarray(v).reshape(()))
+            g = np.asarray(g, dtype=float)
+            self._check_grad_shape(g, 1, True)
+            grads[k] = g
+        return vals, grads
+
+    def _fd_grad(self, x):
+        """Central differences of the user's log-density, one batched evaluation."""
+        n, d = x.shape
+        h = np.cbrt(np.finfo(float).eps) * np.maximum(1.0, np.abs(x))  # (n, d)
+        eye = np.eye(d)
+        plus = x[:, None, :] + h[:, :, None] * eye[None]
+        minus = x[:, None, :] - h[:, :, None] * eye[None]
+        pts = np.concatenate([plus, minus], axis=1).reshape(n * 2 * d, d)
+        vals = self._call_logp(pts).reshape(n, 2, d)
+        self.n_grad += n
+        with np.errstate(all="ignore"):
+            return (vals[:, 0, :] - vals[:, 1, :]) / (2.0 * h)
+
+    # --------------------------------------------------------- sampler scale
+    def _with_jacobian(self, z, logp, grad_x):
+        logj, dxdz, dlogj = self._bounds.jacobian_terms(z)
+        logp = logp + logj
+        if grad_x is None:
+            return logp, None
+        with np.errstate(all="ignore"):
+            return logp, grad_x * dxdz + dlogj
+
+    def log_density(self, z):
+        """Log-density on the sampler's scale at (dim,) -> float or (n, dim) -> (n,)."""
+        pts, single = as_points("x", z, self.dim)
+        x = pts if self._bounds is None else self._bounds.to_user(pts)
+        v = self._call_logp(x)
+        if self._bounds is not None:
+            v, _ = self._with_jacobian(pts, v, None)
+        return float(v[0]) if single else v
+
+    def grad(self, z):
+        """Gradient on the sampler's scale at (dim,) -> (dim,) or (n, dim) -> (n, dim)."""
+        return self.value_and_grad(z)[1] if self._bounds is not None else self._grad_plain(z)
+
+    def _grad_plain(self, z):
+        pts, single = as_points("x", z, self.dim)
+        g = self._call_grad(pts)
+        return g[0] if single else g
+
+    def value_and_grad(self, z):
+        """Return ``(log_density, grad)`` on the sampler's scale; shapes as in the two methods."""
+        pts, single = as_points("x", z, self.dim)
+        v, g = self._value_and_grad_rows(pts)
+        return (float(v[0]), g[0]) if single else (v, g)
+
+    def _value_and_grad_rows(self, pts):
+        """Fast path for the integrators: (n, dim) float array in, no shape juggling."""
+        if self._bounds is None:
+            return self._call_vg(pts)
+        x = self._bounds.to_user(pts)
+        v, gx = self._call_vg(x)
+        return self._with_jacobian(pts, v, gx)
+
+    # -------------------------------------------------------------- checks
+    def check_gradient(self, x, *, rtol=1e-4, atol=1e-6):
+        """Compare the supplied gradient with central finite differences.
+
+        Parameters
+        ----------
+        x : array_like, shape (dim,) or (n_points, dim)
+            Point(s) on the user's scale.
+        rtol : float
+            Relative error above which a coordinate is reported as wrong.
+        atol : float
+            Added to the denominator so coordinates whose gradient is ~0 do not
+            report noise as error.
+
+        Returns
+        -------
+        GradientCheck
+            ``ok``, ``max_rel_error``, per-coordinate ``rel_error`` of shape
+            (n_points, dim); its repr names the worst coordinates.
+        """
+        if not self.has_gradient:
+            raise ValueError(
+                "`check_gradient` needs a supplied gradient: this Target uses finite differences "
+                "already; pass grad=... or value_and_grad=... to Target"
+            )
+        pts, _ = as_points("x", x, self.dim)
+        counts = (self.n_density, self.n_grad)
+        if self._user_grad is not None:
+            supplied = self._call_grad(pts)
+        else:
+            supplied = self._call_vg(pts)[1]
+        numeric = self._fd_grad(pts)
+        self.n_density, self.n_grad = counts  # a check is not sampling work
+        with np.errstate(all="ignore"):
+            rel = np.abs(supplied - numeric) / (np.maximum(np.abs(supplied), np.abs(numeric)) + atol)
+        rel = np.where(np.isfinite(supplied) & np.isfinite(numeric), rel, np.inf)
+        max_rel = float(np.max(rel))
+        return GradientCheck(
+            ok=bool(max_rel <= rtol), max_rel_error=max_rel, rel_error=rel, supplied=supplied,
+            numeric=numeric, points=pts, names=self.names, rtol=float(rtol),
+        )
+
+    def __repr__(self):
+        grad = "analytic gradient" if self.has_gradient else "finite-difference gradient"
+        b = ", bounded" if self.bounded else ""
+        return f"Target(dim={self.dim}, {grad}{', vectorized' if self.vectorized else ''}{b})"
