@@ -2,6 +2,10 @@
 
 import numpy as np
 
+from . import diagnostics as dg
+from .diagnostics import EBFMI_WARNING_LEVEL as EBFMI_LIMIT
+from .diagnostics import RHAT_WARNING_LEVEL as RHAT_LIMIT
+
 __all__ = ["Run", "Digest", "CAUTION"]
 
 #: Shown wherever diagnostics are presented.
@@ -10,9 +14,7 @@ CAUTION = (
     "means no problem was detected, not that the chains have found the whole posterior."
 )
 
-# Thresholds of common practice for plain-word warnings.
-RHAT_LIMIT = 1.01
-EBFMI_LIMIT = 0.3
+# Low-ESS threshold for plain-word warnings (common practice).
 ESS_PER_CHAIN_LIMIT = 100  # total ESS below 100 * chains is reported as low
 
 _STANDARD = ("accepted", "accept_prob", "energy", "energy_error", "divergent", "n_grad", "u",
@@ -138,7 +140,6 @@ class Digest:
 
     @classmethod
     def from_run(cls, run, probs=(0.05, 0.95)):
-        from . import diagnostics as dg
 
         x = run.draws
         table = {
