@@ -20,6 +20,7 @@ from .target import Target
 __all__ = ["Sampler", "sample"]
 
 _INIT_TRIES = 100
+_START_KEY = 2**32 - 1  # spawn key of the streams that draw random starts
 _MAX_KEPT_DIVERGENCES = 500
 
 
@@ -173,14 +174,19 @@ class Sampler:
                     f"x = {x[k]}; start inside the support"
                 )
             return np.array(z, dtype=float)
-        z = 4.0 * self.streams.uniform(t.dim) - 2.0
+        # Starts come from their own per-chain streams (never shared), so chains that
+        # share one driving stream (shared-stream Gibbs) still start apart.
+        ss = self.streams.seed_sequence
+        starts = Streams(np.random.SeedSequence(ss.entropy, spawn_key=ss.spawn_key + (_START_KEY,)),
+                         self.n_chains)
+        z = 4.0 * starts.uniform(t.dim) - 2.0
         with np.errstate(all="ignore"):
             for _ in range(_INIT_TRIES):
                 logp = t.log_density(z)
                 bad = ~np.isfinite(logp)
                 if not bad.any():
                     return z
-                z[bad] = (4.0 * self.streams.uniform(t.dim) - 2.0)[bad]
+                z[bad] = (4.0 * starts.uniform(t.dim) - 2.0)[bad]
         raise ValueError(
             f"no finite log-density found after {_INIT_TRIES} random starts in (-2, 2) for "
             f"chains {np.flatnonzero(bad).tolist()}; pass `initial` inside the support"
@@ -290,7 +296,7 @@ class Sampler:
         if not 0 < target_accept < 1:
             raise ValueError(f"`target_accept` must lie in (0, 1), got {target_accept}")
         da = DualAveraging(getattr(self.kernel, knob), target_accept) if knob else None
-        ends = warmup_windows(n) if (metric and self.kernel.uses_gradient or metric and knob) else []
+        ends = warmup_windows(n) if (metric and knob) else []
         window_start = int(0.15 * n)
         window = []
         started = time.perf_counter()
