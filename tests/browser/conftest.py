@@ -1,0 +1,92 @@
+"""Fixtures for the real-browser tests (JupyterLab / Notebook 7 + Debian chromium).
+
+The harness module is loaded under a unique name (``phaseglass_browser_harness``)
+so it cannot clash with other test folders' helper modules.
+
+Behaviour when chromium / playwright / jupyterlab are missing: the test FAILS when
+``PHASEGLASS_BROWSER_TESTS=1`` (CI sets it) and is skipped with the reason otherwise.
+"""
+
+from __future__ import annotations
+
+import importlib.util
+import os
+import sys
+from pathlib import Path
+
+import pytest
+
+_HERE = Path(__file__).resolve().parent
+_NAME = "phaseglass_browser_harness"
+if _NAME not in sys.modules:
+    _spec = importlib.util.spec_from_file_location(_NAME, _HERE / "harness.py")
+    _mod = importlib.util.module_from_spec(_spec)
+    sys.modules[_NAME] = _mod
+    _spec.loader.exec_module(_mod)
+harness = sys.modules[_NAME]
+
+
+def pytest_configure(config):
+    config.addinivalue_line("markers", "browser: drives a real Chromium against a JupyterLab server")
+
+
+def browser_tests_required() -> bool:
+    return os.environ.get("PHASEGLASS_BROWSER_TESTS", "") == "1"
+
+
+def require_browser_prerequisites(ui: str = "lab") -> None:
+    missing = harness.missing_prerequisites(ui)
+    if not missing:
+        return
+    msg = "; ".join(missing)
+    if browser_tests_required():
+        pytest.fail(f"PHASEGLASS_BROWSER_TESTS=1 but: {msg}", pytrace=False)
+    pytest.skip(msg)
+
+
+@pytest.fixture(scope="session")
+def browser_artefacts_dir() -> Path:
+    d = harness.DEFAULT_ARTEFACTS_DIR
+    d.mkdir(parents=True, exist_ok=True)
+    return d
+
+
+@pytest.fixture(scope="session")
+def jupyter_servers():
+    """Factory ``(scenario) -> JupyterServer``; one server per notebook folder + env, per session."""
+    servers: dict = {}
+
+    def get(scenario):
+        key = (str(Path(scenario.notebook).resolve().parent),
+               tuple(sorted(scenario.extra_env.items())), scenario.copy_whole_folder)
+        srv = servers.get(key)
+        if srv is None or srv.proc is None or srv.proc.poll() is not None:
+            srv = harness.JupyterServer(
+                Path(scenario.notebook).resolve().parent, extra_env=scenario.extra_env,
+                copy_whole_folder=scenario.copy_whole_folder,
+                only_files=[Path(scenario.notebook).resolve()],
+            ).start()
+            servers[key] = srv
+        return srv
+
+    yield get
+    for srv in servers.values():
+        srv.stop()
+
+
+@pytest.fixture
+def browser_run(jupyter_servers, browser_artefacts_dir):
+    """``browser_run(scenario, ui, timeout_s=150, retries=1) -> RunResult``.
+
+    ``ui`` is ``"lab"`` or ``"notebook"`` (Notebook 7 on the same server). Checks the
+    prerequisites first (fail under PHASEGLASS_BROWSER_TESTS=1, else skip).
+    """
+
+    def run(scenario, ui: str, *, timeout_s: float = 150.0, retries: int = 1):
+        require_browser_prerequisites(ui)
+        server = jupyter_servers(scenario)
+        return harness.run_scenario_with_retry(
+            server, scenario, ui, retries=retries, timeout_s=timeout_s,
+            artefacts_dir=browser_artefacts_dir)
+
+    return run
