@@ -116,7 +116,7 @@ def log(msg: str) -> None:
 
 
 def install_hint() -> str:
-    return f"run: bash .ci/install-browser {sys.executable}"
+    return f"run: sudo bash .ci/install-browser {sys.executable}"
 
 
 def missing_prerequisites(ui: str = "lab") -> list[str]:
