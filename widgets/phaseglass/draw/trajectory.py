@@ -1,0 +1,372 @@
+"""One leapfrog trajectory: its path through two coordinates, and its energy error per step."""
+
+from dataclasses import dataclass
+
+import numpy as np
+from matplotlib.axes import Axes
+from matplotlib.lines import Line2D
+from matplotlib.patches import FancyArrowPatch
+from matplotlib.text import Text
+
+from . import style
+from ._base import Drawing, exclude_from_autoscale
+
+__all__ = ["draw_trajectory", "draw_energy_error", "one_chain", "TrajectoryDrawing",
+           "EnergyErrorDrawing"]
+
+
+def one_chain(trajectory, chain=0):
+    """Return one chain's Trajectory from a batch Trajectory (a single one is returned as is).
+
+    Parameters
+    ----------
+    trajectory : Trajectory
+        Single (positions (n_steps + 1, dim)) or batch (chains, n_steps + 1, dim).
+    chain : int
+    """
+    from phaseglass.core.leapfrog import Trajectory
+
+    if not isinstance(trajectory, Trajectory):
+        raise TypeError(f"`trajectory` must be a phaseglass Trajectory, got {type(trajectory).__name__}")
+    if trajectory.positions.ndim == 2:
+        return trajectory
+    n = trajectory.positions.shape[0]
+    if not -n <= chain < n:
+        raise ValueError(f"`chain` must be in range({n}) for this batch, got {chain}")
+    div = bool(trajectory.divergent[chain])
+    eps = np.asarray(trajectory.step_size).reshape(-1)
+    return Trajectory(
+        positions=trajectory.positions[chain], momenta=trajectory.momenta[chain],
+        potential=trajectory.potential[chain], kinetic=trajectory.kinetic[chain],
+        hamiltonian=trajectory.hamiltonian[chain], energy_error=trajectory.energy_error[chain],
+        divergent=div, divergence_step=int(trajectory.divergence_step[chain]) if div else None,
+        step_size=float(eps[chain] if eps.size > 1 else eps[0]), n_steps=trajectory.n_steps,
+        max_energy_error=trajectory.max_energy_error,
+    )
+
+
+def _check_upto(upto, n_steps):
+    if upto is None:
+        return n_steps
+    upto = int(upto)
+    if upto < 0:
+        raise ValueError(f"`upto` must be >= 0, got {upto}")
+    return min(upto, n_steps)
+
+
+def _parts(traj, coords, upto):
+    """Split one trajectory into (path, divergent segment, end point, finished) for drawing."""
+    pos = traj.positions[:, list(coords)]
+    k = traj.divergence_step if traj.divergent else None
+    safe_last = k - 1 if k is not None else traj.n_steps
+    shown = min(safe_last, upto)
+    path = pos[:shown + 1]
+    if k is not None and upto >= k:
+        tip = pos[k] if np.all(np.isfinite(pos[k])) else pos[k - 1]
+        divergent = np.vstack([pos[k - 1], tip])
+    else:
+        divergent = np.empty((0, 2))
+    finished = upto >= (k if k is not None else traj.n_steps)
+    end = pos[safe_last][None, :] if finished else np.empty((0, 2))
+    return path, divergent, end, finished
+
+
+_END_LABELS = {True: "end (accepted)", False: "end (rejected)", None: "end"}
+
+
+def _end_style(line, accepted):
+    kw = {True: style.ACCEPTED, False: style.REJECTED, None: style.UNDECIDED}[accepted]
+    line.set_marker(kw["marker"])
+    line.set_color(kw["color"])
+    line.set_markerfacecolor(kw["markerfacecolor"])
+    line.set_markeredgecolor(kw["markeredgecolor"])
+    line.set_markeredgewidth(kw.get("markeredgewidth", 1.0))
+    line.set_label(_END_LABELS[accepted])
+
+
+@dataclass(repr=False, eq=False)
+class TrajectoryDrawing(Drawing):
+    """Returned by ``draw_trajectory``.
+
+    Attributes
+    ----------
+    ax : Axes
+    path : Line2D
+        Positions from the start to the last step before any divergence, with a
+        dot at every leapfrog step; ``get_xydata()`` is ``positions[:m + 1, coords]``.
+    start : Line2D
+        Black square at ``positions[0]``.
+    end : Line2D
+        Circle at the proposal (the last safe step): filled when accepted, hollow
+        when rejected, grey when the decision is not given. Empty while a
+        trajectory is shown partly (``upto``).
+    divergent : Line2D
+        Dashed segment from the last safe step to the step that diverged, with
+        an ``X`` at the latter; empty when there is no divergence.
+    momentum : FancyArrowPatch
+        The initial momentum ``momenta[0, coords] * momentum_scale``, from the start.
+    coords : tuple of int
+    momentum_scale : float
+    momentum_ends : ndarray, shape (2, 2)
+        Tail and tip of the arrow in data coordinates.
+    """
+
+    ax: Axes
+    path: Line2D
+    start: Line2D
+    end: Line2D
+    divergent: Line2D
+    momentum: FancyArrowPatch
+    coords: tuple
+    momentum_scale: float
+    momentum_ends: np.ndarray = None
+
+    def update(self, trajectory, accepted=None, *, chain=0, upto=None):
+        """Show another trajectory (or more of this one) with the same artists.
+
+        Parameters
+        ----------
+        trajectory : Trajectory
+        accepted : bool or None
+        chain : int
+            Row of a batch Trajectory.
+        upto : int, optional
+            Show only leapfrog steps ``0..upto`` (for step-by-step playback);
+            the end marker appears once the trajectory is complete.
+        """
+        traj = one_chain(trajectory, chain)
+        upto = _check_upto(upto, traj.n_steps)
+        path, div, end, finished = _parts(traj, self.coords, upto)
+        self.path.set_data(path[:, 0], path[:, 1])
+        self.divergent.set_data(div[:, 0], div[:, 1])
+        self.divergent.set_label("divergent step" if len(div) else "_divergent step")
+        if traj.divergent and finished:
+            accepted = False  # a divergent transition is always rejected
+        self.end.set_data(end[:, 0], end[:, 1])
+        _end_style(self.end, accepted if finished else None)
+        p0 = traj.positions[0, list(self.coords)]
+        v0 = traj.momenta[0, list(self.coords)] * self.momentum_scale
+        self.start.set_data([p0[0]], [p0[1]])
+        self.momentum_ends = np.array([p0, p0 + v0])
+        self.momentum.set_positions(tuple(p0), tuple(p0 + v0))
+        self._rescale()
+        return self
+
+
+def draw_trajectory(ax, trajectory, *, coords=(0, 1), accepted=None, chain=0, upto=None,
+                    momentum_scale=None, names=None):
+    """Draw a leapfrog trajectory through two coordinates.
+
+    Parameters
+    ----------
+    ax : Axes
+    trajectory : Trajectory
+        One chain's trajectory, or a batch (pick the row with ``chain``). Its
+        positions are on the sampler's scale.
+    coords : pair of int or str
+        Coordinates on the x and y axes (names need ``names``).
+    accepted : bool, optional
+        Whether the proposal was accepted (filled end marker) or rejected
+        (hollow); a divergent trajectory is always shown as rejected.
+    chain : int
+    upto : int, optional
+        Show leapfrog steps ``0..upto`` only.
+    momentum_scale : float, optional
+        Arrow length per unit of momentum. Default ``step_size * max(n_steps / 4, 2)``:
+        about the distance covered in a quarter of the integration time.
+    names : sequence of str, optional
+        Coordinate names (all of them); label the axes and resolve ``coords``.
+
+    Returns
+    -------
+    TrajectoryDrawing
+        ``update(trajectory, accepted=None, *, chain=0, upto=None)`` reuses the artists.
+
+    Examples
+    --------
+    >>> import phaseglass as pg
+    >>> from matplotlib.figure import Figure
+    >>> t = pg.demos.correlated_gaussian()
+    >>> tr = pg.leapfrog(t, [1.0, 0.0], [0.0, 1.0], 0.2, 12)
+    >>> d = draw_trajectory(Figure().add_subplot(), tr, accepted=True)
+    >>> d.path.get_xydata().shape
+    (13, 2)
+    """
+    from phaseglass.core.slices import resolve_coords
+
+    traj = one_chain(trajectory, chain)
+    coords = resolve_coords(coords, names, traj.positions.shape[1])
+    if momentum_scale is None:
+        momentum_scale = float(traj.step_size) * max(traj.n_steps / 4.0, 2.0)
+    style.dress(ax)
+    (path,) = ax.plot([], [], label="leapfrog path", zorder=3, **style.PATH)
+    (div,) = ax.plot([], [], label="divergent step", markevery=[1], zorder=4, **style.DIVERGENT)
+    exclude_from_autoscale(div)
+    (start,) = ax.plot([], [], label="start", zorder=5, **style.START)
+    (end,) = ax.plot([], [], markersize=8, zorder=5, **style.UNDECIDED)
+    arrow = FancyArrowPatch((0, 0), (0, 0), arrowstyle="-|>", mutation_scale=12, linewidth=1.6,
+                            color=style.MOMENTUM["color"], label="initial momentum", zorder=4,
+                            shrinkA=0, shrinkB=0)
+    ax.add_patch(arrow)
+    exclude_from_autoscale(arrow)
+    if names is not None:
+        ax.set_xlabel(names[coords[0]])
+        ax.set_ylabel(names[coords[1]])
+    elif not ax.get_xlabel():
+        ax.set_xlabel(f"x[{coords[0]}] (sampler's scale)")
+        ax.set_ylabel(f"x[{coords[1]}] (sampler's scale)")
+    d = TrajectoryDrawing(ax=ax, path=path, start=start, end=end, divergent=div,
+                          momentum=arrow, coords=coords, momentum_scale=float(momentum_scale))
+    return d.update(traj, accepted, upto=upto)
+
+
+# ------------------------------------------------------------------ energy error
+
+def _accept_prob(err):
+    with np.errstate(over="ignore", invalid="ignore"):
+        return np.where(np.isfinite(err), np.exp(np.minimum(0.0, -err)), 0.0)
+
+
+def _verdict(traj, upto):
+    err = traj.energy_error
+    if traj.divergent and upto >= traj.divergence_step:
+        return (f"diverged at step {traj.divergence_step} (|\u0394H| > {traj.max_energy_error:g}):\n"
+                "rejected, acceptance probability 0")
+    final = err[upto]
+    where = "at the end" if upto == traj.n_steps else f"at step {upto}"
+    return (f"\u0394H {where} = {final:.3g}\n"
+            f"acceptance probability min(1, e^(\u2212\u0394H)) = {float(_accept_prob(final)):.3f}")
+
+
+@dataclass(repr=False, eq=False)
+class EnergyErrorDrawing(Drawing):
+    """Returned by ``draw_energy_error``.
+
+    Attributes
+    ----------
+    ax : Axes
+    error : Line2D
+        ``(step, energy_error[step])`` for steps ``0..upto``.
+    thresholds : list of Line2D
+        The divergence threshold at ``+max_energy_error`` and ``-max_energy_error``.
+    divergence : Line2D
+        ``X`` at the step that diverged (its value clipped to twice the threshold so
+        it stays in view); empty otherwise.
+    verdict : Text
+        The Axes title (left): final energy error and acceptance probability
+        ``min(1, exp(-dH))``, or where it diverged; on a linear axis also a note
+        when the divergence threshold is off-scale.
+    accept_line : Line2D or None
+        On ``twin``: acceptance probability if the trajectory stopped at each step.
+    twin : Axes or None
+        Secondary y axis (``secondary=True``).
+    scale : str
+    """
+
+    ax: Axes
+    error: Line2D
+    thresholds: list
+    divergence: Line2D
+    verdict: Text
+    accept_line: Line2D
+    twin: Axes
+    scale: str
+
+    def update(self, trajectory, *, chain=0, upto=None):
+        """Show another trajectory's energy error with the same artists."""
+        traj = one_chain(trajectory, chain)
+        upto = _check_upto(upto, traj.n_steps)
+        steps = np.arange(upto + 1)
+        err = traj.energy_error[:upto + 1]
+        self.error.set_data(steps, err)
+        thr = traj.max_energy_error
+        for line, sign in zip(self.thresholds, (1, -1)):
+            line.set_ydata([sign * thr, sign * thr])
+        if traj.divergent and upto >= traj.divergence_step:
+            k = traj.divergence_step
+            v = traj.energy_error[k]
+            v = v if np.isfinite(v) else thr * 1.2
+            self.divergence.set_data([k], [np.clip(v, -2 * thr, 2 * thr)])
+            self.divergence.set_label("divergent step")
+        else:
+            self.divergence.set_data([], [])
+            self.divergence.set_label("_divergent step")
+        if self.accept_line is not None:
+            self.accept_line.set_data(steps, _accept_prob(err))
+        self.ax.set_xlim(-0.5, traj.n_steps + 0.5)
+        text = _verdict(traj, upto)
+        if self.scale == "symlog":
+            self.ax.set_ylim(-2.5 * thr, 2.5 * thr)
+        else:
+            finite = err[np.isfinite(err)]
+            top = max(float(np.max(np.abs(finite))) if finite.size else 1.0, 1e-3) * 1.15
+            if self.autoscale:
+                self.ax.set_ylim(-top, top)
+            lo, hi = self.ax.get_ylim()
+            off = thr > hi or -thr < lo
+            if off:
+                text += f"\n(divergence threshold \u00b1{thr:g} is off-scale)"
+            self.thresholds[0].set_label("_threshold" if off else f"divergence threshold \u00b1{thr:g}")
+        self.verdict.set_text(text)
+        return self
+
+
+def draw_energy_error(ax, trajectory, *, chain=0, upto=None, scale="symlog", linthresh=1.0,
+                      secondary=False):
+    """Draw the energy error ``H(step) - H(0)`` of each leapfrog step.
+
+    Parameters
+    ----------
+    ax : Axes
+    trajectory : Trajectory
+    chain : int
+        Row of a batch Trajectory.
+    upto : int, optional
+        Show steps ``0..upto`` only.
+    scale : {"symlog", "linear"}
+        ``symlog`` (default) shows small errors and the +-``max_energy_error``
+        divergence threshold on one axis (linear within +-``linthresh``). On a
+        linear axis a note says when the threshold is off-scale.
+    linthresh : float
+    secondary : bool
+        Add a right-hand axis with the acceptance probability ``min(1, exp(-dH))``
+        the trajectory would have if it stopped at each step.
+
+    Returns
+    -------
+    EnergyErrorDrawing
+        ``update(trajectory, *, chain=0, upto=None)`` reuses the artists.
+    """
+    if scale not in ("symlog", "linear"):
+        raise ValueError(f"`scale` must be 'symlog' or 'linear', got {scale!r}")
+    traj = one_chain(trajectory, chain)
+    style.dress(ax)
+    if scale == "symlog":
+        ax.set_yscale("symlog", linthresh=linthresh, linscale=3.0)  # room for small errors
+    ax.axhline(0.0, **style.REFERENCE, zorder=1)
+    thresholds = [
+        ax.axhline(sign * traj.max_energy_error, zorder=1, label=lab, **style.THRESHOLD)
+        for sign, lab in ((1, f"divergence threshold \u00b1{traj.max_energy_error:g}"), (-1, None))
+    ]
+    (error,) = ax.plot([], [], label="energy error \u0394H", zorder=3,
+                       **{**style.PATH, "markersize": 3.5})
+    (div,) = ax.plot([], [], linestyle="none", label="divergent step", zorder=4,
+                     **{k: v for k, v in style.DIVERGENT.items() if k != "linestyle"})
+    verdict = ax.set_title("", loc="left", fontsize=9)
+    ax.set_xlabel("leapfrog step")
+    ax.set_ylabel("energy error \u0394H = H(step) \u2212 H(0)")
+    twin = line = None
+    if secondary:
+        twin = ax.twinx()
+        (line,) = twin.plot([], [], label="acceptance probability if stopped here", zorder=2,
+                            **{**style.ACCEPT_PROB, "drawstyle": "default", "linestyle": "--"})
+        twin.set_ylim(0.0, 1.5)  # probabilities sit in the lower part, clear of the legend
+        twin.set_yticks([0.0, 0.25, 0.5, 0.75, 1.0])
+        twin.set_ylabel("min(1, e^(\u2212\u0394H))", color=style.ACCEPT_PROB["color"])
+        twin.tick_params(labelsize=8, colors=style.ACCEPT_PROB["color"])
+        twin.grid(False)
+        for side in ("top", "left", "bottom"):
+            twin.spines[side].set_visible(False)
+    d = EnergyErrorDrawing(ax=ax, error=error, thresholds=thresholds, divergence=div,
+                           verdict=verdict, accept_line=line, twin=twin, scale=scale)
+    return d.update(traj, upto=upto)

@@ -1,0 +1,151 @@
+"""The accept/reject uniform of one chain over iterations, with rejections marked."""
+
+from dataclasses import dataclass
+
+import numpy as np
+from matplotlib.axes import Axes
+from matplotlib.lines import Line2D
+from matplotlib.text import Text
+
+from . import style
+from ._base import Drawing
+
+__all__ = ["draw_uniform_sequence", "UniformSequenceDrawing", "rejection_runs"]
+
+
+def rejection_runs(accepted):
+    """Lengths of the runs of consecutive rejections, in order.
+
+    Parameters
+    ----------
+    accepted : array_like of bool, shape (draws,)
+
+    Returns
+    -------
+    ndarray of int
+
+    Examples
+    --------
+    >>> rejection_runs([True, False, False, True, False])
+    array([2, 1])
+    """
+    rej = ~np.asarray(accepted, dtype=bool)
+    if rej.size == 0:
+        return np.zeros(0, dtype=int)
+    edges = np.diff(np.concatenate([[0], rej.astype(int), [0]]))
+    starts, stops = np.flatnonzero(edges == 1), np.flatnonzero(edges == -1)
+    return stops - starts
+
+
+def _check(u, accepted, accept_prob):
+    u = np.asarray(u, dtype=float)
+    accepted = np.asarray(accepted, dtype=bool)
+    if u.ndim != 1:
+        raise ValueError(f"`u` must have shape (draws,) for one chain, got {u.shape}")
+    if accepted.shape != u.shape:
+        raise ValueError(f"`accepted` must have the shape of `u` {u.shape}, got {accepted.shape}")
+    if accept_prob is not None:
+        accept_prob = np.asarray(accept_prob, dtype=float)
+        if accept_prob.shape != u.shape:
+            raise ValueError(f"`accept_prob` must have the shape of `u` {u.shape}, got {accept_prob.shape}")
+    return u, accepted, accept_prob
+
+
+def _summary(accepted):
+    runs = rejection_runs(accepted)
+    n = accepted.size
+    if runs.size == 0:
+        return f"no rejections in {n} iterations"
+    return (f"{runs.sum()} rejections in {n} iterations, in {runs.size} run(s); "
+            f"longest run {runs.max()}")
+
+
+@dataclass(repr=False, eq=False)
+class UniformSequenceDrawing(Drawing):
+    """Returned by ``draw_uniform_sequence``.
+
+    Attributes
+    ----------
+    ax : Axes
+    trail : Line2D
+        Thin grey line through every ``u`` (shows the sweeps of a drifting uniform).
+    accepted : Line2D
+        Filled circles at ``(iteration, u)`` of accepted proposals.
+    rejected : Line2D
+        Hollow circles at the rejected ones.
+    accept_prob : Line2D
+        The acceptance probability per iteration (empty when not given): a
+        proposal is accepted when ``u`` falls below it.
+    summary : Text
+        Count of rejections and of runs of consecutive rejections.
+    first : int
+        Iteration number of the first value.
+    """
+
+    ax: Axes
+    trail: Line2D
+    accepted: Line2D
+    rejected: Line2D
+    accept_prob: Line2D
+    summary: Text
+    first: int
+
+    def update(self, u, accepted, accept_prob=None, *, first=None):
+        """Show a new sequence with the same artists."""
+        u, acc, prob = _check(u, accepted, accept_prob)
+        if first is not None:
+            self.first = int(first)
+        it = self.first + np.arange(u.size)
+        self.trail.set_data(it, u)
+        self.accepted.set_data(it[acc], u[acc])
+        self.rejected.set_data(it[~acc], u[~acc])
+        if prob is None:
+            self.accept_prob.set_data([], [])
+            self.accept_prob.set_label("_acceptance probability")
+        else:
+            self.accept_prob.set_data(it, prob)
+            self.accept_prob.set_label("acceptance probability")
+        self.summary.set_text(_summary(acc))
+        if self.autoscale:
+            self.ax.set_xlim(self.first - 0.5, self.first + max(u.size, 1) - 0.5)
+        return self
+
+
+def draw_uniform_sequence(ax, u, accepted, accept_prob=None, *, first=0, trail=True):
+    """Draw the accept/reject uniform of one chain per iteration.
+
+    Rejected iterations are hollow circles, accepted ones filled, so clusters
+    of rejections (as a drifting uniform produces) and the slow sweeps of
+    ``u`` stand out. With ``accept_prob`` the acceptance probability is drawn
+    as a step line: points above it are the rejections.
+
+    Parameters
+    ----------
+    ax : Axes
+    u : array_like, shape (draws,)
+        ``run.u[chain]`` for a Metropolis-type kernel.
+    accepted : array_like of bool, shape (draws,)
+    accept_prob : array_like, shape (draws,), optional
+    first : int
+        Iteration number of ``u[0]`` (``run.first_draw`` for a ring buffer).
+    trail : bool
+        Join the values with a thin line.
+
+    Returns
+    -------
+    UniformSequenceDrawing
+        ``update(u, accepted, accept_prob=None, *, first=None)`` reuses the artists.
+    """
+    style.dress(ax)
+    (line,) = ax.plot([], [], color="#AAAAAA", linewidth=0.7, zorder=1, label="_trail",
+                      visible=trail)
+    (prob,) = ax.plot([], [], zorder=2, **style.ACCEPT_PROB)
+    (acc,) = ax.plot([], [], markersize=4, label="u, accepted", zorder=3, **style.ACCEPTED)
+    (rej,) = ax.plot([], [], markersize=5, label="u, rejected", zorder=4, **style.REJECTED)
+    summary = ax.set_title("", loc="left", fontsize=9)
+    ax.set_ylim(-0.03, 1.03)
+    ax.set_xlabel("iteration")
+    ax.set_ylabel("accept/reject uniform u")
+    d = UniformSequenceDrawing(ax=ax, trail=line, accepted=acc, rejected=rej, accept_prob=prob,
+                               summary=summary, first=int(first))
+    return d.update(u, accepted, accept_prob)
