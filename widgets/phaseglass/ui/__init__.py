@@ -1,0 +1,6 @@
+"""The widgets: thin ipywidgets views that hold knobs as traits, compute with the core and
+update the artists created by ``phaseglass.draw`` in place."""
+
+from .trajectory_view import TrajectoryView
+
+__all__ = ["TrajectoryView"]

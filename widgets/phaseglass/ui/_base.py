@@ -1,0 +1,202 @@
+"""What every phaseglass view shares: a canvas, a status line, settings, PNG export.
+
+A view is a ``VBox`` of standard controls plus one ipympl canvas. Knobs are
+traits tagged ``setting=True``; controls are tied to them with
+``traitlets.link``, so setting a trait from code redraws exactly as moving
+the slider does. Errors raised by user code (a log-density that throws, a
+NaN gradient, bad settings) land in the status line and the view keeps working.
+"""
+
+import functools
+import html
+import json
+import traceback
+
+import ipywidgets as widgets
+import numpy as np
+import traitlets
+from matplotlib.figure import Figure
+
+__all__ = ["View", "guarded", "make_canvas_figure"]
+
+
+def make_canvas_figure(figsize, *, css_class="pg-canvas"):
+    """A matplotlib Figure on an ipympl canvas (works without a front end)."""
+    from ipympl.backend_nbagg import Canvas, FigureManager
+
+    fig = Figure(figsize=figsize, layout="constrained")
+    canvas = Canvas(fig)
+    manager = FigureManager(canvas, 0)
+    canvas.manager = manager
+    canvas.header_visible = False
+    canvas.footer_visible = False
+    canvas.toolbar_visible = "fade-in-fade-out"
+    canvas.toolbar_position = "right"
+    canvas.resizable = False
+    canvas.add_class(css_class)
+    return fig
+
+
+def guarded(what):
+    """Decorator for observers/handlers: report exceptions in the status line, never raise.
+
+    ``what`` names the action in the message ("redraw", "step", ...).
+    """
+
+    def wrap(fn):
+        @functools.wraps(fn)
+        def inner(self, *args, **kwargs):
+            try:
+                return fn(self, *args, **kwargs)
+            except Exception as exc:  # user code can raise anything; we show it
+                self.report_error(what, exc)
+                return None
+
+        return inner
+
+    return wrap
+
+
+class View(widgets.VBox):
+    """Base class of the phaseglass views.
+
+    Attributes
+    ----------
+    figure : matplotlib.figure.Figure
+        The view's figure (an ipympl canvas in a notebook; usable headless).
+    status : str
+        Text of the status line.
+    last_error : BaseException or None
+        The latest exception caught from user code.
+    """
+
+    status = traitlets.Unicode("", help="Text of the status line (plain text).")
+
+    def __init__(self, figsize=(9, 4), **kwargs):
+        self.figure = make_canvas_figure(figsize)
+        self.last_error = None
+        self._status_html = widgets.HTML(layout=widgets.Layout(min_height="1.6em"))
+        self._status_html.add_class("pg-status")
+        super().__init__(**kwargs)
+        self.add_class("pg-view")
+
+    # ---------------------------------------------------------------- status
+    @traitlets.observe("status")
+    def _show_status(self, change):
+        text = html.escape(change["new"])
+        colour = "#a33" if text.startswith("error") else "#333"
+        self._status_html.value = f'<span style="font-family:monospace;color:{colour}">{text}</span>'
+
+    def report_error(self, what, exc):
+        """Show ``exc`` in the status line (used by ``guarded``)."""
+        self.last_error = exc
+        where = traceback.extract_tb(exc.__traceback__)[-1] if exc.__traceback__ else None
+        loc = f" ({where.name}, line {where.lineno})" if where else ""
+        self.status = f"error during {what}: {type(exc).__name__}: {exc}{loc}"
+
+    # -------------------------------------------------------------- settings
+    @classmethod
+    def setting_names(cls):
+        return [n for n, t in cls.class_traits().items() if t.metadata.get("setting")]
+
+    @property
+    def settings(self):
+        """JSON-serialisable dict of every knob (``from_settings`` restores them)."""
+        out = {"view": type(self).__name__}
+        for name in self.setting_names():
+            value = getattr(self, name)
+            if isinstance(value, np.ndarray):
+                value = value.tolist()
+            elif isinstance(value, tuple):
+                value = list(value)
+            out[name] = value
+        out.update(self._extra_settings())
+        json.dumps(out)  # fail loudly here rather than in the user's save step
+        return out
+
+    def _extra_settings(self):
+        return {}
+
+    def apply_settings(self, settings):
+        """Set every known knob from ``settings`` in one batch of notifications."""
+        settings = dict(settings)
+        view = settings.pop("view", type(self).__name__)
+        if view != type(self).__name__:
+            raise ValueError(f"`settings` are for a {view}, not a {type(self).__name__}")
+        known = set(self.setting_names())
+        unknown = sorted(k for k in settings if k not in known and k not in self._extra_setting_names())
+        if unknown:
+            raise ValueError(f"`settings` has unknown keys {unknown}; known: {sorted(known)}")
+        with self.hold_trait_notifications():
+            for k in self.setting_names():
+                if k in settings:
+                    value = settings[k]
+                    current = getattr(self, k)
+                    if isinstance(current, tuple) and isinstance(value, list):
+                        value = tuple(value)
+                    setattr(self, k, value)
+        return self
+
+    def _extra_setting_names(self):
+        return ()
+
+    def save_settings(self, path):
+        """Write ``settings`` as JSON to ``path``."""
+        with open(path, "w", encoding="utf-8") as fh:
+            json.dump(self.settings, fh, indent=2)
+        return path
+
+    # ---------------------------------------------------------------- output
+    def save_png(self, path, dpi=120):
+        """Write the current figure to ``path`` as PNG."""
+        self.figure.savefig(path, dpi=dpi, format="png")
+        return path
+
+    # -------------------------------------------------------------- redraws
+    def set_dynamic(self, artists):
+        """Declare the artists that change on every tick; everything else is background.
+
+        The background is captured after each full draw; ``redraw()`` then
+        restores it and draws only these artists. ipympl's canvas reports
+        ``supports_blit = False`` (inherited from WebAgg), but its ``blit``
+        sends the renderer buffer as an ordinary image diff, so restoring a
+        saved region and drawing a few artists is safe there and avoids
+        re-laying out every tick label on each tick.
+        """
+        self._dynamic = [a for a in artists if a is not None]
+        for a in self._dynamic:
+            a.set_animated(True)
+        self._background = None
+        if getattr(self, "_draw_cid", None) is None:
+            self._draw_cid = self.figure.canvas.mpl_connect("draw_event", self._after_full_draw)
+
+    def _after_full_draw(self, event):
+        canvas = self.figure.canvas
+        self._background = canvas.copy_from_bbox(self.figure.bbox)
+        for a in self._dynamic:
+            self.figure.draw_artist(a)
+        if self.figure.get_layout_engine() is not None and getattr(self, "_freeze_layout", True):
+            # layout is settled after the first draw; recomputing it per tick is the slow part
+            self.figure.set_layout_engine("none")
+
+    def redraw(self, full=False):
+        """Repaint: only the dynamic artists over the saved background, or everything.
+
+        A full repaint is requested from the front end (``draw_idle``); headless,
+        ``render()`` draws synchronously.
+        """
+        canvas = self.figure.canvas
+        background = getattr(self, "_background", None)
+        if full or background is None:
+            self._background = None
+            canvas.draw_idle()
+            return
+        canvas.restore_region(background)
+        for a in self._dynamic:
+            self.figure.draw_artist(a)
+        canvas.blit(self.figure.bbox)
+
+    def render(self):
+        """Render the figure now (Agg) and return the RGBA buffer; for tests and benchmarks."""
+        self.figure.canvas.draw()
+        return np.asarray(self.figure.canvas.buffer_rgba()).copy()
