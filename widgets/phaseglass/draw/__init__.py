@@ -46,8 +46,8 @@ Diagnostics drawn here can reveal problems but never prove convergence
 
 from . import style
 from ._base import Drawing
-from .animate import (ChainRecording, animate_chain, record_chain, save_animation,
-                      write_chain_animation)
+from .animate import (ChainRecording, animate_chain, chain_frames, record_chain,
+                      save_animation, write_chain_animation)
 from .chains import (AutocorrelationDrawing, EssPerGradientDrawing, RunningEssDrawing,
                      TracesDrawing, draw_autocorrelation, draw_ess_per_gradient,
                      draw_running_ess, draw_traces, running_ess)
@@ -74,7 +74,8 @@ __all__ = [
     "EssPerGradientDrawing", "EnergyTransitionsDrawing", "PairDrawing", "PairGridDrawing",
     "GibbsPathsDrawing", "ChainSpreadDrawing", "KnobGridDrawing",
     # animation
-    "ChainRecording", "record_chain", "animate_chain", "save_animation", "write_chain_animation",
+    "ChainRecording", "record_chain", "chain_frames", "animate_chain", "save_animation",
+    "write_chain_animation",
     # small numeric helpers and style
     "one_chain", "running_ess", "energy_histograms", "rejection_runs", "staircase",
     "chain_spread", "legend", "style",

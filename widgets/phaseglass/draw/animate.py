@@ -14,7 +14,7 @@ import numpy as np
 
 from . import style
 
-__all__ = ["ChainRecording", "record_chain", "animate_chain", "save_animation",
+__all__ = ["ChainRecording", "record_chain", "chain_frames", "animate_chain", "save_animation",
            "write_chain_animation"]
 
 
@@ -102,34 +102,19 @@ def _frame_plan(recording, frames_per_transition):
     return plan
 
 
-def animate_chain(figure, recording, *, coords=(0, 1), frames_per_transition=3, limits=None,
-                  density=True, fps=6):
-    """Build a FuncAnimation of a recorded chain in ``figure``.
+def chain_frames(figure, recording, *, coords=(0, 1), frames_per_transition=3, limits=None,
+                 density=True):
+    """Draw the first frame of a recorded chain into ``figure``; return how to draw the others.
 
-    Parameters
-    ----------
-    figure : matplotlib.figure.Figure
-        Should be empty; one Axes is added.
-    recording : ChainRecording
-    coords : pair of int or str
-    frames_per_transition : int >= 1
-        Frames per transition: ``frames_per_transition - 1`` show the trajectory
-        growing, the last shows the accept/reject decision and the new draw.
-    limits : (xlim, ylim), optional
-        Default: from every position and trajectory seen.
-    density : bool
-        Log-density contours behind (a slice through the mean position).
-    fps : int
-        Frames per second (sets the interval between frames).
+    Parameters are those of ``animate_chain``.
 
     Returns
     -------
-    matplotlib.animation.FuncAnimation
-        With ``frames_per_transition * n_transitions`` frames; keep a reference
-        until it is saved.
+    show : callable
+        ``show(frame)`` updates the artists in place to frame ``frame``.
+    n_frames : int
+        ``frames_per_transition * n_transitions``.
     """
-    from matplotlib.animation import FuncAnimation
-
     from phaseglass.core.slices import choose_limits, log_density_grid, resolve_coords
 
     from .density import draw_log_density
@@ -190,7 +175,41 @@ def animate_chain(figure, recording, *, coords=(0, 1), frames_per_transition=3, 
         style.legend(ax, loc="upper left", bbox_to_anchor=(1.0, 1.0), fontsize=7,
                      handles=handles, labels=[h.get_label() for h in handles])
     show(0)
-    return FuncAnimation(figure, show, frames=len(plan), interval=1000.0 / max(fps, 1),
+    return show, len(plan)
+
+
+def animate_chain(figure, recording, *, coords=(0, 1), frames_per_transition=3, limits=None,
+                  density=True, fps=6):
+    """Build a FuncAnimation of a recorded chain in ``figure``.
+
+    Parameters
+    ----------
+    figure : matplotlib.figure.Figure
+        Should be empty; one Axes is added.
+    recording : ChainRecording
+    coords : pair of int or str
+    frames_per_transition : int >= 1
+        Frames per transition: ``frames_per_transition - 1`` show the trajectory
+        growing, the last shows the accept/reject decision and the new draw.
+    limits : (xlim, ylim), optional
+        Default: from every position and trajectory seen.
+    density : bool
+        Log-density contours behind (a slice through the mean position).
+    fps : int
+        Frames per second (sets the interval between frames).
+
+    Returns
+    -------
+    matplotlib.animation.FuncAnimation
+        With ``frames_per_transition * n_transitions`` frames; keep a reference
+        until it is saved.
+    """
+    from matplotlib.animation import FuncAnimation
+
+    show, n_frames = chain_frames(figure, recording, coords=coords,
+                                  frames_per_transition=frames_per_transition, limits=limits,
+                                  density=density)
+    return FuncAnimation(figure, show, frames=n_frames, interval=1000.0 / max(fps, 1),
                          blit=False, repeat=False, cache_frame_data=False)
 
 

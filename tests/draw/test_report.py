@@ -1,0 +1,122 @@
+"""The static report: every file present, HTML that parses and holds every section, JSON summary."""
+
+import base64
+import json
+from html.parser import HTMLParser
+
+import numpy as np
+import pytest
+
+import phaseglass as pg
+from phaseglass.core.run import CAUTION
+from phaseglass.report import FIGURE_NAMES, write_report
+
+
+class _Collect(HTMLParser):
+    def __init__(self):
+        super().__init__()
+        self.ids, self.images, self.text = set(), [], []
+        self.stack = []
+
+    def handle_starttag(self, tag, attrs):
+        a = dict(attrs)
+        if "id" in a:
+            self.ids.add(a["id"])
+        if tag == "img":
+            self.images.append(a.get("src", ""))
+        if tag not in ("img", "meta", "br"):
+            self.stack.append(tag)
+
+    def handle_endtag(self, tag):
+        assert self.stack and self.stack[-1] == tag, f"unbalanced </{tag}>"
+        self.stack.pop()
+
+    def handle_data(self, data):
+        self.text.append(data)
+
+
+@pytest.fixture(scope="module")
+def funnel_report(tmp_path_factory):
+    run = pg.sample(pg.demos.orchards("centred"), pg.HMC(0.4, 8), n_draws=60, n_chains=2,
+                    warmup=0, seed=11)
+    assert run.n_divergent > 0
+    out = tmp_path_factory.mktemp("report")
+    files = write_report(out, run, settings={"model": "orchards", "draws": 60}, title="orchards",
+                         coords=("log_tau", "effect_1"), grid_draws=30, dpi=40)
+    return run, files
+
+
+def test_report_folder_holds_every_file(funnel_report):
+    run, files = funnel_report
+    expected = {"trajectory", "divergence", "uniforms", "traces", "autocorrelation",
+                "running_ess", "ess_per_gradient", "energy", "pairs", "tuning"}
+    assert set(files.figures) == expected
+    for name, path in files.figures.items():
+        assert path.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n", name
+    assert files.html.exists() and files.summary.exists()
+    assert set(p.name for p in files.folder.iterdir()) == \
+        {f"{n}.png" for n in expected} | {"report.html", "summary.json"}
+
+
+def test_html_parses_and_has_every_section(funnel_report):
+    run, files = funnel_report
+    parser = _Collect()
+    parser.feed(files.html.read_text())
+    parser.close()
+    assert parser.stack == []
+    for section in ("settings", "warnings", "diagnostics", "figures", "caution"):
+        assert section in parser.ids
+    for name in files.figures:
+        assert f"fig-{name}" in parser.ids
+    # self-contained: every image is an embedded PNG equal to the file beside it
+    assert len(parser.images) == len(files.figures)
+    embedded = [base64.b64decode(src.split(",", 1)[1]) for src in parser.images]
+    assert all(src.startswith("data:image/png;base64,") for src in parser.images)
+    assert sorted(embedded) == sorted(p.read_bytes() for p in files.figures.values())
+    text = " ".join(parser.text)
+    assert " ".join(CAUTION.split()) in " ".join(text.split())
+    assert "divergent transition" in text
+    assert "R-hat" in text and "bulk ESS" in text
+    for name in run.names:
+        assert name in text
+
+
+def test_summary_json(funnel_report):
+    run, files = funnel_report
+    s = json.loads(files.summary.read_text())
+    assert s["settings"] == {"model": "orchards", "draws": 60}
+    assert s["caution"] == CAUTION
+    assert s["diagnostics"] == json.loads(json.dumps(run.summary().as_dict(), allow_nan=False))
+    assert s["warnings"] and any("divergent" in w for w in s["warnings"])
+    assert s["model"]["names"] == list(run.names)
+    assert s["tuning_grid"]["steps"] == [4, 8, 16]
+    assert len(s["tuning_grid"]["values"]) == 3
+    assert set(s["files"]) == {p.name for p in files.folder.iterdir()}
+
+
+def test_random_walk_report_leaves_out_leapfrog_views(tmp_path):
+    run = pg.sample(pg.demos.correlated_gaussian(), pg.RandomWalk(1.0), n_draws=40, n_chains=2,
+                    seed=3)
+    files = write_report(tmp_path, run, dpi=30)
+    assert "trajectory" not in files.figures and "tuning" not in files.figures
+    assert {"uniforms", "traces", "pairs"} <= set(files.figures)
+    assert any("no leapfrog trajectories" in n for n in files.notes)
+    html = files.html.read_text()
+    assert "no leapfrog trajectories" in html
+    assert "No problem detected" in html or "\u26a0" in html
+
+
+def test_rewriting_a_folder_drops_stale_figures(tmp_path):
+    t = pg.demos.correlated_gaussian()
+    run = pg.sample(t, pg.HMC(0.3, 4), n_draws=30, n_chains=2, seed=1)
+    write_report(tmp_path, run, grid_draws=20, dpi=30)
+    assert (tmp_path / "tuning.png").exists()
+    write_report(tmp_path, run, grid=False, dpi=30)
+    assert not (tmp_path / "tuning.png").exists()
+
+
+def test_report_needs_target_and_kernel(tmp_path):
+    run = pg.sample(pg.demos.correlated_gaussian(), pg.HMC(0.3, 4), n_draws=10, n_chains=1, seed=1)
+    run.target = None
+    with pytest.raises(ValueError, match="target and kernel"):
+        write_report(tmp_path, run)

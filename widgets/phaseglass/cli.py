@@ -1,0 +1,343 @@
+"""The ``phaseglass`` command line (also ``python -m phaseglass``).
+
+``phaseglass report`` runs a sampler on a demo model or your own Target and
+writes a shareable folder: PNG figures, ``summary.json`` and a self-contained
+``report.html``.
+
+Subcommands are registered in ``SUBCOMMANDS`` below: each is a name, a help
+line, a function adding its arguments to an ``argparse`` sub-parser and a
+function running it (returning an exit code). A new subcommand (``phaseglass
+demo``, for one) is added there without touching the others.
+
+Exit codes: 0 success, 1 the run failed while sampling or drawing, 2 bad usage
+(including a ``--model`` that cannot be loaded), always with one line on stderr.
+"""
+
+import argparse
+import importlib
+import os
+import sys
+
+__all__ = ["main", "build_parser", "load_model", "UsageError", "SUBCOMMANDS"]
+
+PROG = "phaseglass"
+
+
+class UsageError(Exception):
+    """Bad input from the command line: reported as one line, exit code 2."""
+
+
+class RunError(Exception):
+    """The run itself failed (the model raised while sampling, ...): one line, exit code 1."""
+
+
+def _one_line(exc):
+    text = str(exc).strip().splitlines()
+    first = text[0] if text else ""
+    return f"{type(exc).__name__}: {first}" if first else type(exc).__name__
+
+
+# ------------------------------------------------------------------ models
+
+def load_model(spec):
+    """Return the Target named by ``spec``: a demo name or ``package.module:callable``.
+
+    The callable is called with no arguments and must return a phaseglass Target.
+    The current directory is searched first, so ``mymodel:build`` finds
+    ``./mymodel.py``.
+
+    Raises
+    ------
+    UsageError
+        With a one-line message for an unknown name, a module that cannot be
+        imported, a missing or non-callable attribute, a callable that raises,
+        or a return value that is not a Target.
+    """
+    from .core import demos
+    from .core.target import Target
+
+    if spec in demos.DEMOS:
+        return demos.get(spec)
+    if ":" not in spec:
+        raise UsageError(
+            f"unknown --model {spec!r}: give a demo name ({', '.join(demos.DEMOS)}) "
+            "or package.module:callable"
+        )
+    module_name, _, attr = spec.partition(":")
+    if not module_name or not attr:
+        raise UsageError(f"--model {spec!r} must look like package.module:callable")
+    cwd = os.getcwd()
+    added = cwd not in sys.path
+    if added:
+        sys.path.insert(0, cwd)
+    try:
+        module = importlib.import_module(module_name)
+    except ModuleNotFoundError as exc:
+        raise UsageError(f"cannot import module {module_name!r} for --model {spec!r}: {exc}") from None
+    except Exception as exc:  # the user's module raised while importing
+        raise UsageError(f"importing {module_name!r} for --model {spec!r} raised {_one_line(exc)}") from None
+    finally:
+        if added:
+            sys.path.remove(cwd)
+    obj = module
+    for part in attr.split("."):
+        if not hasattr(obj, part):
+            raise UsageError(f"module {module_name!r} has no attribute {attr!r} (from --model {spec!r})")
+        obj = getattr(obj, part)
+    if isinstance(obj, Target):
+        return obj
+    if not callable(obj):
+        raise UsageError(
+            f"--model {spec!r} is not callable (it is a {type(obj).__name__} value); name a "
+            "function that returns a phaseglass Target"
+        )
+    try:
+        target = obj()
+    except Exception as exc:
+        raise UsageError(f"--model {spec!r} raised {_one_line(exc)}") from None
+    if not isinstance(target, Target):
+        raise UsageError(
+            f"--model {spec!r} returned {type(target).__name__}, not a phaseglass Target; "
+            "return pg.Target(log_density, grad, dim=...)"
+        )
+    return target
+
+
+# ------------------------------------------------------------------ argument types
+
+def _positive_float(text):
+    try:
+        v = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a number > 0, got {text!r}") from None
+    if not (v > 0 and v < float("inf")):
+        raise argparse.ArgumentTypeError(f"expected a number > 0, got {text!r}")
+    return v
+
+
+def _fraction(text):
+    try:
+        v = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a number in [0, 1), got {text!r}") from None
+    if not 0 <= v < 1:
+        raise argparse.ArgumentTypeError(f"expected a number in [0, 1), got {text!r}")
+    return v
+
+
+def _count(minimum):
+    def parse(text):
+        try:
+            v = int(text)
+        except ValueError:
+            raise argparse.ArgumentTypeError(f"expected a whole number >= {minimum}, got {text!r}") from None
+        if v < minimum:
+            raise argparse.ArgumentTypeError(f"expected a whole number >= {minimum}, got {text!r}")
+        return v
+
+    parse.__name__ = f"integer >= {minimum}"
+    return parse
+
+
+def _coord_pair(text):
+    parts = [p.strip() for p in text.split(",")]
+    if len(parts) != 2 or not all(parts):
+        raise argparse.ArgumentTypeError(f"expected two names or indices like mu,log_tau or 0,1, got {text!r}")
+    return tuple(int(p) if p.lstrip("-").isdigit() else p for p in parts)
+
+
+# ------------------------------------------------------------------ report
+
+#: Kernel defaults when a knob is not given (the warm-up tunes the step size anyway).
+KERNEL_DEFAULTS = {
+    "hmc": {"step_size": 0.25, "steps": 10},
+    "partial": {"step_size": 0.15, "steps": 1},
+    "walk": {"step_size": 0.5, "steps": None},
+}
+
+
+def _add_report_arguments(p):
+    from .core import demos
+
+    model = p.add_argument_group("model")
+    model.add_argument("--model", default="gaussian", metavar="NAME|MODULE:CALLABLE",
+                       help=f"a demo ({', '.join(demos.DEMOS)}) or package.module:callable "
+                            "returning a phaseglass Target (default: gaussian)")
+    model.add_argument("--coords", type=_coord_pair, default=None, metavar="A,B",
+                       help="two coordinates (names or indices) for trajectories, paths and the "
+                            "first pair (default: the first two)")
+    knobs = p.add_argument_group("sampler and knobs")
+    knobs.add_argument("--kernel", choices=("hmc", "partial", "walk"), default="hmc",
+                       help="hmc: fixed-length HMC; partial: HMC with partial momentum refresh; "
+                            "walk: random-walk Metropolis (default: hmc)")
+    knobs.add_argument("--step-size", type=_positive_float, default=None, metavar="EPS",
+                       help="leapfrog step size (walk: proposal scale); the starting value when "
+                            "--warmup > 0 (default: 0.25 hmc, 0.15 partial, 0.5 walk)")
+    knobs.add_argument("--steps", type=_count(1), default=None, metavar="N",
+                       help="leapfrog steps per transition (default: 10 hmc, 1 partial)")
+    knobs.add_argument("--persistence", type=_fraction, default=None, metavar="A",
+                       help="momentum persistence in [0, 1) for --kernel partial (default: 0.9)")
+    knobs.add_argument("--uniform", choices=("fresh", "drifting"), default="fresh",
+                       help="accept/reject uniform: a fresh one per decision, or one that drifts "
+                            "so rejections cluster (default: fresh)")
+    knobs.add_argument("--drift", type=_positive_float, default=None, metavar="D",
+                       help="change of the drifting uniform per iteration, below 2 (default: 0.03)")
+    knobs.add_argument("--warmup", type=_count(0), default=300, metavar="N",
+                       help="tuning transitions before the kept draws (default: 300)")
+    run = p.add_argument_group("run and output")
+    run.add_argument("--draws", type=_count(1), default=500, metavar="N",
+                     help="draws kept per chain (default: 500)")
+    run.add_argument("--chains", type=_count(1), default=4, metavar="N",
+                     help="number of chains (default: 4)")
+    run.add_argument("--seed", type=_count(0), default=None, metavar="INT",
+                     help="random seed; the one used is recorded in the report (default: fresh)")
+    run.add_argument("--out", default="phaseglass-report", metavar="DIR",
+                     help="folder for the report, created if needed (default: ./phaseglass-report)")
+    run.add_argument("--dpi", type=_positive_float, default=90, metavar="DPI",
+                     help="resolution of the PNG figures (default: 90)")
+    run.add_argument("--no-grid", action="store_true",
+                     help="skip the step size x steps heat map (saves a few short runs)")
+    run.add_argument("--gif", action="store_true",
+                     help="also write chain.gif, a few transitions of one chain, step by step")
+    run.add_argument("--quiet", action="store_true", help="print nothing but errors")
+
+
+def _build_kernel(args):
+    from .core.kernels import HMC, PartialRefreshHMC, RandomWalk
+    from .core.uniforms import DriftingUniform, FreshUniform
+
+    notes = []
+    kind = args.kernel
+    defaults = KERNEL_DEFAULTS[kind]
+    if args.persistence is not None and kind != "partial":
+        notes.append("--persistence applies to --kernel partial only; ignored")
+    if args.steps is not None and kind == "walk":
+        notes.append("--steps does not apply to --kernel walk; ignored")
+    if args.drift is not None and args.uniform != "drifting":
+        notes.append("--drift applies to --uniform drifting only; ignored")
+    try:
+        uniform = (DriftingUniform(args.drift if args.drift is not None else 0.03)
+                   if args.uniform == "drifting" else FreshUniform())
+        eps = args.step_size if args.step_size is not None else defaults["step_size"]
+        steps = args.steps if args.steps is not None else defaults["steps"]
+        if kind == "hmc":
+            kernel = HMC(eps, steps, uniform=uniform)
+        elif kind == "partial":
+            persistence = args.persistence if args.persistence is not None else 0.9
+            kernel = PartialRefreshHMC(eps, steps, persistence, uniform=uniform)
+        else:
+            kernel = RandomWalk(eps, uniform=uniform)
+    except (TypeError, ValueError) as exc:
+        raise UsageError(str(exc).splitlines()[0]) from None
+    return kernel, notes
+
+
+def _run_report(args):
+    import time
+
+    import numpy as np
+
+    from .core.sampling import sample
+
+    say = (lambda *a: None) if args.quiet else (lambda *a: print(*a, flush=True))
+    target = load_model(args.model)
+    kernel, notes = _build_kernel(args)
+    for n in notes:
+        print(f"{PROG} report: note: {n}", file=sys.stderr)
+    coords = args.coords
+    if coords is not None:
+        from .core.slices import resolve_coords
+
+        try:
+            resolve_coords(coords, target.names, target.dim)
+        except (TypeError, ValueError) as exc:
+            raise UsageError(f"--coords: {str(exc).splitlines()[0]}") from None
+    elif target.dim < 2:
+        coords = None
+    say(f"sampling {args.model}: {type(kernel).__name__}, {args.chains} chains x "
+        f"{args.draws} draws after {args.warmup} warm-up")
+    started = time.perf_counter()
+    try:
+        with np.errstate(all="ignore"):
+            run = sample(target, kernel, None, args.draws, n_chains=args.chains,
+                         warmup=args.warmup, seed=args.seed)
+    except Exception as exc:  # the model's own code raised, or it has no finite start
+        raise RunError(f"sampling {args.model!r} failed: {_one_line(exc)}") from None
+    sampled = time.perf_counter() - started
+    settings = {
+        "model": args.model, "kernel": args.kernel,
+        "step_size (start of warm-up)": kernel.step_size if hasattr(kernel, "step_size") else kernel.scale,
+        "steps": getattr(kernel, "n_steps", None), "persistence": getattr(kernel, "persistence", None),
+        "uniform": args.uniform,
+        "drift": args.drift if args.drift is not None else (0.03 if args.uniform == "drifting" else None),
+        "warmup": args.warmup, "draws": args.draws, "chains": args.chains,
+        "seed": int(run.seed) if np.ndim(run.seed) == 0 else run.seed,
+        "seed given": args.seed is not None,
+    }
+    settings = {k: v for k, v in settings.items() if v is not None}
+    from .report import write_report
+
+    command = " ".join([PROG] + list(args._argv))
+    try:
+        files = write_report(args.out, run, settings=settings, title=args.model, coords=coords,
+                             grid=not args.no_grid, animation=args.gif, dpi=args.dpi,
+                             command=command)
+    except OSError as exc:
+        raise RunError(f"cannot write the report to {args.out!r}: {exc}") from None
+    n_warn = len(files.warnings)
+    say(f"sampled in {sampled:.1f} s; wrote {len(files.figures)} figures, summary.json and "
+        f"report.html to {files.folder} ({files.seconds:.1f} s)")
+    say(f"{n_warn} warning(s); open {files.html}" if n_warn
+        else f"no problem detected by these checks (not proof of convergence); open {files.html}")
+    return 0
+
+
+# ------------------------------------------------------------------ subcommands
+
+#: name -> (help line, add_arguments(parser), run(args) -> exit code).
+#: Add a subcommand here, e.g. "demo": ("open a demo ...", _add_demo_arguments, _run_demo).
+SUBCOMMANDS = {
+    "report": ("run a sampler and write figures, summary.json and a self-contained report.html",
+               _add_report_arguments, _run_report),
+}
+
+
+def build_parser():
+    """The argparse parser with one sub-parser per entry of ``SUBCOMMANDS``."""
+    from . import __version__
+
+    parser = argparse.ArgumentParser(
+        prog=PROG,
+        description="Look inside gradient-based MCMC samplers. Diagnostics can reveal problems "
+                    "but never prove convergence.",
+    )
+    parser.add_argument("--version", action="version", version=f"{PROG} {__version__}")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", required=True)
+    for name, (help_line, add_arguments, run) in SUBCOMMANDS.items():
+        p = sub.add_parser(name, help=help_line, description=help_line[0].upper() + help_line[1:] + ".")
+        add_arguments(p)
+        p.set_defaults(_run=run)
+    return parser
+
+
+def main(argv=None):
+    """Run the command line; returns the exit code (0 ok, 1 run failed, 2 bad usage)."""
+    argv = list(sys.argv[1:] if argv is None else argv)
+    parser = build_parser()
+    try:
+        args = parser.parse_args(argv)
+    except SystemExit as exc:  # argparse already printed usage and the error (or --help)
+        return int(exc.code or 0)
+    args._argv = argv
+    prefix = f"{PROG} {args.command}"
+    try:
+        return int(args._run(args) or 0)
+    except UsageError as exc:
+        print(f"{prefix}: error: {exc}", file=sys.stderr)
+        return 2
+    except RunError as exc:
+        print(f"{prefix}: error: {exc}", file=sys.stderr)
+        return 1
+    except KeyboardInterrupt:
+        print(f"{prefix}: interrupted", file=sys.stderr)
+        return 130
