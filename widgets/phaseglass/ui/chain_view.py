@@ -286,6 +286,7 @@ class ChainView(View):
             info = self.sampler.step(record=True)
         if info is not None:
             self._last_accepted = bool(info["accepted"][0])
+        self.status = ""
         return info
 
     def _on_tick(self, change):
