@@ -93,7 +93,7 @@ class ChainView(View):
             raise ValueError("`target` must have dim >= 2 for a 2-D view")
         self.target = target
         self.capacity = int(capacity)
-        super().__init__(figsize=(10, 4.6))
+        super().__init__(figsize=(8.6, 4.6))
         self._ready = False
         coords = resolve_coords(coords, target.names, target.dim)
         if kernel is not None:

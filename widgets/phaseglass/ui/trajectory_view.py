@@ -113,7 +113,7 @@ class TrajectoryView(View):
         self.target = target
         self.max_energy_error = float(max_energy_error)
         coords = resolve_coords(coords, target.names, target.dim)
-        super().__init__(figsize=(9.5, 4.2))
+        super().__init__(figsize=(8.4, 3.9))
         self._grid_key = None
         self._applying = False
         self._drag = None
@@ -218,7 +218,9 @@ class TrajectoryView(View):
         self._y_pick.observe(lambda ch: self._pick(1, ch["new"]), "value")
         self._readout = widgets.HTML()
         self._readout.add_class("pg-readout")
-        self._click_readout = widgets.HTML()
+        self._click_readout = widgets.HTML(
+            "<span style='font-family:monospace'>click the left panel to move the start; press on "
+            "the start and drag to set the initial momentum</span>")
         self._click_readout.add_class("pg-click-readout")
         self._sync_mass_labels()
         row1 = widgets.HBox([self._step_slider, self._steps_slider, self._persist_slider])
@@ -261,13 +263,14 @@ class TrajectoryView(View):
     # ---------------------------------------------------------------- figure
     def _build_figure(self):
         fig = self.figure
-        self._ax, self._ax_err = fig.subplots(1, 2, width_ratios=[1.15, 1.0])
+        self._ax, self._ax_err = fig.subplots(1, 2, width_ratios=[1.0, 1.0])
         self._density = draw_log_density(self._ax, self._grid(), names=self._axis_names())
         tr = self._integrate()
         self._path = draw_trajectory(self._ax, tr, coords=self.coords, accepted=None,
                                      names=self.target.names)
         self._path.autoscale = False
         self._energy = draw_energy_error(self._ax_err, tr)
+        self._energy.verdict.set_fontsize(8)
         # few ticks: tick labels are most of the cost of a full draw
         self._ax_err.yaxis.set_major_locator(FixedLocator([-1000, -10, -1, 0, 1, 10, 1000]))
         self._ax_err.yaxis.set_minor_locator(NullLocator())
@@ -362,7 +365,9 @@ class TrajectoryView(View):
             self._x_pick.value, self._y_pick.value = self.coords
             self._sync_mass_labels()
         grid_key = self._grid_key
-        self._density.update(self._grid())
+        grid = self._grid()
+        if grid_key != self._grid_key:  # new contours only for a new region: not per tick
+            self._density.update(grid)
         static = (self._grid_key, self.coords, self.xlim, self.ylim, self.n_steps)
         full = grid_key != self._grid_key or static != getattr(self, "_static_key", None)
         self._static_key = static

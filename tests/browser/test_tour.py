@@ -1,0 +1,71 @@
+"""The tour notebook in a real browser: JupyterLab and Notebook 7, Debian chromium.
+
+Runs every cell, waits for the ipympl canvases to be painted, moves the trajectory view's
+step-size slider (the canvas image and the readout must change after every input), clicks
+the trajectory panel twice (the start point must move, and the canvas repaint), and prints
+the latency from input to repainted canvas (a benchmark figure, not an assertion).
+Screenshots land in test-artefacts/browser/.
+"""
+
+from __future__ import annotations
+
+import re
+from pathlib import Path
+
+import pytest
+
+from phaseglass_browser_harness import CanvasClick, Scenario, SliderStep  # loaded by conftest.py
+
+REPO = Path(__file__).resolve().parents[2]
+
+# The trajectory view is the first view in the tour, so index 0 of each class is its control.
+# Click points are fractions of the whole canvas: both fall in the left (trajectory) panel.
+TOUR = Scenario(
+    name="tour",
+    notebook=REPO / "example_notebooks" / "tour.ipynb",
+    steps=(
+        SliderStep(slider_class="pg-step-size", canvas_class="pg-canvas",
+                   text_classes=("pg-readout",), label="slider", index=0),
+        CanvasClick(canvas_class="pg-canvas", points=((0.2, 0.3), (0.35, 0.6)),
+                    text_classes=("pg-click-readout", "pg-readout"), label="click", index=0),
+    ),
+    copy_whole_folder=False,
+    run_timeout_s=150.0,
+)
+
+_NUMBER = r"-?\d+(?:\.\d+)?(?:e[-+]?\d+)?"
+
+
+@pytest.mark.browser
+@pytest.mark.parametrize("ui", ["lab", "notebook"])
+def test_tour_notebook(browser_run, ui):
+    res = browser_run(TOUR, ui, timeout_s=240)
+
+    slider = res.step_inputs("slider")
+    assert len(slider) == 2
+    sizes = []
+    for rec in slider:
+        assert rec.canvas_latency_ms is not None, "canvas did not repaint after the slider moved"
+        m = re.search(r"step size (" + _NUMBER + ")", rec.texts_after["pg-readout"])
+        assert m, rec.texts_after
+        sizes.append(float(m.group(1)))
+    before = float(re.search(r"step size (" + _NUMBER + ")", slider[0].texts_before["pg-readout"]).group(1))
+    if ui == "lab":  # two ArrowRight presses: the step size grows each time
+        assert before < sizes[0] < sizes[1], (before, sizes)
+    else:  # track clicks at 85 % then 15 %: large, then small
+        assert sizes[0] > before > sizes[1], (before, sizes)
+
+    clicks = res.step_inputs("click")
+    assert len(clicks) == 2
+    starts = []
+    for rec in clicks:
+        m = re.search(r"start moved to \((" + _NUMBER + r"), (" + _NUMBER + r")\)",
+                      rec.texts_after["pg-click-readout"])
+        assert m, rec.texts_after
+        starts.append((float(m.group(1)), float(m.group(2))))
+        assert rec.canvas_latency_ms is not None
+    # the second click is right of and below the first one: so is the start point
+    assert starts[1][0] > starts[0][0] and starts[1][1] < starts[0][1], starts
+
+    assert not res.page_errors, res.page_errors
+    print("LATENCY", res.summary())
