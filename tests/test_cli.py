@@ -63,7 +63,7 @@ BAD_MODELS = [
     ("pg_cli_models:missing", "has no attribute 'missing'"),
     ("pg_cli_models:raises", "raised RuntimeError: the tide table is missing"),
     ("pg_cli_models:not_target", "returned list, not a phaseglass Target"),
-    ("pg_cli_models:count", "is not callable (it is a int value)"),
+    ("pg_cli_models:count", "is not callable (got a value of type int)"),
     ("pg_cli_broken:make", "raised ImportError: half-written module"),
     (":make", "must look like package.module:callable"),
 ]

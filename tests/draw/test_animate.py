@@ -1,6 +1,5 @@
 """Animation export: GIF frames counted with Pillow, MP4 only with ffmpeg, clear errors otherwise."""
 
-import numpy as np
 import pytest
 from numpy.testing import assert_allclose
 from PIL import Image

@@ -4,7 +4,6 @@ import base64
 import json
 from html.parser import HTMLParser
 
-import numpy as np
 import pytest
 
 import phaseglass as pg
@@ -51,6 +50,7 @@ def test_report_folder_holds_every_file(funnel_report):
     expected = {"trajectory", "divergence", "uniforms", "traces", "autocorrelation",
                 "running_ess", "ess_per_gradient", "energy", "pairs", "tuning"}
     assert set(files.figures) == expected
+    assert expected <= set(FIGURE_NAMES)
     for name, path in files.figures.items():
         assert path.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n", name
     assert files.html.exists() and files.summary.exists()
@@ -107,12 +107,14 @@ def test_random_walk_report_leaves_out_leapfrog_views(tmp_path):
 
 
 def test_rewriting_a_folder_drops_stale_figures(tmp_path):
-    t = pg.demos.correlated_gaussian()
-    run = pg.sample(t, pg.HMC(0.3, 4), n_draws=30, n_chains=2, seed=1)
-    write_report(tmp_path, run, grid_draws=20, dpi=30)
-    assert (tmp_path / "tuning.png").exists()
-    write_report(tmp_path, run, grid=False, dpi=30)
-    assert not (tmp_path / "tuning.png").exists()
+    run = pg.sample(pg.demos.correlated_gaussian(), pg.RandomWalk(1.0), n_draws=20, n_chains=2,
+                    seed=1)
+    (tmp_path / "tuning.png").write_bytes(b"from an earlier run")
+    (tmp_path / "chain.gif").write_bytes(b"from an earlier run")
+    (tmp_path / "notes.txt").write_text("not ours")
+    write_report(tmp_path, run, dpi=20)
+    assert not (tmp_path / "tuning.png").exists() and not (tmp_path / "chain.gif").exists()
+    assert (tmp_path / "notes.txt").exists()  # files the report did not write are left alone
 
 
 def test_report_needs_target_and_kernel(tmp_path):

@@ -2,7 +2,7 @@
 
 import numpy as np
 import pytest
-from numpy.testing import assert_allclose, assert_array_equal
+from numpy.testing import assert_allclose
 
 import phaseglass as pg
 from phaseglass.core.slices import log_density_grid
@@ -191,3 +191,23 @@ def test_legend_shows_an_arrow_for_the_momentum(ax, smooth_traj):
     assert "initial momentum" in labels and "end (accepted)" in labels
     assert "divergent step" not in labels  # nothing diverged
     assert d.momentum.get_label() == "initial momentum"
+
+
+def test_momentum_arrow_follows_the_metric(ax, gaussian):
+    metric = pg.Metric([4.0, 0.25])
+    tr = pg.leapfrog(gaussian, [0.0, 0.0], [1.0, 1.0], 0.05, 4, metric=metric)
+    d = draw_trajectory(ax, tr, metric=metric, momentum_scale=1.0)
+    assert_allclose(d.momentum_ends[1], [4.0, 0.25])  # M^-1 p0: where the path starts to go
+    first_step = tr.positions[1] - tr.positions[0]
+    cos = first_step @ d.momentum_ends[1] / np.linalg.norm(first_step) / np.linalg.norm(d.momentum_ends[1])
+    assert cos > 0.99
+
+
+def test_artists_exclude_the_axes_and_remove_takes_them_off(ax, smooth_traj):
+    d = draw_trajectory(ax, smooth_traj, accepted=True)
+    e = draw_energy_error(ax.figure.add_subplot(2, 1, 2), smooth_traj, secondary=True)
+    assert ax not in d.artists and e.twin not in e.artists and e.accept_line in e.artists
+    assert len(d.artists) == 5
+    d.remove()
+    assert not ax.lines and not ax.patches
+    assert ax in ax.figure.axes

@@ -88,7 +88,7 @@ def load_model(spec):
         return obj
     if not callable(obj):
         raise UsageError(
-            f"--model {spec!r} is not callable (it is a {type(obj).__name__} value); name a "
+            f"--model {spec!r} is not callable (got a value of type {type(obj).__name__}); name a "
             "function that returns a phaseglass Target"
         )
     try:
@@ -130,7 +130,8 @@ def _count(minimum):
         try:
             v = int(text)
         except ValueError:
-            raise argparse.ArgumentTypeError(f"expected a whole number >= {minimum}, got {text!r}") from None
+            raise argparse.ArgumentTypeError(
+                f"expected a whole number >= {minimum}, got {text!r}") from None
         if v < minimum:
             raise argparse.ArgumentTypeError(f"expected a whole number >= {minimum}, got {text!r}")
         return v

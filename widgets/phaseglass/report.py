@@ -35,6 +35,13 @@ _COLUMN_TITLES = {
 }
 
 
+_RUN_TITLES = {
+    "draws_per_chain": "draws per chain", "min_ess_centre": "lowest bulk ESS",
+    "ess_per_gradient": "lowest bulk ESS per gradient evaluation",
+    "ebfmi": "E-BFMI per chain", "gradient_evaluations": "gradient evaluations",
+}
+
+
 @dataclass
 class ReportFiles:
     """Where a report was written and what it holds.
@@ -121,7 +128,8 @@ def _figure_trajectory(run, traj, accepted, coords, title):
     xlim, ylim = ((min(a[0], b[0]), max(a[1], b[1])) for a, b in zip(bulk, path))
     grid = log_density_grid(run.target, coords, traj.positions[0], xlim, ylim, n=90)
     draw_log_density(ax, grid)
-    view = draw_trajectory(ax, traj, coords=coords, accepted=accepted, names=run.names)
+    view = draw_trajectory(ax, traj, coords=coords, accepted=accepted, names=run.names,
+                           metric=run.kernel.metric)
     view.autoscale = False
     ax.set_xlim(*xlim)
     ax.set_ylim(*ylim)
@@ -141,8 +149,9 @@ def _figure_uniforms(run):
     n = min(run.n_draws, 300)
     fig = style.new_figure(10.0, 3.6)
     ax = fig.add_subplot()
-    u = run.u[0, :n] if run.u.ndim == 2 else run.u[0, :n, 0]
-    draw_uniform_sequence(ax, u, run.accepted[0, :n], run.accept_prob[0, :n])
+    u = run.u[0, :n] if run.u.ndim == 2 else run.u[0, :n, 0]  # Gibbs: the first coordinate's
+    prob = None if run.accept_prob is None else run.accept_prob[0, :n]
+    draw_uniform_sequence(ax, u, run.accepted[0, :n], prob)
     ax.set_xlabel(f"iteration (chain 0, first {n} draws)")
     legend(ax, loc="upper left", bbox_to_anchor=(1.0, 1.0))
     return fig
@@ -378,7 +387,7 @@ def write_report(out_dir, run, *, settings=None, title=None, coords=None, grid=T
     else:
         notes.append("This kernel makes no leapfrog trajectories, so the trajectory and "
                      "energy-error views are left out.")
-    if run.u is not None and run.u.ndim >= 2 and run.n_draws:
+    if run.u is not None and run.accepted is not None and run.u.ndim >= 2 and run.n_draws:
         keep("uniforms", _figure_uniforms(run),
              "The accept/reject uniform u of chain 0 per iteration: hollow circles are "
              "rejections, the step line the acceptance probability (u above it means rejection). "
@@ -476,6 +485,7 @@ padding-bottom:.2em;margin-top:1.8em}
 table{border-collapse:collapse;font-size:.9em;margin:.6em 0}
 th,td{border:1px solid #ddd;padding:.25em .6em;text-align:right}
 th:first-child,td:first-child{text-align:left}th{background:#f4f4ef}
+table.kv td:last-child,table.kv th:last-child{text-align:left}
 td.flag{font-weight:bold;background:#fff4e0}
 .caution{border-left:5px solid #0072B2;background:#f3f8fc;padding:.6em 1em}
 .warn li{margin:.3em 0}.ok{color:#006b4f}
@@ -513,9 +523,9 @@ def _flag(column, value, chains):
     return False
 
 
-def _table(rows, head=None):
+def _table(rows, head=None, cls=None):
     e = html.escape
-    out = ["<table>"]
+    out = [f'<table class="{cls}">' if cls else "<table>"]
     if head:
         out.append("<tr>" + "".join(f"<th>{e(h)}</th>" for h in head) + "</tr>")
     for row in rows:
@@ -541,17 +551,6 @@ def _html(run, digest, summary, images, captions, files):
         parts.append(f"<p>{e(model['description'])}</p>")
     parts.append(f'<p class="caution" id="caution"><strong>Read with care.</strong> {e(CAUTION)}</p>')
     parts.append("</header>")
-
-    # settings
-    parts.append('<section id="settings"><h2>Settings</h2>')
-    rows = [[str(k), _fmt(v)] for k, v in (summary["settings"] or {}).items()]
-    if rows:
-        parts.append(_table(rows, ["setting", "value"]))
-    kern = summary["kernel_after_warmup"] or {}
-    if kern:
-        parts.append("<p>Kernel after warm-up (what the draws below used):</p>")
-        parts.append(_table([[str(k), _fmt(v)] for k, v in kern.items()], ["knob", "value"]))
-    parts.append("</section>")
 
     # warnings
     parts.append('<section id="warnings"><h2>Warnings</h2>')
@@ -581,9 +580,22 @@ def _html(run, digest, summary, images, captions, files):
     parts.append(f"<p>\u26a0 marks R-hat above {RHAT_LIMIT} or ESS below {ESS_PER_CHAIN_LIMIT} "
                  "per chain (thresholds of common practice).</p>")
     info = d["run"]
-    run_rows = [[k.replace("_", " "), _fmt(v)] for k, v in info.items() if k != "kernel"]
-    parts.append(_table(run_rows, ["run", "value"]))
+    run_rows = [[_RUN_TITLES.get(k, k.replace("_", " ")), _fmt(v)]
+                for k, v in info.items() if k != "kernel"]
+    parts.append(_table(run_rows, ["run", "value"], cls="kv"))
     parts.append(f'<p class="caution">{e(CAUTION)}</p>')
+    parts.append("</section>")
+
+    # settings
+    parts.append('<section id="settings"><h2>Settings</h2>')
+    rows = [[str(k), _fmt(v)] for k, v in (summary["settings"] or {}).items()]
+    if rows:
+        parts.append(_table(rows, ["setting", "value"], cls="kv"))
+    kern = summary["kernel_after_warmup"] or {}
+    if kern:
+        parts.append("<p>Kernel after warm-up (what the draws below used):</p>")
+        parts.append(_table([[str(k), _fmt(v)] for k, v in kern.items()], ["knob", "value"],
+                            cls="kv"))
     parts.append("</section>")
 
     # figures

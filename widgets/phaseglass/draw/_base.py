@@ -4,6 +4,7 @@ from dataclasses import fields
 
 import numpy as np
 from matplotlib.artist import Artist
+from matplotlib.axes import Axes as _Axes
 
 __all__ = ["Drawing", "as_chain_draws", "exclude_from_autoscale"]
 
@@ -26,14 +27,13 @@ class Drawing:
 
     @property
     def artists(self):
-        """Every artist this drawing owns, in field order."""
+        """Every artist this drawing made, in field order (not the Axes it drew into)."""
         out = []
         for f in fields(self):
             v = getattr(self, f.name)
-            if isinstance(v, Artist):
-                out.append(v)
-            elif isinstance(v, (list, tuple)):
-                out.extend(a for a in v if isinstance(a, Artist))
+            items = list(v.ravel()) if isinstance(v, np.ndarray) and v.dtype == object else (
+                list(v) if isinstance(v, (list, tuple)) else [v])
+            out.extend(a for a in items if isinstance(a, Artist) and not isinstance(a, _Axes))
         return out
 
     def update(self, *args, **kwargs):  # pragma: no cover - every subclass overrides it

@@ -31,6 +31,8 @@ class ChainRecording:
     accepted, divergent : ndarray of bool, shape (n_transitions,)
     names : tuple of str
     target : Target
+    metric : Metric or None
+        The kernel's metric (for the direction of the initial-momentum arrow).
     """
 
     positions: np.ndarray
@@ -39,6 +41,7 @@ class ChainRecording:
     divergent: np.ndarray
     names: tuple
     target: object
+    metric: object = None
 
     @property
     def n_transitions(self):
@@ -75,7 +78,8 @@ def record_chain(target, kernel, n_transitions=20, *, seed=None, initial=None):
     n_transitions = int(n_transitions)
     if n_transitions < 1:
         raise ValueError(f"`n_transitions` must be >= 1, got {n_transitions}")
-    sampler = Sampler(target, kernel.copy(), initial, n_chains=1, seed=seed)
+    kernel = kernel.copy()
+    sampler = Sampler(target, kernel, initial, n_chains=1, seed=seed)
     positions = [sampler.state.position[0].copy()]
     trajectories, accepted, divergent = [], [], []
     for _ in range(n_transitions):
@@ -88,7 +92,8 @@ def record_chain(target, kernel, n_transitions=20, *, seed=None, initial=None):
         positions.append(sampler.state.position[0].copy())
     return ChainRecording(positions=np.array(positions), trajectories=trajectories,
                           accepted=np.array(accepted), divergent=np.array(divergent),
-                          names=target.names, target=target)
+                          names=target.names, target=target,
+                          metric=getattr(kernel, "metric", None))
 
 
 def _frame_plan(recording, frames_per_transition):
@@ -137,7 +142,8 @@ def chain_frames(figure, recording, *, coords=(0, 1), frames_per_transition=3, l
         draw_log_density(ax, grid, wash=False, label="_contours")  # flat colours keep GIFs small
     (visited,) = ax.plot([], [], linestyle="none", marker="o", markersize=4,
                          color=style.OKABE_ITO["black"], alpha=0.55, label="draws so far", zorder=2)
-    drawing = draw_trajectory(ax, trajs[0], coords=coords, names=names) if trajs else None
+    drawing = (draw_trajectory(ax, trajs[0], coords=coords, names=names, metric=recording.metric)
+               if trajs else None)
     if drawing is not None:
         drawing.autoscale = False
         if recording.trajectories[0] is None:

@@ -364,7 +364,8 @@ def _values(data):
     return np.asarray(data, dtype=float).reshape(-1)
 
 
-def draw_ess_per_gradient(ax, data, labels=None, *, horizontal=None, ylabel="bulk ESS per gradient evaluation"):
+def draw_ess_per_gradient(ax, data, labels=None, *, horizontal=None,
+                          ylabel="bulk ESS per gradient evaluation"):
     """Draw effective sample size per gradient evaluation as bars.
 
     Parameters

@@ -104,9 +104,11 @@ class TrajectoryDrawing(Drawing):
         Dashed segment from the last safe step to the step that diverged, with
         an ``X`` at the latter; empty when there is no divergence.
     momentum : FancyArrowPatch
-        The initial momentum ``momenta[0, coords] * momentum_scale``, from the start.
+        The initial momentum, drawn as the velocity it starts, ``M^-1 p0``
+        (``p0`` with the identity metric), times ``momentum_scale``, from the start.
     coords : tuple of int
     momentum_scale : float
+    metric : Metric
     momentum_ends : ndarray, shape (2, 2)
         Tail and tip of the arrow in data coordinates.
     """
@@ -119,6 +121,7 @@ class TrajectoryDrawing(Drawing):
     momentum: FancyArrowPatch
     coords: tuple
     momentum_scale: float
+    metric: object = None
     momentum_ends: np.ndarray = None
 
     def update(self, trajectory, accepted=None, *, chain=0, upto=None):
@@ -145,7 +148,7 @@ class TrajectoryDrawing(Drawing):
         self.end.set_data(end[:, 0], end[:, 1])
         _end_style(self.end, accepted if finished else None)
         p0 = traj.positions[0, list(self.coords)]
-        v0 = traj.momenta[0, list(self.coords)] * self.momentum_scale
+        v0 = self.metric.velocity(traj.momenta[0])[list(self.coords)] * self.momentum_scale
         self.start.set_data([p0[0]], [p0[1]])
         self.momentum_ends = np.array([p0, p0 + v0])
         self.momentum.set_positions(tuple(p0), tuple(p0 + v0))
@@ -154,7 +157,7 @@ class TrajectoryDrawing(Drawing):
 
 
 def draw_trajectory(ax, trajectory, *, coords=(0, 1), accepted=None, chain=0, upto=None,
-                    momentum_scale=None, names=None):
+                    momentum_scale=None, metric=None, names=None):
     """Draw a leapfrog trajectory through two coordinates.
 
     Parameters
@@ -172,8 +175,11 @@ def draw_trajectory(ax, trajectory, *, coords=(0, 1), accepted=None, chain=0, up
     upto : int, optional
         Show leapfrog steps ``0..upto`` only.
     momentum_scale : float, optional
-        Arrow length per unit of momentum. Default ``step_size * max(n_steps / 4, 2)``:
+        Arrow length per unit of velocity. Default ``step_size * max(n_steps / 4, 2)``:
         about the distance covered in a quarter of the integration time.
+    metric : Metric or array, optional
+        The kernel's metric (``kernel.metric``), so the arrow points where the
+        trajectory starts to move (``M^-1 p0``); identity by default.
     names : sequence of str, optional
         Coordinate names (all of them); label the axes and resolve ``coords``.
 
@@ -192,10 +198,12 @@ def draw_trajectory(ax, trajectory, *, coords=(0, 1), accepted=None, chain=0, up
     >>> d.path.get_xydata().shape
     (13, 2)
     """
+    from phaseglass.core.metric import as_metric
     from phaseglass.core.slices import resolve_coords
 
     traj = one_chain(trajectory, chain)
     coords = resolve_coords(coords, names, traj.positions.shape[1])
+    metric = as_metric(metric, traj.positions.shape[1])
     if momentum_scale is None:
         momentum_scale = float(traj.step_size) * max(traj.n_steps / 4.0, 2.0)
     style.dress(ax)
@@ -216,7 +224,8 @@ def draw_trajectory(ax, trajectory, *, coords=(0, 1), accepted=None, chain=0, up
         ax.set_xlabel(f"x[{coords[0]}] (sampler's scale)")
         ax.set_ylabel(f"x[{coords[1]}] (sampler's scale)")
     d = TrajectoryDrawing(ax=ax, path=path, start=start, end=end, divergent=div,
-                          momentum=arrow, coords=coords, momentum_scale=float(momentum_scale))
+                          momentum=arrow, coords=coords, momentum_scale=float(momentum_scale),
+                          metric=metric)
     return d.update(traj, accepted, upto=upto)
 
 
@@ -271,6 +280,12 @@ class EnergyErrorDrawing(Drawing):
     accept_line: Line2D
     twin: Axes
     scale: str
+
+    def remove(self):
+        """Take the artists off, and the secondary Axes too."""
+        super().remove()
+        if self.twin is not None:
+            self.twin.remove()
 
     def update(self, trajectory, *, chain=0, upto=None):
         """Show another trajectory's energy error with the same artists."""
