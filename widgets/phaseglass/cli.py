@@ -295,9 +295,22 @@ def _run_report(args):
 
 # ------------------------------------------------------------------ subcommands
 
+def _add_demo_arguments(p):
+    from .launch import add_demo_arguments
+
+    add_demo_arguments(p)
+
+
+def _run_demo(args):
+    from .launch import run_demo
+
+    return run_demo(args, usage_error=UsageError)
+
+
 #: name -> (help line, add_arguments(parser), run(args) -> exit code).
-#: Add a subcommand here, e.g. "demo": ("open a demo ...", _add_demo_arguments, _run_demo).
 SUBCOMMANDS = {
+    "demo": ("copy the tour notebook into a working folder and open it in JupyterLab",
+             _add_demo_arguments, _run_demo),
     "report": ("run a sampler and write figures, summary.json and a self-contained report.html",
                _add_report_arguments, _run_report),
 }
