@@ -122,3 +122,11 @@ def test_report_needs_target_and_kernel(tmp_path):
     run.target = None
     with pytest.raises(ValueError, match="target and kernel"):
         write_report(tmp_path, run)
+
+
+def test_gibbs_report_shows_paths_and_spread(tmp_path):
+    run = pg.sample(pg.demos.correlated_gaussian(), pg.Gibbs(shared_stream=True), n_draws=40,
+                    n_chains=3, seed=2)
+    files = write_report(tmp_path, run, dpi=30)
+    assert "gibbs" in files.figures and "uniforms" not in files.figures
+    assert "trajectory" not in files.figures and "ess_per_gradient" not in files.figures

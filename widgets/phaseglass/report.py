@@ -149,7 +149,7 @@ def _figure_uniforms(run):
     n = min(run.n_draws, 300)
     fig = style.new_figure(10.0, 3.6)
     ax = fig.add_subplot()
-    u = run.u[0, :n] if run.u.ndim == 2 else run.u[0, :n, 0]  # Gibbs: the first coordinate's
+    u = run.u[0, :n]
     prob = None if run.accept_prob is None else run.accept_prob[0, :n]
     draw_uniform_sequence(ax, u, run.accepted[0, :n], prob)
     ax.set_xlabel(f"iteration (chain 0, first {n} draws)")
@@ -387,11 +387,14 @@ def write_report(out_dir, run, *, settings=None, title=None, coords=None, grid=T
     else:
         notes.append("This kernel makes no leapfrog trajectories, so the trajectory and "
                      "energy-error views are left out.")
-    if run.u is not None and run.accepted is not None and run.u.ndim >= 2 and run.n_draws:
+    if run.u is not None and run.accepted is not None and run.u.ndim == 2 and run.n_draws:
         keep("uniforms", _figure_uniforms(run),
              "The accept/reject uniform u of chain 0 per iteration: hollow circles are "
              "rejections, the step line the acceptance probability (u above it means rejection). "
              "A drifting uniform makes rejections come in runs.")
+    elif run.u is not None and run.u.ndim == 3:
+        notes.append("Gibbs uniforms drive inverse CDFs rather than accept/reject decisions, "
+                     "so the uniform-sequence view is left out.")
     shown = list(dict.fromkeys((list(coords) if coords else []) + list(range(run.dim))))
     keep("traces", _figure_traces(run, shown),
          "Trace of each chain for up to four coordinates; X marks a divergent transition.")

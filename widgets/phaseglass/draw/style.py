@@ -74,7 +74,7 @@ DIVERGENT = dict(color=_C["vermillion"], marker="X", linestyle="--", linewidth=1
                  markersize=9, markerfacecolor=_C["vermillion"], markeredgecolor="white",
                  markeredgewidth=0.6)
 MOMENTUM = dict(color=_C["reddish_purple"])
-ACCEPT_PROB = dict(color=_C["blue"], linestyle="-", linewidth=1.3, drawstyle="steps-mid")
+ACCEPT_PROB = dict(color=_C["blue"], linestyle="-", linewidth=1.0, drawstyle="steps-mid")
 THRESHOLD = dict(color="#666666", linestyle="-.", linewidth=1.1)
 REFERENCE = dict(color="#888888", linestyle=":", linewidth=1.1)
 CONTOUR = dict(colors="#7D8A96", linewidths=0.8)
