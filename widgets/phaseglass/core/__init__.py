@@ -12,6 +12,7 @@ from .leapfrog import Trajectory, leapfrog, leapfrog_step
 from .metric import Metric
 from .run import CAUTION, Digest, Run
 from .sampling import Sampler, sample
+from .slices import choose_limits, log_density_grid, resolve_coords
 from .streams import Streams
 from .target import GradientCheck, Target
 from .uniforms import DriftingUniform, FreshUniform
@@ -23,4 +24,5 @@ __all__ = [
     "Sampler", "sample", "Run", "Digest", "CAUTION", "Streams",
     "DualAveraging", "estimate_metric",
     "ess", "rhat", "mcse", "autocorrelation", "ebfmi", "demos",
+    "log_density_grid", "choose_limits", "resolve_coords",
 ]
