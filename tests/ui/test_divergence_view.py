@@ -1,0 +1,229 @@
+"""DivergenceView, headless: list, select, pick and replay divergent transitions."""
+
+import asyncio
+import json
+
+import numpy as np
+import pytest
+import traitlets
+from matplotlib.backend_bases import MouseEvent
+
+import phaseglass as pg
+from phaseglass.ui.divergence_view import DivergenceView
+
+FUNNEL_SETTINGS = dict(n_draws=300, n_chains=2, warmup=0, seed=1)
+
+
+@pytest.fixture(scope="module")
+def funnel_run():
+    """Centred orchards at a fixed, moderate step size: the funnel makes HMC diverge."""
+    run = pg.sample(pg.demos.orchards("centred"), pg.HMC(0.4, 8), **FUNNEL_SETTINGS)
+    assert run.n_divergent >= 5
+    return run
+
+
+@pytest.fixture
+def view(funnel_run):
+    return DivergenceView(funnel_run, coords=("log_tau", "effect_1"))
+
+
+def xy(line):
+    return np.asarray(line.get_xydata(), dtype=float).reshape(-1, 2)
+
+
+# ----------------------------------------------------------------- listing
+def test_lists_every_divergence_of_the_run(view, funnel_run):
+    run = funnel_run
+    assert len(view.divergences) == run.n_divergent == len(run.divergences)
+    for c, t, tr in view.divergences:
+        assert run.divergent[c, t] and tr.divergent
+    assert [t for _, t, _ in view.divergences] == sorted(t for _, t, _ in view.divergences)
+    assert len(view._pick_list.options) == run.n_divergent
+    assert f"{run.n_divergent} divergent transitions of 600" in view._readout.value
+    assert "never prove convergence" in view._readout.value
+    # the scatter shows every draw; the X markers sit on the divergent ones
+    c, t = np.nonzero(run.divergent)
+    np.testing.assert_allclose(xy(view._pair.divergent), run.draws[c, t][:, [1, 2]])
+    assert len(xy(view._pair.points)) == run.n_chains * run.n_draws - run.n_divergent
+    assert view.selected == 0  # the first one is shown at once
+
+
+@pytest.mark.parametrize("index", [0, 3, -1])
+def test_selected_trajectory_runs_from_the_previous_draw_to_where_it_diverged(view, funnel_run,
+                                                                             index):
+    index %= len(view.divergences)
+    view.select(index)
+    c, t, tr = view.divergences[index]
+    assert view.trajectory is tr and view.selected == index
+    k = tr.divergence_step
+    assert view.replay_step == k
+    cols = [1, 2]
+    # it starts at the draw before the divergent transition (which stayed there: rejected)
+    np.testing.assert_allclose(tr.positions[0], funnel_run.unconstrained[c, t])
+    if t > 0:
+        np.testing.assert_allclose(tr.positions[0], funnel_run.unconstrained[c, t - 1])
+    path = view._path
+    np.testing.assert_allclose(xy(path.path), tr.positions[:k, cols])
+    np.testing.assert_allclose(xy(path.start), tr.positions[:1, cols])
+    last = xy(path.divergent)[-1]  # the last point drawn is where it diverged
+    np.testing.assert_allclose(last, tr.positions[k, cols])
+    np.testing.assert_allclose(view._energy.error.get_ydata(), tr.energy_error[:k + 1])
+    assert view._energy.divergence.get_xdata()[0] == k
+    np.testing.assert_allclose(xy(view._ring), funnel_run.draws[c, t][None, cols])
+    readout = view._readout.value
+    assert f"showing {index + 1} of {len(view.divergences)}" in readout
+    assert f"diverged at leapfrog step {k} of {tr.n_steps}" in readout
+    assert f"{tr.energy_error[k]:+.4g}" in readout
+
+
+def test_step_replays_the_trajectory_one_leapfrog_step_at_a_time(view):
+    view.select(1)
+    tr = view.trajectory
+    k = tr.divergence_step
+    view.step()  # from the end it starts over
+    assert view.replay_step == 0
+    assert len(xy(view._path.path)) == 1 and len(xy(view._path.divergent)) == 0
+    view.step()
+    view.step(2)
+    assert view.replay_step == 3
+    np.testing.assert_allclose(xy(view._path.path), tr.positions[:4, [1, 2]])
+    np.testing.assert_allclose(view._energy.error.get_ydata(), tr.energy_error[:4])
+    assert "replay at step 3" in view._readout.value
+    view.step(100)
+    assert view.replay_step == k and len(xy(view._path.divergent)) == 2
+    view._play.value = 2  # the Play control and the slider are linked to replay_step
+    assert view.replay_step == 2 and view._step_slider.value == 2
+    assert view._play.max == k
+    with pytest.raises(traitlets.TraitError, match="`replay_step` must be in"):
+        view.replay_step = k + 1
+    view.render()  # a full draw, then a blitted replay step
+    view.step()
+    assert view.replay_step == 3
+
+
+def test_list_and_coordinates_controls(view, funnel_run):
+    view._pick_list.value = 2
+    assert view.selected == 2 and view.trajectory is view.divergences[2][2]
+    view._x_pick.value = 0  # mu against effect_1
+    assert view.coords == (0, 2)
+    tr = view.trajectory
+    k = tr.divergence_step
+    np.testing.assert_allclose(xy(view._path.path), tr.positions[:k, [0, 2]])
+    c, t = np.nonzero(funnel_run.divergent)
+    np.testing.assert_allclose(xy(view._pair.divergent), funnel_run.draws[c, t][:, [0, 2]])
+    assert view._ax_pair.get_xlabel() == "mu"
+
+
+# ------------------------------------------------------------------ picking
+def test_a_pick_on_a_divergent_marker_selects_that_divergence(view, funnel_run):
+    view.render()  # the transforms are settled after a draw
+    ax = view._ax_pair
+    points = [tuple(funnel_run.draws[c, t, [1, 2]]) for c, t, _ in view.divergences]
+    # a divergence whose marker sits alone (a stuck chain repeats its position)
+    j = next(i for i, p in enumerate(points) if points.count(p) == 1 and i != view.selected)
+    x, y = ax.transData.transform(points[j])
+    mouse = MouseEvent("button_press_event", view.figure.canvas, x, y, button=1)
+    view.figure.pick(mouse)  # matplotlib finds the artist and fires the pick event
+    assert view.selected == j
+    assert view.trajectory is view.divergences[j][2]
+    # a click far from every marker changes nothing
+    mouse = MouseEvent("button_press_event", view.figure.canvas, 1, 1, button=1)
+    view.figure.pick(mouse)
+    assert view.selected == j
+
+
+# ------------------------------------------------------------ no divergence
+def test_a_run_without_divergences_says_so(tmp_path):
+    run = pg.sample(pg.demos.correlated_gaussian(correlation=0.5), pg.HMC(0.2, 8), n_draws=60,
+                    n_chains=2, seed=2)
+    assert run.n_divergent == 0
+    view = DivergenceView(run)
+    assert view.divergences == [] and view.selected == -1 and view.trajectory is None
+    assert "no divergent transitions" in view._readout.value
+    assert "never prove convergence" in view._readout.value
+    view.step()
+    assert "no divergence" in view.status
+    view.select(0)
+    assert "no divergent transitions" in view.status
+    with pytest.raises(traitlets.TraitError, match="no divergence replays"):
+        view.selected = 0
+    assert view.save_png(tmp_path / "none.png").stat().st_size > 5_000
+
+
+# --------------------------------------------------------- settings, errors
+def test_settings_round_trip_on_a_run(view, funnel_run):
+    view.select(4)
+    view.step()
+    view.step(3)
+    view.coords = (0, 1)
+    settings = json.loads(json.dumps(view.settings))
+    assert settings == {"view": "DivergenceView", "coords": [0, 1], "selected": 4,
+                        "replay_step": 3}
+    again = DivergenceView.from_settings(funnel_run, settings)
+    assert again.settings == view.settings
+    assert again.trajectory is view.trajectory
+    np.testing.assert_allclose(xy(again._path.path), xy(view._path.path))
+
+
+def test_a_target_is_sampled_and_settings_reproduce_the_run():
+    target = pg.demos.orchards("centred")
+    view = DivergenceView(target, kernel=pg.HMC(0.35, 8), n_draws=60, warmup=30, seed=4,
+                          background=False)
+    assert view.run.n_draws == 60 and view.run.n_warmup == 30 and not view.sampling
+    settings = json.loads(json.dumps(view.settings))
+    assert settings["sampling"]["kernel"]["kernel"] == "HMC"
+    again = DivergenceView.from_settings(target, settings)
+    np.testing.assert_array_equal(again.run.draws, view.run.draws)
+    assert again.settings == view.settings
+
+
+def test_in_a_running_event_loop_a_target_is_sampled_in_chunks():
+    async def main():
+        view = DivergenceView(pg.demos.orchards("centred"), kernel=pg.HMC(0.35, 8), n_draws=40,
+                              warmup=20, chunk=15, seed=4)
+        assert view.sampling and view.run is None  # the cell returns at once
+        await view.wait()
+        return view
+
+    view = asyncio.run(main())
+    assert not view.sampling and view.run.n_draws == 40
+    assert "sampling" not in view._readout.value
+
+
+def test_errors_in_user_code_land_in_status(funnel_run):
+    orchards = pg.demos.orchards("centred")
+    broken = {"on": False}
+
+    def log_density(x):
+        if broken["on"]:
+            raise FloatingPointError("orchard data file missing")
+        return orchards.log_density(x)
+
+    flaky = pg.Target(log_density, dim=orchards.dim, vectorized=True, names=orchards.names,
+                      value_and_grad=lambda x: orchards.value_and_grad(x))
+    run = pg.sample(flaky, pg.HMC(0.4, 8), **FUNNEL_SETTINGS)
+    np.testing.assert_array_equal(run.draws, funnel_run.draws)
+    view = DivergenceView(run)
+    broken["on"] = True
+    view.select(2)  # the log-density slice through its start calls the user's function
+    assert view.status.startswith("error during selection")
+    assert "orchard data file missing" in view.status
+    broken["on"] = False
+    view.select(3)
+    assert view.status == "" and view.trajectory is view.divergences[3][2]
+    # sampling a Target whose log-density fails: the view is built and says why
+    broken["on"] = True
+    failed = DivergenceView(flaky, n_draws=10, warmup=5, background=False)
+    assert failed.status.startswith("error during warm-up") and failed.run is None
+
+
+def test_bad_input_is_rejected(funnel_run):
+    with pytest.raises(TypeError, match="must be a phaseglass Run"):
+        DivergenceView(np.zeros((2, 3, 4)))
+    with pytest.raises(ValueError, match="a Run already has its kernel"):
+        DivergenceView(funnel_run, kernel=pg.HMC(0.1, 5))
+    view = DivergenceView(funnel_run)
+    with pytest.raises(traitlets.TraitError, match=r"`selected` must be in range"):
+        view.selected = 99
+    with pytest.raises(ValueError, match="different coordinates"):
+        view.coords = (1, 1)

@@ -1,0 +1,637 @@
+"""DivergenceView: where a run's divergent transitions are, and a replay of each one."""
+
+import asyncio
+import html
+
+import ipywidgets as widgets
+import numpy as np
+import traitlets
+from matplotlib.ticker import MaxNLocator
+
+from ..core.kernels import HMC, Kernel, kernel_from_settings
+from ..core.run import CAUTION, Run
+from ..core.sampling import Sampler
+from ..core.slices import choose_limits, log_density_grid, resolve_coords
+from ..core.target import Target
+from ..draw import draw_energy_error, draw_log_density, draw_pair, draw_trajectory, legend
+from ..draw.style import key_handles, note
+from ._base import View, guarded
+
+__all__ = ["DivergenceView"]
+
+_PICK_RADIUS_PX = 6
+
+
+class DivergenceView(View):
+    """Pairwise scatter of a run's draws with divergent transitions marked; replay any of them.
+
+    Left: two coordinates of every draw (chains pooled, user's scale) with the
+    divergent transitions as ``X`` markers; the one shown is ringed. Click a
+    marker (a matplotlib pick event), choose it in the list, or call
+    ``select(index)`` to replay it. Middle: its leapfrog trajectory over the
+    log-density slice through its start (the draw before the divergence), up
+    to the step where the energy error left the threshold. Right: the energy
+    error per leapfrog step. ``step()``, the Play control or the step slider
+    replay the trajectory one leapfrog step at a time. A readout gives the
+    number of divergences, which one is shown, where it diverged and its
+    energy error.
+
+    Given a Target instead of a Run, the view samples it itself: a short
+    warm-up (run at once), then ``n_draws`` draws. In a notebook (an asyncio
+    event loop is running) the draws are made in chunks of ``chunk`` as
+    background tasks, so the notebook stays responsive and divergences appear
+    as they are found; ``await view.wait()`` waits for the end. Elsewhere (a
+    script, tests) they are made at once. ``background`` forces either.
+
+    Parameters
+    ----------
+    run_or_target : Run or Target
+        A Run keeps its ``divergences`` replays (``pg.sample`` and
+        ``Sampler`` record them); its ``target`` gives the log-density slices.
+    kernel : Kernel, optional
+        For a Target; default ``pg.HMC(0.1, 20)`` (copied, then tuned by the warm-up).
+    coords : pair of int or str
+    n_draws, n_chains, warmup, seed : sampling settings for a Target.
+    chunk : int
+        Draws per chunk when sampling in the background.
+    background : bool, optional
+        Sample in chunks on the running event loop (default: when one is running).
+
+    Attributes
+    ----------
+    run : Run
+    divergences : list of (chain, draw, Trajectory)
+        The divergent transitions that have replays, in the order they happened;
+        ``draw`` indexes ``run.draws`` (the trajectory starts at the draw
+        before, on the sampler's scale).
+    trajectory : Trajectory or None
+        The divergence shown.
+    figure : matplotlib.figure.Figure
+
+    Examples
+    --------
+    >>> import phaseglass as pg
+    >>> run = pg.sample(pg.demos.orchards("centred"), pg.HMC(0.4, 8), n_draws=300,
+    ...                 n_chains=2, seed=1)
+    >>> view = pg.DivergenceView(run, coords=("log_tau", "effect_1"))
+    >>> len(view.divergences) == run.n_divergent
+    True
+    >>> view.select(2)
+    >>> view.step()          # the replay starts over at the start point
+    >>> view.replay_step
+    0
+    """
+
+    coords = traitlets.Tuple(traitlets.Int(), traitlets.Int(),
+                             help="Indices of the two coordinates shown.").tag(setting=True)
+    selected = traitlets.Int(
+        -1, help="Index in `divergences` of the divergence shown (-1: none).").tag(setting=True)
+    replay_step = traitlets.Int(
+        0, help="Leapfrog steps of the shown trajectory drawn (0 .. the step that diverged)."
+    ).tag(setting=True)
+
+    def __init__(self, run_or_target, *, kernel=None, coords=(0, 1), n_draws=300, n_chains=2,
+                 warmup=200, seed=0, chunk=50, background=None):
+        if isinstance(run_or_target, Run):
+            run, target = run_or_target, run_or_target.target
+        elif isinstance(run_or_target, Target):
+            run, target = None, run_or_target
+        else:
+            raise TypeError(
+                "`run_or_target` must be a phaseglass Run (from pg.sample) or Target, got "
+                f"{type(run_or_target).__name__}"
+            )
+        if kernel is not None and not isinstance(kernel, Kernel):
+            raise TypeError(f"`kernel` must be a phaseglass kernel such as pg.HMC(0.1, 20), "
+                            f"got {type(kernel).__name__}")
+        if run is not None and kernel is not None:
+            raise ValueError("`kernel` is for sampling a Target; a Run already has its kernel")
+        names = run.names if run is not None else target.names
+        dim = len(names)
+        if dim < 2:
+            raise ValueError("the run must have dim >= 2 for a pairwise view")
+        self.target = target
+        self.names = tuple(names)
+        super().__init__(figsize=(12.5, 4.6))
+        self.divergences = []
+        self.trajectory = None
+        self._marker_index = np.zeros(0, dtype=int)
+        self._syncing = False
+        self._applying = False
+        self._built = False
+        self._grid_key = None
+        self.grid_evaluations = 0
+        self._path = self._energy = self._density = None
+        self._sampler = None
+        self._run = run
+        self._task = None
+        self._remaining = 0
+        self._sampling_settings = None
+        self.coords = resolve_coords(coords, self.names, dim)
+        self._build_controls()
+        self._build_figure()
+        self._built = True
+        if run is None:
+            self._start_sampling(target, kernel, n_draws, n_chains, warmup, seed, chunk, background)
+        else:
+            self._refresh_run()
+
+    # ------------------------------------------------------------ validation
+    @traitlets.validate("coords")
+    def _check_coords(self, proposal):
+        return resolve_coords(tuple(proposal["value"]), self.names, len(self.names))
+
+    @traitlets.validate("selected")
+    def _check_selected(self, proposal):
+        v = proposal["value"]
+        n = len(self.divergences)
+        if n == 0 and v != -1:
+            raise traitlets.TraitError(f"`selected` must be -1: this run has no divergence replays, got {v}")
+        if n and not 0 <= v < n:
+            raise traitlets.TraitError(f"`selected` must be in range({n}), got {v}")
+        return v
+
+    @traitlets.validate("replay_step")
+    def _check_replay(self, proposal):
+        v = proposal["value"]
+        end = self._end()
+        if not 0 <= v <= end:
+            raise traitlets.TraitError(f"`replay_step` must be in [0, {end}], got {v}")
+        return v
+
+    def _end(self):
+        tr = self.trajectory
+        if tr is None:
+            return 0
+        return int(tr.divergence_step) if tr.divergent else int(tr.n_steps)
+
+    # ------------------------------------------------------------- sampling
+    def _start_sampling(self, target, kernel, n_draws, n_chains, warmup, seed, chunk, background):
+        kernel = HMC(0.1, 20) if kernel is None else kernel
+        self._sampling_settings = {"n_draws": int(n_draws), "n_chains": int(n_chains),
+                                   "warmup": int(warmup), "seed": seed, "chunk": int(chunk),
+                                   "kernel": kernel.settings()}
+        if int(chunk) < 1:
+            raise ValueError(f"`chunk` must be >= 1, got {chunk}")
+        self.chunk = int(chunk)
+        self._remaining = int(n_draws)
+        if not self._warm_up(target, kernel.copy(), n_chains, warmup, seed):
+            return
+        if background is None:
+            try:
+                asyncio.get_running_loop()
+                background = True
+            except RuntimeError:
+                background = False
+        if background:
+            self._task = asyncio.ensure_future(self._sample_in_chunks())
+        else:
+            self.sample_more(self._remaining)
+
+    @guarded("warm-up")
+    def _warm_up(self, target, kernel, n_chains, warmup, seed):
+        self.status = f"warming up ({warmup} transitions) ..."
+        self._sampler = Sampler(target, kernel, n_chains=n_chains, seed=seed)
+        self._history = self._sampler.warm_up(warmup)
+        self._warmup = int(warmup)
+        self.status = ""
+        return True
+
+    async def _sample_in_chunks(self):
+        while self._remaining > 0 and self._sampler is not None:
+            if not self.sample_more(self.chunk):
+                break
+            await asyncio.sleep(0.01)  # let the front end's messages through
+
+    async def wait(self):
+        """Wait until background sampling has finished (``await view.wait()``)."""
+        if self._task is not None:
+            await self._task
+
+    @property
+    def sampling(self):
+        """Whether draws are still being made in the background."""
+        return self._task is not None and not self._task.done()
+
+    @guarded("sampling")
+    def sample_more(self, n):
+        """Make up to ``n`` more of the requested draws (a Target's view only); True if any."""
+        if self._sampler is None:
+            raise RuntimeError("this view shows a given Run; there is nothing to sample")
+        n = min(int(n), self._remaining)
+        if n <= 0:
+            return False
+        self._sampler.step(n)
+        self._remaining -= n
+        run = self._sampler.run
+        run.n_warmup = self._warmup
+        run.warmup_history = self._history
+        self._run = run
+        self._refresh_run()
+        return True
+
+    @property
+    def run(self):
+        """The Run shown (for a Target, everything sampled so far)."""
+        return self._run
+
+    # -------------------------------------------------------------- controls
+    def _build_controls(self):
+        lay = widgets.Layout
+        self._pick_list = widgets.Dropdown(options=[("no divergences", -1)], value=-1,
+                                           description="divergence", layout=lay(width="340px"))
+        self._pick_list.add_class("pg-divergence-pick")
+        self._pick_list.observe(self._on_list, "value")
+        options = [(n, i) for i, n in enumerate(self.names)]
+        self._x_pick = widgets.Dropdown(options=options, value=self.coords[0], description="x",
+                                        layout=lay(width="200px"))
+        self._y_pick = widgets.Dropdown(options=options, value=self.coords[1], description="y",
+                                        layout=lay(width="200px"))
+        self._x_pick.observe(lambda ch: self._pick_coord(0, ch["new"]), "value")
+        self._y_pick.observe(lambda ch: self._pick_coord(1, ch["new"]), "value")
+        self._play = widgets.Play(value=0, min=0, max=0, step=1, interval=250, show_repeat=False,
+                                  description="replay")
+        self._play.add_class("pg-replay-play")
+        self._step_slider = widgets.IntSlider(value=0, min=0, max=0, description="leapfrog step",
+                                              style={"description_width": "initial"})
+        self._step_slider.add_class("pg-replay-step")
+        for control in (self._play, self._step_slider):
+            traitlets.link((control, "value"), (self, "replay_step"))
+        self._step_button = widgets.Button(description="step", icon="step-forward",
+                                           layout=lay(width="90px"))
+        self._step_button.add_class("pg-step")
+        self._step_button.on_click(lambda _: self.step())
+        self._readout = widgets.HTML()
+        self._readout.add_class("pg-divergence-readout")
+        self.children = [
+            widgets.HBox([self._pick_list, self._x_pick, self._y_pick]),
+            widgets.HBox([self._play, self._step_button, self._step_slider]),
+            self.figure.canvas, self._readout, self._status_html,
+        ]
+
+    @guarded("coordinate change")
+    def _pick_coord(self, axis, index):
+        c = list(self.coords)
+        if c[axis] == index:
+            return
+        c[axis] = index
+        if c[0] == c[1]:
+            self.status = "x and y must be different coordinates"
+            (self._x_pick if axis == 0 else self._y_pick).value = self.coords[axis]
+            return
+        self.coords = tuple(c)
+
+    def _on_list(self, change):
+        if self._syncing or change["new"] == self.selected:
+            return
+        self.select(change["new"])
+
+    # ---------------------------------------------------------------- figure
+    def _build_figure(self):
+        fig = self.figure
+        self._ax_pair, self._ax, self._ax_err = fig.subplots(1, 3, width_ratios=[1.0, 1.0, 0.95])
+        empty = np.zeros((1, 0, len(self.names)))
+        self._pair = draw_pair(self._ax_pair, empty, self.coords, names=self.names, markersize=2.5)
+        self._pair.divergent.set_picker(True)
+        self._pair.divergent.set_pickradius(_PICK_RADIUS_PX)
+        (self._ring,) = self._ax_pair.plot([], [], linestyle="none", marker="o", markersize=15,
+                                           markerfacecolor="none", markeredgecolor="black",
+                                           markeredgewidth=1.6, zorder=6, label="shown below")
+        self._ax_pair.set_title("draws; click a divergence to replay it", loc="left", fontsize=9)
+        # until there is a divergence to replay, the replay panels are a message
+        self._ax.set_axis_off()
+        self._note = self._ax.text(0.5, 0.55, "no divergence to replay", transform=self._ax.transAxes,
+                                   ha="center", va="center", fontsize=10, color="#444444")
+        self._ax_err.set_visible(False)
+        fig.canvas.mpl_connect("pick_event", self._on_pick)
+
+    def _pair_legend(self):
+        p = self._pair
+        handles = [p.points, p.divergent, self._ring]
+        labels = ["draws (chains pooled)", "divergent transition", "replayed divergence"]
+        legend(self._ax_pair, loc="upper center", bbox_to_anchor=(0.5, -0.15), ncol=2,
+               handles=handles, labels=labels, fontsize=7, markerscale=1.0)
+
+    def _make_replay_drawings(self, tr):
+        """Create the trajectory, density and energy-error artists once (first selection)."""
+        self._ax.set_axis_on()
+        self._ax.xaxis.set_major_locator(MaxNLocator(6))
+        self._ax.yaxis.set_major_locator(MaxNLocator(6))
+        self._note.set_visible(False)
+        self._ax_err.set_visible(True)
+        xlim, ylim = self._trajectory_limits(tr)
+        grid = self._grid(tr, xlim, ylim)
+        if grid is not None:
+            self._density = draw_log_density(self._ax, grid, names=self._axis_names())
+        self._path = draw_trajectory(self._ax, tr, coords=self.coords, accepted=False,
+                                     names=self._axis_names_all())
+        self._path.autoscale = False
+        self._energy = draw_energy_error(self._ax_err, tr)
+        self._ax_err.xaxis.set_major_locator(MaxNLocator(8, integer=True))
+        self._offview = note(self._ax, "", loc="lower right")
+        p = self._path
+        handles = ([self._density.contours] if self._density is not None else []) + [
+            p.path, p.start, p.momentum] + key_handles("divergent")
+        legend(self._ax, loc="upper center", bbox_to_anchor=(0.5, -0.15), ncol=2, handles=handles,
+               labels=[h.get_label() for h in handles], fontsize=7)
+        self._ax_err.legend(loc="lower left", fontsize=7)
+        e = self._energy
+        self.set_dynamic([p.path, p.start, p.end, p.divergent, p.momentum, e.error, e.divergence,
+                          e.verdict, self._offview])
+
+    def _axis_names_all(self):
+        bounded = self.target is not None and self.target.bounded
+        suffix = " (sampler's scale)" if bounded else ""
+        return tuple(n + suffix for n in self.names)
+
+    def _axis_names(self):
+        names = self._axis_names_all()
+        return names[self.coords[0]], names[self.coords[1]]
+
+    def _trajectory_limits(self, tr):
+        """Limits that show the trajectory up to the step that diverged (when not far off)."""
+        c = list(self.coords)
+        pos = tr.positions[:, c]
+        k = tr.divergence_step if tr.divergent else tr.n_steps
+        safe = pos[:k] if tr.divergent else pos
+        safe = safe[np.all(np.isfinite(safe), axis=1)]
+        pts = safe
+        tip = pos[k] if tr.divergent else None
+        if tip is not None and np.all(np.isfinite(tip)) and len(safe):
+            span = np.ptp(safe, axis=0).max() if len(safe) > 1 else 1.0
+            # a tip far off would squash the trajectory into a dot; it is then drawn clipped
+            if np.max(np.abs(tip - safe[-1])) <= 5.0 * max(span, 1e-6):
+                pts = np.vstack([safe, tip])
+        xlim, ylim = choose_limits(pts, coords=(0, 1), pad=0.2)
+        return xlim, ylim
+
+    def _grid(self, tr, xlim, ylim):
+        """The log-density slice through the trajectory's start; once per divergence and region."""
+        if self.target is None:
+            return None
+        key = (self.selected, self.coords, xlim, ylim)
+        if key != self._grid_key:
+            self._grid_cache = log_density_grid(self.target, self.coords, tr.positions[0], xlim,
+                                                ylim, n=70)
+            self._grid_key = key
+            self.grid_evaluations += 1
+        return self._grid_cache
+
+    # ---------------------------------------------------------------- the run
+    def _refresh_run(self):
+        """Re-read the run: scatter, list of divergences, readout."""
+        run = self._run
+        if run is None:
+            return
+        self._pair.update(run)
+        self._collect_divergences(run)
+        with self._sync():
+            labels = [(self._label(i), i) for i in range(len(self.divergences))]
+            self._pick_list.options = labels or [("no divergences", -1)]
+            if labels:
+                self._pick_list.value = self.selected if self.selected >= 0 else 0
+            else:
+                self._pick_list.value = -1
+        self._pair_legend()
+        if not self.divergences:
+            self._note.set_text(
+                "no divergent transition found yet ..." if self._remaining > 0 else
+                "no divergent transitions in this run:\nnothing to replay\n\n"
+                "(no divergence is no proof that the sampler\nhas explored the whole posterior)")
+        if self.divergences and self.selected < 0:
+            self.select(0)
+        else:
+            self._place_ring()
+            self._write_readout()
+            self.redraw(full=True)
+
+    def _collect_divergences(self, run):
+        first, n = run.first_draw, run.n_draws
+        # in the order they happened, so indices stay put while more draws come in
+        kept = sorted(((c, d - first, tr) for c, d, tr in run.divergences if first <= d < first + n),
+                      key=lambda e: (e[1], e[0]))
+        self.divergences = kept
+        where = {(c, t): i for i, (c, t, _) in enumerate(kept)}
+        if run.divergent is not None and run.n_draws:
+            chains, draws = np.nonzero(np.asarray(run.divergent, dtype=bool))  # chain-major, as drawn
+            self._marker_index = np.array([where.get((int(c), int(t)), -1)
+                                           for c, t in zip(chains, draws)], dtype=int)
+        else:
+            self._marker_index = np.zeros(0, dtype=int)
+
+    def _label(self, i):
+        c, t, tr = self.divergences[i]
+        return f"{i + 1}: chain {c}, draw {t} (step {tr.divergence_step} of {tr.n_steps})"
+
+    class _Sync:
+        def __init__(self, view):
+            self.view = view
+
+        def __enter__(self):
+            self.view._syncing = True
+
+        def __exit__(self, *exc):
+            self.view._syncing = False
+
+    def _sync(self):
+        return self._Sync(self)
+
+    # -------------------------------------------------------------- selection
+    def select(self, index):
+        """Show divergence ``index`` (of ``divergences``) in full; its replay restarts from there."""
+        if not self.divergences:
+            self.status = "this run has no divergent transitions to replay"
+            return
+        if index == self.selected:
+            self._show_selected()
+        else:
+            self.selected = index
+
+    @traitlets.observe("selected")
+    def _on_selected(self, change):
+        if self._built and change["new"] >= 0:
+            self._show_selected()
+
+    @guarded("selection")
+    def _show_selected(self):
+        c, t, tr = self.divergences[self.selected]
+        self.trajectory = tr
+        end = self._end()
+        first = self._path is None
+        if first:
+            self._make_replay_drawings(tr)
+        with self._sync():
+            self._pick_list.value = self.selected
+        for control in (self._play, self._step_slider):
+            control.max = end
+        self._path.coords = tuple(self.coords)
+        xlim, ylim = self._trajectory_limits(tr)
+        grid = self._grid(tr, xlim, ylim)
+        if self._density is not None:
+            self._density.update(grid)
+        self._ax.set_xlim(xlim)
+        self._ax.set_ylim(ylim)
+        names = self._axis_names()
+        self._ax.set_xlabel(names[0])
+        self._ax.set_ylabel(names[1])
+        self._ax.set_title(f"replay of chain {c}, draw {t} (slice through its start)", loc="left",
+                           fontsize=9)
+        if self.replay_step != end:
+            self.replay_step = end  # the observer draws it
+        else:
+            self._draw_replay()
+        self._place_ring()
+        self._write_readout()
+        self.status = ""
+        self.redraw(full=True)
+
+    def _place_ring(self):
+        if self.selected < 0 or not self.divergences or self._run is None:
+            self._ring.set_data([], [])
+            return
+        c, t, _ = self.divergences[self.selected]
+        xy = self._run.draws[c, t, list(self.coords)]
+        self._ring.set_data([xy[0]], [xy[1]])
+
+    @guarded("pick")
+    def _on_pick(self, event):
+        """Select the divergence whose marker was picked (nearest to the click)."""
+        if event.artist is not self._pair.divergent or not len(event.ind):
+            return
+        ind = np.asarray(event.ind, dtype=int)
+        mouse = getattr(event, "mouseevent", None)
+        if mouse is not None and mouse.x is not None and len(ind) > 1:
+            xy = self._pair.divergent.get_xydata()[ind]
+            px = self._ax_pair.transData.transform(xy)
+            ind = ind[[int(np.argmin(np.hypot(px[:, 0] - mouse.x, px[:, 1] - mouse.y)))]]
+        k = int(self._marker_index[ind[0]]) if ind[0] < len(self._marker_index) else -1
+        if k < 0:
+            self.status = "no replay was kept for that divergence (only the latest 500 are)"
+            return
+        self.select(k)
+
+    # ----------------------------------------------------------------- replay
+    def step(self, n=1):
+        """Advance the replay by ``n`` leapfrog steps; at the end it starts over at step 0."""
+        if self.trajectory is None:
+            self.status = "no divergence to replay"
+            return
+        end = self._end()
+        self.replay_step = 0 if self.replay_step >= end else min(self.replay_step + int(n), end)
+
+    @traitlets.observe("replay_step")
+    @guarded("replay")
+    def _on_replay(self, change):
+        if self._built and self.trajectory is not None:
+            self._draw_replay()
+            self._write_readout()
+            self.redraw()
+
+    @guarded("replay")
+    def _draw_replay(self):
+        upto = self.replay_step
+        tr = self.trajectory
+        self._path.update(tr, False, upto=upto)
+        self._energy.update(tr, upto=upto)
+        text = ""
+        if tr.divergent and upto >= tr.divergence_step:
+            tip = tr.positions[tr.divergence_step, list(self.coords)]
+            (x0, x1), (y0, y1) = self._ax.get_xlim(), self._ax.get_ylim()
+            if not np.all(np.isfinite(tip)):
+                text = "the diverging step reached non-finite values"
+            elif not (x0 <= tip[0] <= x1 and y0 <= tip[1] <= y1):
+                text = f"the diverging step leaves the view,\nto ({tip[0]:.3g}, {tip[1]:.3g})"
+        self._offview.set_text(text)
+
+    # ------------------------------------------------------------ coordinates
+    @traitlets.observe("coords")
+    def _on_coords(self, change):
+        if not self._built:
+            return
+        with self._sync():
+            self._x_pick.value, self._y_pick.value = self.coords
+        self._redo_coords()
+
+    @guarded("coordinate change")
+    def _redo_coords(self):
+        self._pair.coords = tuple(self.coords)
+        names = self.names
+        self._ax_pair.set_xlabel(names[self.coords[0]])
+        self._ax_pair.set_ylabel(names[self.coords[1]])
+        if self._run is not None:
+            self._pair.update(self._run)
+        if self.trajectory is not None:
+            step = self.replay_step
+            self._show_selected()
+            self.replay_step = step
+        else:
+            self._place_ring()
+            self.redraw(full=True)
+
+    # ---------------------------------------------------------------- readout
+    def _write_readout(self):
+        run = self._run
+        caution = f"<br><span style='font-size:85%;color:#555'>{html.escape(CAUTION)}</span>"
+        mono = "<span style='font-family:monospace'>{}</span>"
+        if run is None:
+            self._readout.value = mono.format("no draws yet") + caution
+            return
+        total = run.n_chains * run.n_draws
+        busy = (f" (sampling: {run.n_draws} of {run.n_draws + self._remaining} draws per chain)"
+                if self._remaining > 0 else "")
+        n_div = run.n_divergent
+        if n_div == 0:
+            text = (f"no divergent transitions in {run.n_chains} chains &times; {run.n_draws} "
+                    f"draws{busy}; nothing to replay")
+            self._readout.value = mono.format(text) + caution
+            return
+        parts = [f"{n_div} divergent transition{'s' if n_div != 1 else ''} of {total} "
+                 f"({n_div / max(total, 1):.1%}){busy}"]
+        if len(self.divergences) != n_div:
+            parts.append(f"{len(self.divergences)} with replays")
+        if self.trajectory is not None and self.selected >= 0:
+            c, t, tr = self.divergences[self.selected]
+            k = tr.divergence_step
+            dh = float(tr.energy_error[k])
+            dh_text = f"&Delta;H = {dh:+.4g}" if np.isfinite(dh) else "&Delta;H non-finite"
+            parts.append(f"showing {self.selected + 1} of {len(self.divergences)}: chain {c}, "
+                         f"draw {t}")
+            parts.append(f"diverged at leapfrog step {k} of {tr.n_steps} "
+                         f"(step size {float(tr.step_size):.3g}), {dh_text} "
+                         f"(threshold &plusmn;{tr.max_energy_error:g})")
+            parts.append(f"replay at step {self.replay_step}")
+        self._readout.value = mono.format(" | ".join(parts)) + caution
+
+    # ---------------------------------------------------------------- settings
+    def _extra_settings(self):
+        return {} if self._sampling_settings is None else {"sampling": self._sampling_settings}
+
+    def _extra_setting_names(self):
+        return ("sampling",)
+
+    def apply_settings(self, settings):
+        """Restore coordinates, the divergence shown and the replay position."""
+        s = dict(settings)
+        s.pop("sampling", None)  # used by from_settings; a built view keeps its draws
+        replay = s.pop("replay_step", None)
+        super().apply_settings(s)
+        if replay is not None and self.trajectory is not None:
+            self.replay_step = min(int(replay), self._end())
+        return self
+
+    @classmethod
+    def from_settings(cls, run_or_target, settings):
+        """Build a view with saved ``settings`` (from ``view.settings``).
+
+        For a Target, the saved sampling settings (draws, chains, warm-up, seed,
+        kernel) are used, so the same draws are made again (at once).
+        """
+        s = dict(settings)
+        kw = {"coords": tuple(s.get("coords", (0, 1)))}
+        sampling = s.get("sampling")
+        if isinstance(run_or_target, Target) and sampling is not None:
+            kw.update({k: sampling[k] for k in ("n_draws", "n_chains", "warmup", "seed", "chunk")})
+            kw["kernel"] = kernel_from_settings(sampling["kernel"])
+            kw["background"] = False
+        view = cls(run_or_target, **kw)
+        return view.apply_settings(settings)
