@@ -2,6 +2,8 @@
 update the artists created by ``phaseglass.draw`` in place."""
 
 from .chain_view import ChainView
+from .divergence_view import DivergenceView
+from .gibbs_view import ShiftGibbsView
 from .trajectory_view import TrajectoryView
 
-__all__ = ["TrajectoryView", "ChainView"]
+__all__ = ["TrajectoryView", "ChainView", "ShiftGibbsView", "DivergenceView"]
