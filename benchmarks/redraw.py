@@ -1,0 +1,145 @@
+"""Benchmark of the widgets' redraw: from a trait change to a finished canvas draw.
+
+Run with ``python benchmarks/redraw.py`` (``--quick`` for a short smoke run). It prints
+the machine and a markdown table of numbers measured in this one run; it is not a test
+and asserts nothing.
+
+Question: how long after ``view.step_size = x`` is the new frame ready to send, for a
+``TrajectoryView`` on the 2-D ``glaze_ridge`` demo with 100 leapfrog steps?
+
+* fast path: what the view does (recompute the trajectory, update the artists in place,
+  restore the cached background, draw the changed artists, hand the frame to ipympl).
+  Goal: median <= 30 ms.
+* naive full redraw: clear the Axes and re-plot everything, contours included
+  (``ax.clear()`` + ``draw_log_density(log_density_grid(...))`` + ``draw_trajectory`` +
+  ``draw_energy_error`` + ``canvas.draw()``). Goal: naive / fast >= 5.
+
+Both paths end in ipympl's ``refresh_all`` (the diff image handed to the comm). With no
+front end attached ipympl also PNG-encodes every frame into ``_data_url`` (for
+``nbconvert --execute``); a connected front end turns that off, so we set
+``canvas.syncing_data_url = False`` on both canvases to measure what a live notebook does.
+
+The two paths are timed interleaved, so a burst of load elsewhere hits them alike;
+medians are reported (the typical latency a user feels). Numbers are measured under
+whatever load the machine had at the time, printed with the load average.
+"""
+
+import os
+
+for _var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
+    os.environ.setdefault(_var, "1")  # before numpy is imported
+
+import argparse  # noqa: E402
+import platform  # noqa: E402
+import time  # noqa: E402
+
+import numpy as np  # noqa: E402
+
+import phaseglass as pg  # noqa: E402
+from phaseglass.core.slices import log_density_grid  # noqa: E402
+from phaseglass.draw import draw_energy_error, draw_log_density, draw_trajectory  # noqa: E402
+from phaseglass.ui._base import make_canvas_figure  # noqa: E402
+
+FAST_GOAL_MS = 30.0
+RATIO_GOAL = 5.0
+
+
+def machine():
+    nproc = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else os.cpu_count()
+    load = os.getloadavg() if hasattr(os, "getloadavg") else ("?", "?", "?")
+    import matplotlib
+    import ipympl
+
+    return {
+        "machine": f"{platform.machine()}, {os.cpu_count()} logical CPUs, nproc {nproc}",
+        "load": "{:.2f}, {:.2f}, {:.2f}".format(*load) if load[0] != "?" else "?",
+        "versions": (f"Python {platform.python_version()}, numpy {np.__version__}, "
+                     f"matplotlib {matplotlib.__version__}, ipympl {ipympl.__version__}"),
+    }
+
+
+def make_view(target, n_steps):
+    view = pg.TrajectoryView(target, step_size=0.02, n_steps=n_steps, seed=1)
+    view.figure.canvas.syncing_data_url = False  # as with a connected front end
+    view.render()  # the first full draw, which captures the background
+    return view
+
+
+def naive_redraw(fig, target, view):
+    """Everything from scratch, as a figure without cached artists would do it."""
+    ax, ax_err = fig.axes
+    ax.clear()
+    ax_err.clear()
+    grid = log_density_grid(target, view.coords, view.start, view.xlim, view.ylim, n=90)
+    draw_log_density(ax, grid, names=view.target.names)
+    tr = pg.leapfrog(target, view.start, view.momentum, view.step_size, view.n_steps)
+    draw_trajectory(ax, tr, coords=view.coords, names=view.target.names)
+    ax.set_xlim(view.xlim)
+    ax.set_ylim(view.ylim)
+    draw_energy_error(ax_err, tr)
+    fig.canvas.draw()
+
+
+def main():
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--quick", action="store_true", help="few repeats (smoke run)")
+    parser.add_argument("--repeats", type=int, default=None)
+    args = parser.parse_args()
+    repeats = args.repeats or (8 if args.quick else 60)
+    n_steps = 100
+
+    target = pg.demos.glaze_ridge()
+    view = make_view(target, n_steps)
+    fig = make_canvas_figure(tuple(view.figure.get_size_inches()))
+    fig.canvas.syncing_data_url = False
+    fig.subplots(1, 2, width_ratios=[1.15, 1.0])
+    naive_redraw(fig, target, view)  # warm caches (fonts, text layout) for both paths
+
+    base = view.step_size
+    values = base * (1.0 + 0.004 * np.arange(repeats + 1))  # small moves: no divergence flips
+    fast, naive, fast_cpu, naive_cpu = [], [], [], []
+    for k in range(repeats):
+        t0, c0 = time.perf_counter(), time.thread_time()
+        view.step_size = float(values[k + 1])
+        fast_cpu.append(time.thread_time() - c0)
+        fast.append(time.perf_counter() - t0)
+        t0, c0 = time.perf_counter(), time.thread_time()
+        naive_redraw(fig, target, view)
+        naive_cpu.append(time.thread_time() - c0)
+        naive.append(time.perf_counter() - t0)
+    if view.status:
+        raise SystemExit(f"the view reported a problem: {view.status}")
+    if getattr(view, "_background", None) is None:
+        raise SystemExit("the view fell back to full redraws; the fast path was not measured")
+
+    fast_ms, naive_ms = 1e3 * np.median(fast), 1e3 * np.median(naive)
+    fast_cpu_ms, naive_cpu_ms = 1e3 * np.median(fast_cpu), 1e3 * np.median(naive_cpu)
+    ratio, ratio_cpu = naive_ms / fast_ms, naive_cpu_ms / fast_cpu_ms
+    facts = machine()
+    print("# phaseglass redraw benchmark\n")
+    print(f"- machine: {facts['machine']}")
+    print(f"- load average at the end (1, 5, 15 min): {facts['load']}")
+    print(f"- {facts['versions']}")
+    print(f"- TrajectoryView on pg.demos.glaze_ridge(), {n_steps} leapfrog steps, "
+          f"{repeats} step-size changes, each path timed interleaved with the other")
+    print("- `canvas.syncing_data_url = False` on both canvases, as with a connected front end "
+          "(ipympl PNG-encodes every frame only when no front end is attached)")
+    print("- numbers were measured in this one run, under whatever load the machine had\n")
+    print("Wall time is what a user waits; CPU time of the drawing thread is what the redraw "
+          "costs, and other processes on a busy machine disturb it much less.\n")
+    print("| measure | wall median | wall p90 | CPU median | goal | met (wall / CPU) |")
+    print("|---|---|---|---|---|---|")
+    print(f"| trait change -> frame ready, fast path (ms) | {fast_ms:.1f} | "
+          f"{1e3 * np.quantile(fast, 0.9):.1f} | {fast_cpu_ms:.1f} | <= {FAST_GOAL_MS:g} | "
+          f"{_met(fast_ms <= FAST_GOAL_MS)} / {_met(fast_cpu_ms <= FAST_GOAL_MS)} |")
+    print(f"| naive full redraw (ms) | {naive_ms:.1f} | {1e3 * np.quantile(naive, 0.9):.1f} | "
+          f"{naive_cpu_ms:.1f} | | |")
+    print(f"| naive / fast | {ratio:.1f}x | | {ratio_cpu:.1f}x | >= {RATIO_GOAL:g}x | "
+          f"{_met(ratio >= RATIO_GOAL)} / {_met(ratio_cpu >= RATIO_GOAL)} |")
+
+
+def _met(ok):
+    return "yes" if ok else "no"
+
+if __name__ == "__main__":
+    main()
