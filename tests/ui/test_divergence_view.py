@@ -77,7 +77,10 @@ def test_selected_trajectory_runs_from_the_previous_draw_to_where_it_diverged(vi
 
 
 def test_step_replays_the_trajectory_one_leapfrog_step_at_a_time(view):
-    view.select(1)
+    # pick a divergence that happens late enough to replay a few steps before it
+    late = [i for i, (_, _, t) in enumerate(view.divergences) if t.divergence_step >= 4]
+    assert late, "the funnel run should have a divergence after step 4"
+    view.select(late[0])
     tr = view.trajectory
     k = tr.divergence_step
     view.step()  # from the end it starts over

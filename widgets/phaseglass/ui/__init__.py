@@ -5,5 +5,6 @@ from .chain_view import ChainView
 from .divergence_view import DivergenceView
 from .gibbs_view import ShiftGibbsView
 from .trajectory_view import TrajectoryView
+from .tuning_map import TuningMap
 
-__all__ = ["TrajectoryView", "ChainView", "ShiftGibbsView", "DivergenceView"]
+__all__ = ["TrajectoryView", "ChainView", "ShiftGibbsView", "DivergenceView", "TuningMap"]
