@@ -243,8 +243,9 @@ def _verdict(traj, upto):
                 "rejected, acceptance probability 0")
     final = err[upto]
     where = "at the end" if upto == traj.n_steps else f"at step {upto}"
+    # short lines: the title must fit over a narrow panel whatever the numbers
     return (f"\u0394H {where} = {final:.3g}\n"
-            f"acceptance probability min(1, e^(\u2212\u0394H)) = {float(_accept_prob(final)):.3f}")
+            f"acceptance probability {float(_accept_prob(final)):.3f}")
 
 
 @dataclass(repr=False, eq=False)
