@@ -30,10 +30,16 @@ def leapfrog_step(position, momentum, grad, step_size, velocity, value_and_grad)
     -------
     position, momentum, log_density, grad
     """
-    p_half = momentum + (0.5 * step_size) * grad
+    return _kick_drift_kick(position, momentum, grad, step_size, 0.5 * step_size, velocity,
+                            value_and_grad)
+
+
+def _kick_drift_kick(position, momentum, grad, step_size, half_step, velocity, value_and_grad):
+    """``leapfrog_step`` with ``half_step = 0.5 * step_size`` computed once by the caller."""
+    p_half = momentum + half_step * grad
     q_new = position + step_size * velocity(p_half)
     logp_new, grad_new = value_and_grad(q_new)
-    p_new = p_half + (0.5 * step_size) * grad_new
+    p_new = p_half + half_step * grad_new
     return q_new, p_new, logp_new, grad_new
 
 
@@ -57,7 +63,16 @@ def integrate(target, position, momentum, logp, grad, step_size, n_steps, metric
     rows still moving are evaluated, so gradient counts are honest per chain.
     """
     n, dim = position.shape
-    eps = np.broadcast_to(np.asarray(step_size, dtype=float), (n,)).reshape(n, 1)
+    eps = np.empty((n, 1))
+    eps[:, 0] = step_size  # a scalar or (n,)
+    half = 0.5 * eps
+    if n == 1 or np.ndim(step_size) == 0:
+        # one step size for every chain: the same products with a Python float, which
+        # numpy applies faster than a broadcast (n, 1) array
+        eps_all = float(np.ravel(step_size)[0])
+        half_all = 0.5 * eps_all
+    else:
+        eps_all, half_all = eps, half
     velocity = metric.velocity
     kinetic = metric.kinetic
     vg = target._value_and_grad_rows
@@ -65,7 +80,6 @@ def integrate(target, position, momentum, logp, grad, step_size, n_steps, metric
     q, p, lp, g = position, momentum, logp, grad
     h_end = h0.copy()
     divergence_step = np.full(n, -1)
-    n_grad = np.zeros(n, dtype=int)
     active = None  # None means every chain is still moving
     rec = None
     if record:
@@ -80,27 +94,37 @@ def integrate(target, position, momentum, logp, grad, step_size, n_steps, metric
     with np.errstate(all="ignore"):
         for k in range(1, n_steps + 1):
             if active is None:
-                qn, pn, lpn, gn = leapfrog_step(q, p, g, eps, velocity, vg)
+                qn, pn, lpn, gn = _kick_drift_kick(q, p, g, eps_all, half_all, velocity, vg)
                 idx = slice(None)
+                kn = kinetic(pn)
+                hn = kn - lpn
+                err = hn - h0
             else:
                 idx = np.flatnonzero(active)
                 if idx.size == 0:
                     break
-                qn, pn, lpn, gn = leapfrog_step(q[idx], p[idx], g[idx], eps[idx], velocity, vg)
-            kn = kinetic(pn)
-            hn = kn - lpn
-            err = hn - h0[idx]
-            n_grad[idx] += 1
+                qn, pn, lpn, gn = _kick_drift_kick(q[idx], p[idx], g[idx], eps[idx], half[idx],
+                                                   velocity, vg)
+                kn = kinetic(pn)
+                hn = kn - lpn
+                err = hn - h0[idx]
             if rec is not None:
                 rec["positions"][k, idx], rec["momenta"][k, idx] = qn, pn
                 rec["potential"][k, idx], rec["kinetic"][k, idx] = -lpn, kn
-            bad = ~(np.abs(err) <= max_energy_error) | ~np.isfinite(gn).all(axis=1)
-            if not bad.any():
+            # |err| <= max is False for NaN too. A non-finite gradient always shows up here:
+            # it makes the new momentum, hence the kinetic energy (a positive-definite form,
+            # so nothing cancels) and the energy error, non-finite.
+            if err.size == 1:
+                all_fine = abs(err[0]) <= max_energy_error  # scalar test: cheaper for one chain
+            else:
+                all_fine = (np.abs(err) <= max_energy_error).all()
+            if all_fine:
                 if active is None:
                     q, p, lp, g, h_end = qn, pn, lpn, gn, hn
                 else:
                     q[idx], p[idx], lp[idx], g[idx], h_end[idx] = qn, pn, lpn, gn, hn
                 continue
+            bad = ~(np.abs(err) <= max_energy_error)
             if active is None:
                 active = np.ones(n, dtype=bool)
                 q, p, lp, g = q.copy(), p.copy(), lp.copy(), g.copy()
@@ -115,7 +139,8 @@ def integrate(target, position, momentum, logp, grad, step_size, n_steps, metric
     out.h0, out.h_end = h0, h_end
     out.divergent = divergence_step >= 0
     out.divergence_step = divergence_step
-    out.n_grad = n_grad
+    # one gradient per step taken: a chain that stopped at step k evaluated k of them
+    out.n_grad = np.where(out.divergent, divergence_step, n_steps)
     out.record = rec
     return out
 

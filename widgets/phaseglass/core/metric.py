@@ -85,7 +85,7 @@ class Metric:
 
     def kinetic(self, p):
         """Kinetic energy ``0.5 p^T M^-1 p`` for momenta (..., dim) -> (...)."""
-        return 0.5 * np.sum(p * self.velocity(p), axis=-1)
+        return 0.5 * np.add.reduce(p * self.velocity(p), axis=-1)  # = np.sum, without its wrapper
 
     def momentum_from_normal(self, z):
         """Turn standard normals (..., dim) into momenta distributed N(0, M)."""

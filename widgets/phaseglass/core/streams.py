@@ -47,7 +47,16 @@ class Streams:
         self.shared = bool(shared)
         n_gen = 1 if self.shared else self.n_chains
         children = self.seed_sequence.spawn(n_gen)
-        self.generators = [np.random.Generator(np.random.PCG64(c)) for c in children]
+        # One generator per chain *and kind*: the block size below depends on n_chains,
+        # and refills of one shared generator would interleave normals and uniforms
+        # differently for different block sizes, so chain k's numbers would depend on
+        # how many chains run beside it. A single-kind stream is the same however it
+        # is chunked.
+        kinds = [c.spawn(2) for c in children]
+        self.generators = {
+            kind: [np.random.Generator(np.random.PCG64(pair[i])) for pair in kinds]
+            for i, kind in enumerate(("normal", "uniform"))
+        }
         self._block = max(64, min(4096, 2_000_000 // max(n_gen, 1)))
         self._buf = {"normal": np.empty((n_gen, 0)), "uniform": np.empty((n_gen, 0))}
         self._pos = {"normal": 0, "uniform": 0}
@@ -62,9 +71,9 @@ class Streams:
         if pos + count > buf.shape[1]:
             size = max(self._block, count)
             if kind == "normal":
-                fresh = np.stack([g.standard_normal(size) for g in self.generators])
+                fresh = np.stack([g.standard_normal(size) for g in self.generators[kind]])
             else:
-                fresh = np.stack([g.random(size) for g in self.generators])
+                fresh = np.stack([g.random(size) for g in self.generators[kind]])
             buf = np.concatenate([buf[:, pos:], fresh], axis=1)
             self._buf[kind], pos = buf, 0
         out = buf[:, pos:pos + count]

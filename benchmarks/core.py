@@ -1,0 +1,228 @@
+"""Benchmark of the numerical core: what our sampling machinery costs on top of the model.
+
+Run with ``python benchmarks/core.py`` (add ``--quick`` for a short smoke run). It
+prints the machine and a markdown table of ratios measured in this one run; it is
+not a test and asserts nothing.
+
+Three questions, each against a goal:
+
+1. Sampler overhead. Wall time of ``pg.sample(..., n_chains=1)`` divided by the time
+   of the same number of bare gradient evaluations (the target's own joint
+   value-and-gradient function called in a loop). Goal <= 1.25 wherever one gradient
+   costs >= 0.1 ms (we count late_returns in, the "~0.1 ms" case, even when it
+   measures a little less); for cheaper gradients the ratio says little, so we report
+   the fixed cost per leapfrog step in microseconds instead. The bare loop evaluates
+   the very points the sampler visited, since a gradient's cost depends on where it
+   is taken.
+2. Against a hand-written HMC loop: the ten lines of numpy a practitioner would write,
+   calling the same value-and-gradient function the same number of times. Goal <= 1.1.
+3. Batching: per-chain cost of 1000 chains in one batch against a loop of
+   single-chain runs, d = 10. Goal >= 50 times cheaper per chain.
+
+Each time is the best of several repeats (the minimum is the least noisy estimate of
+the cost on a shared machine). Ratios are given for wall time and, in parentheses,
+for process CPU time, which other processes on a busy machine disturb much less.
+BLAS runs single-threaded unless OPENBLAS_NUM_THREADS / OMP_NUM_THREADS are set:
+one chain's matrix-vector products are too small to gain from threads, and on a
+shared 2-core machine threaded BLAS makes the timings erratic.
+"""
+
+import os
+
+for _var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
+    os.environ.setdefault(_var, "1")  # before numpy is imported
+
+import argparse  # noqa: E402
+import platform  # noqa: E402
+import time  # noqa: E402
+
+import numpy as np  # noqa: E402
+
+import phaseglass as pg
+
+
+class Timing:
+    """Best wall and CPU time of a callable over repeats; ``a / b`` gives both ratios."""
+
+    def __init__(self, wall, cpu):
+        self.wall, self.cpu = wall, cpu
+
+    def __truediv__(self, other):
+        if isinstance(other, Timing):
+            return Timing(self.wall / other.wall, self.cpu / other.cpu)
+        return Timing(self.wall / other, self.cpu / other)
+
+    def __sub__(self, other):
+        return Timing(self.wall - other.wall, self.cpu - other.cpu)
+
+    def __mul__(self, factor):
+        return Timing(self.wall * factor, self.cpu * factor)
+
+    def fmt(self, spec):
+        return f"{self.wall:{spec}} ({self.cpu:{spec}})"
+
+
+def best_of(fn, repeats):
+    """Minimum wall and CPU time of ``fn()`` over ``repeats`` calls."""
+    wall, cpu = [], []
+    for _ in range(repeats):
+        w, c = time.perf_counter(), time.process_time()
+        fn()
+        cpu.append(time.process_time() - c)
+        wall.append(time.perf_counter() - w)
+    return Timing(min(wall), min(cpu))
+
+
+def hand_written_hmc(value_and_grad, x0, step_size, n_steps, n_draws, seed):
+    """Plain numpy HMC, one chain, as a practitioner would write it (fixed step size)."""
+    rng = np.random.default_rng(seed)
+    x = x0[None, :].copy()
+    lp, g = value_and_grad(x)
+    draws = np.empty((n_draws, x.shape[1]))
+    for i in range(n_draws):
+        p0 = rng.standard_normal(x.shape)
+        xn, p, gn, lpn = x, p0, g, lp
+        for _ in range(n_steps):
+            p = p + 0.5 * step_size * gn
+            xn = xn + step_size * p
+            lpn, gn = value_and_grad(xn)
+            p = p + 0.5 * step_size * gn
+        log_ratio = (lpn[0] - 0.5 * np.dot(p[0], p[0])) - (lp[0] - 0.5 * np.dot(p0[0], p0[0]))
+        if np.log(rng.random()) < log_ratio:
+            x, lp, g = xn, lpn, gn
+        draws[i] = x[0]
+    return draws
+
+
+def overhead_row(name, target, x0, step_size, n_steps, n_draws, repeats):
+    vg = target._user_vg  # the user's own joint function, no wrapper
+    kernel = pg.HMC(step_size, n_steps, jitter=0.0)
+    probe = pg.sample(target, kernel, x0, n_draws=n_draws, n_chains=1, seed=1, keep_trajectories=True)
+    # The bare loop evaluates the very points the sampler evaluated (the start, then every
+    # leapfrog step), since a gradient's cost can depend on where it is taken.
+    steps = np.concatenate([tr.positions[0, 1:] for tr in probe.trajectories])
+    steps = steps[np.all(np.isfinite(steps), axis=1)]  # nothing is evaluated after a divergence
+    points = np.concatenate([x0[None, :], steps])[:, None, :].copy()  # (n_grad, 1, dim)
+    n_grad = points.shape[0]
+    assert n_grad == probe.total_grad + 1  # plus the gradient at the start
+
+    def bare():
+        for x in points:
+            vg(x)
+
+    def ours():
+        pg.sample(target, kernel, x0, n_draws=n_draws, n_chains=1, seed=1)
+
+    def hand():
+        hand_written_hmc(vg, x0, step_size, n_steps, n_draws, 1)
+
+    # interleave the three so that a burst of load elsewhere hits them alike
+    results = {"bare": [], "ours": [], "hand": []}
+    for _ in range(repeats):
+        for key, fn in (("bare", bare), ("ours", ours), ("hand", hand)):
+            results[key].append(best_of(fn, 1))
+    t_bare, t_ours, t_hand = (
+        Timing(min(t.wall for t in results[k]), min(t.cpu for t in results[k]))
+        for k in ("bare", "ours", "hand"))
+    return {
+        "name": name, "grad_ms": 1e3 * t_bare.wall / n_grad, "n_grad": n_grad,
+        "acceptance": float(np.mean(probe.accepted)),
+        "ratio_bare": t_ours / t_bare, "ratio_hand": t_ours / t_hand,
+        "hand_over_bare": t_hand / t_bare,
+        "fixed_us": (t_ours - t_bare) * (1e6 / n_grad),
+        "hand_fixed_us": (t_hand - t_bare) * (1e6 / n_grad),
+    }
+
+
+def batching_row(n_batch, n_single, n_draws, repeats):
+    target = pg.demos.correlated_gaussian(dim=10)
+    kernel = pg.HMC(0.1, 10)
+
+    def single_loop():
+        for seed in range(n_single):
+            pg.sample(target, kernel, n_draws=n_draws, n_chains=1, seed=seed)
+
+    t_single = best_of(single_loop, repeats) / n_single
+    t_batch = best_of(lambda: pg.sample(target, kernel, n_draws=n_draws, n_chains=n_batch, seed=0),
+                      repeats) / n_batch
+    return {"per_chain_single_ms": t_single * 1e3, "per_chain_batch_ms": t_batch * 1e3,
+            "speedup": t_single / t_batch, "n_batch": n_batch, "n_draws": n_draws}
+
+
+def machine():
+    lines = [f"- machine: {platform.machine()}, {os.cpu_count()} logical CPUs "
+             f"(nproc {len(os.sched_getaffinity(0)) if hasattr(os, 'sched_getaffinity') else '?'}), "
+             f"Python {platform.python_version()}, numpy {np.__version__}"]
+    try:
+        from threadpoolctl import threadpool_info
+
+        blas = [f"{i['internal_api']} {i.get('version')} ({i.get('architecture')}, "
+                f"{i['num_threads']} threads)" for i in threadpool_info()]
+        lines.append(f"- BLAS: {'; '.join(blas)}")
+    except ImportError:
+        pass
+    env = {k: os.environ[k] for k in ("OPENBLAS_CORETYPE", "OPENBLAS_L2_SIZE", "OPENBLAS_NUM_THREADS")
+           if k in os.environ}
+    lines.append(f"- environment: {env}")
+    if hasattr(os, "getloadavg"):
+        lines.append(f"- load average at start (1, 5, 15 min): {os.getloadavg()}")
+    return "\n".join(lines)
+
+
+def main():
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--quick", action="store_true", help="small sizes, one repeat (smoke run)")
+    args = parser.parse_args()
+    repeats = 1 if args.quick else 5
+    scale = 0.1 if args.quick else 1.0
+
+    print("# phaseglass core benchmark\n")
+    if args.quick:
+        print("(--quick: a smoke run with tiny sizes and one repeat; the numbers mean little)\n")
+    print(machine())
+    print()
+
+    cases = []
+    for d, draws in ((10, 2000), (100, 1000), (1000, 200)):
+        cases.append((f"correlated_gaussian(dim={d})", pg.demos.correlated_gaussian(dim=d),
+                      np.zeros(d), 0.1, 10, max(int(draws * scale), 10)))
+    lr = pg.demos.late_returns()
+    cases.append(("late_returns() 2000x20", lr, lr.true_coef.copy(), 0.02, 10,
+                  max(int(300 * scale), 10)))
+    rows = [overhead_row(*case, repeats=2 * repeats - 1) for case in cases]  # these are short
+
+    print("## Sampler overhead, one chain (HMC, 10 leapfrog steps, no warm-up)\n")
+    print("Wall time, CPU time in parentheses.\n")
+    print("| target | gradient (ms) | gradients | pg.sample / bare gradients | goal "
+          "| fixed cost per step, ours (µs) | fixed cost per step, hand-written (µs) "
+          "| pg.sample / hand-written HMC | goal |")
+    print("|---|---|---|---|---|---|---|---|---|")
+    for r in rows:
+        # late_returns is the brief's "~0.1 ms gradient" case; count it in even if it measures a bit less
+        costly = r["grad_ms"] >= 0.1 or r["name"].startswith("late_returns")
+        goal = "<= 1.25" if costly else "n/a (< 0.1 ms): see µs"
+        print(f"| {r['name']} | {r['grad_ms']:.4f} | {r['n_grad']} | {r['ratio_bare'].fmt('.2f')} | {goal} | "
+              f"{r['fixed_us'].fmt('.1f')} | {r['hand_fixed_us'].fmt('.1f')} | "
+              f"{r['ratio_hand'].fmt('.2f')} | <= 1.1 |")
+    print()
+    for r in rows:
+        costly = r["grad_ms"] >= 0.1 or r["name"].startswith("late_returns")
+        verdicts = []
+        if costly:
+            verdicts.append(f"vs bare {'met' if r['ratio_bare'].wall <= 1.25 else 'MISSED'}")
+        verdicts.append(f"vs hand-written {'met' if r['ratio_hand'].wall <= 1.1 else 'MISSED'}")
+        print(f"- {r['name']}: {', '.join(verdicts)} (wall time)")
+    print()
+
+    b = batching_row(n_batch=1000, n_single=10 if not args.quick else 3,
+                     n_draws=max(int(200 * scale), 10), repeats=repeats)
+    print("## Batching, correlated_gaussian(dim=10), HMC(0.1, 10)\n")
+    print("| per chain: single-chain runs (ms) | per chain: batch of 1000 (ms) | speed-up | goal |")
+    print("|---|---|---|---|")
+    print(f"| {b['per_chain_single_ms'].fmt('.2f')} | {b['per_chain_batch_ms'].fmt('.3f')} | "
+          f"{b['speedup'].fmt('.0f')} | >= 50 |")
+    print(f"\n({b['n_draws']} draws per chain; goal {'met' if b['speedup'].wall >= 50 else 'MISSED'}.)")
+
+
+if __name__ == "__main__":
+    main()
