@@ -365,3 +365,15 @@ def test_sampler_errors():
     with pytest.raises(ValueError, match="no finite log-density found after 100 random starts"):
         nowhere = pg.Target(lambda x: -np.inf, lambda x: x, dim=1)
         pg.Sampler(nowhere, pg.HMC(0.1, 5), n_chains=1, seed=0)
+
+
+def test_digest_leaves_ebfmi_out_for_persistent_momentum():
+    # E-BFMI measures how a fresh momentum draw moves between energy levels (common
+    # practice); with persistence > 0 it does not apply and must not raise a warning.
+    t = pg.demos.correlated_gaussian()
+    run = pg.sample(t, pg.PartialRefreshHMC(0.2, 1, 0.95), n_draws=200, n_chains=2, seed=5)
+    digest = run.summary()
+    assert all(np.isnan(b) for b in np.atleast_1d(digest.run_info["ebfmi"]))
+    assert not any("E-BFMI" in w for w in digest.warnings)
+    full = pg.sample(t, pg.PartialRefreshHMC(0.2, 10, 0.0), n_draws=200, n_chains=2, seed=5)
+    assert np.all(np.isfinite(full.summary().run_info["ebfmi"]))

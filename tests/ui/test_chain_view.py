@@ -170,3 +170,14 @@ def test_two_views_linked(glaze):
     traitlets.link((a, "step_size"), (b, "step_size"))
     a.step_size = 0.033
     assert b.kernel.step_size == pytest.approx(0.033)
+
+
+def test_a_tuned_kernel_keeps_its_mass_matrix(glaze):
+    # A kernel tuned by warm-up carries a metric; the view must step with it, whatever
+    # kernel is picked afterwards.
+    tuned = pg.HMC(0.3, 4, metric=np.array([0.2, 0.5]))
+    view = make(glaze, kernel=tuned)
+    assert view.kernel.metric.kind == "diagonal"
+    assert np.allclose(view.kernel.metric.inverse_mass, [0.2, 0.5])
+    view.kernel_name = "partial"
+    assert np.allclose(view.kernel.metric.inverse_mass, [0.2, 0.5])

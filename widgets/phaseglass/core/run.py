@@ -155,9 +155,12 @@ class Digest:
         table["rhat_rank"] = dg.rhat(x) if enough and x.shape[1] >= 8 else nan
         table["mcse_mean"] = dg.mcse(x, kind="mean") if enough else nan
         grads = run.total_grad
+        # E-BFMI measures how well a *fresh* momentum draw moves between energy levels;
+        # with persistent momentum (partial refresh, persistence > 0) it does not apply.
         energy_ok = (run.energy is not None and run.n_draws >= 8
                      and np.all(np.isfinite(run.energy)) and run.kernel is not None
-                     and getattr(run.kernel, "uses_gradient", False))
+                     and getattr(run.kernel, "uses_gradient", False)
+                     and getattr(run.kernel, "persistence", 0.0) == 0.0)
         bfmi = dg.ebfmi(run.energy) if energy_ok else np.full(run.n_chains, np.nan)
         bfmi = np.atleast_1d(bfmi)
         min_ess = float(np.nanmin(table["ess_centre"])) if np.any(np.isfinite(table["ess_centre"])) else np.nan

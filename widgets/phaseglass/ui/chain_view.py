@@ -96,7 +96,10 @@ class ChainView(View):
         super().__init__(figsize=(8.6, 4.6))
         self._ready = False
         coords = resolve_coords(coords, target.names, target.dim)
+        # a kernel passed in (e.g. tuned by pg.sample) keeps its mass matrix for every kernel built here
+        self._metric = None
         if kernel is not None:
+            self._metric = kernel.metric
             kernel_name, uniform, knobs = _knobs_of(kernel)
             step_size = knobs.get("step_size", step_size)
             n_steps = knobs.get("n_steps", n_steps)
@@ -159,11 +162,13 @@ class ChainView(View):
     # ---------------------------------------------------------------- kernel
     def _make_kernel(self):
         uniform = DriftingUniform(self.drift) if self.uniform == "drifting" else FreshUniform()
+        metric = self._metric
         if self.kernel_name == "hmc":
-            return HMC(self.step_size, self.n_steps, uniform=uniform)
+            return HMC(self.step_size, self.n_steps, uniform=uniform, metric=metric)
         if self.kernel_name == "partial":
-            return PartialRefreshHMC(self.step_size, self.n_steps, self.persistence, uniform=uniform)
-        return RandomWalk(self.step_size, uniform=uniform)
+            return PartialRefreshHMC(self.step_size, self.n_steps, self.persistence, uniform=uniform,
+                                     metric=metric)
+        return RandomWalk(self.step_size, uniform=uniform, metric=metric)
 
     @property
     def kernel(self):
@@ -239,7 +244,7 @@ class ChainView(View):
         self._density = draw_log_density(self._ax, log_density_grid(
             self.target, self.coords, through, self.xlim, self.ylim, n=80))
         run = self.run
-        self._pairs = draw_pair(self._ax, run.unconstrained, self.coords, names=self.target.names,
+        self._pairs = draw_pair(self._ax, run.unconstrained, self.coords, names=self._axis_names(),
                                 divergent=run.divergent, markersize=3.0)
         self._pairs.autoscale = False
         self._traj = None
@@ -257,6 +262,10 @@ class ChainView(View):
                labels=[h.get_label() for h in handles], fontsize=7)
         legend(self._ax_u, loc="upper left", fontsize=7)
 
+    def _axis_names(self):
+        suffix = " (sampler's scale)" if self.target.bounded else ""
+        return tuple(n + suffix for n in self.target.names)
+
     def _ensure_trajectory(self, traj, accepted):
         if traj is None:
             if self._traj is not None:
@@ -265,7 +274,7 @@ class ChainView(View):
             return
         if self._traj is None:
             self._traj = draw_trajectory(self._ax, traj, coords=self.coords, accepted=accepted,
-                                         names=self.target.names)
+                                         names=self._axis_names(), metric=self.sampler.kernel.metric)
             self._traj.autoscale = False
         else:
             for a in self._traj.artists:
