@@ -405,7 +405,11 @@ class Gibbs(Kernel):
     conserves ``(x - m)' S^-1 (x - m) + sum_i Phi^-1(u_i)^2`` (an update of
     ``x_i`` swaps its standardised conditional deviate with ``Phi^-1(u_i)``), so
     each chain stays on one ellipsoid of the extended space.
-    Any shift ``c > 0`` adds the perturbation that breaks this. Ordinary Gibbs
+    Any shift ``c > 0`` adds the perturbation that breaks this in two or more
+    dimensions. In one dimension a fixed shift is not enough: every second
+    draw is then a fixed function of the start (the chain never forgets it,
+    which simulation-based calibration shows at once), so use
+    ``shift="random"`` or ordinary Gibbs for a one-coordinate target. Ordinary Gibbs
     also updates ``state.extra["u"]`` (to ``F(old x_i)``), so switching from
     ``shift=None`` to a shift mid-run starts from correctly distributed
     uniforms.
