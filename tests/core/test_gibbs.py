@@ -163,8 +163,9 @@ def test_zero_shift_in_one_dimension_swaps_two_points_forever():
     target = pg.Target(lambda x: np.where(np.abs(x[:, 0] - 0.2) < 1.0, -0.5 * x[:, 0] ** 2, -np.inf),
                        lambda x: -x, dim=1, vectorized=True)
     dist = TruncNormal(-0.8, 1.2, 0.0, 1.0)
-    run = pg.sample(target, pg.Gibbs(lambda i, x: dist, shift=0.0), initial=[[0.5], [-0.5]],
-                    n_draws=50, n_chains=2, seed=14)
+    with pytest.warns(UserWarning, match="one-coordinate"):
+        run = pg.sample(target, pg.Gibbs(lambda i, x: dist, shift=0.0), initial=[[0.5], [-0.5]],
+                        n_draws=50, n_chains=2, seed=14)
     x = run.draws[:, :, 0]
     np.testing.assert_allclose(x[:, 2:], x[:, :-2], atol=1e-12)
     assert np.all(np.abs(x[:, 1:] - x[:, :-1]) > 1e-6)
@@ -488,3 +489,19 @@ def test_unbounded_density_asks_for_bounds():
 def test_from_settings_rejects_unknown_keys():
     with pytest.raises(ValueError, match=r"`settings` has unknown Gibbs keys \['step_size'\]"):
         pg.Gibbs.from_settings({"kernel": "Gibbs", "shift": None, "step_size": 0.1})
+
+
+def test_fixed_shift_on_one_coordinate_warns():
+    # In one dimension a fixed shift makes every second draw a fixed function of the
+    # start (see the Gibbs Notes); the sampler says so instead of silently failing.
+    import scipy.stats
+
+    t = pg.Target(lambda x: -0.5 * x @ x, lambda x: -x, dim=1)
+    cond = lambda i, x: scipy.stats.norm()  # noqa: E731
+    with pytest.warns(UserWarning, match="one-coordinate"):
+        pg.Sampler(t, pg.Gibbs(cond, shift=0.3), n_chains=1, seed=0)
+    import warnings as _w
+
+    with _w.catch_warnings():
+        _w.simplefilter("error")
+        pg.Sampler(t, pg.Gibbs(cond, shift="random"), n_chains=1, seed=0)

@@ -486,6 +486,15 @@ class Gibbs(Kernel):
         self.grid_size = grid_size
 
     # ---------------------------------------------------------------- state
+    def prepare(self, target):
+        super().prepare(target)
+        if target.dim == 1 and isinstance(self.shift, float):
+            warnings.warn(
+                "a fixed `shift` on a one-coordinate target never forgets the start (every "
+                "second draw is a fixed function of it); use shift='random' or shift=None",
+                UserWarning, stacklevel=4,
+            )
+
     def init_extra(self, target, state, streams):
         """The driving uniforms ``u``, shape (n_chains, dim), drawn from the stream."""
         return {"u": streams.uniform(state.position.shape[1])}
