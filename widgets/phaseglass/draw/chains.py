@@ -5,7 +5,6 @@ from dataclasses import dataclass
 import numpy as np
 from matplotlib.axes import Axes
 from matplotlib.lines import Line2D
-from matplotlib.text import Text
 
 from . import style
 from ._base import Drawing, as_chain_draws, check_divergent

@@ -17,7 +17,7 @@ import numpy as np
 import traitlets
 from matplotlib.figure import Figure
 
-__all__ = ["View", "guarded", "make_canvas_figure"]
+__all__ = ["View", "guarded", "make_canvas_figure", "check_range"]
 
 
 def make_canvas_figure(figsize, *, css_class="pg-canvas"):
@@ -57,6 +57,32 @@ def guarded(what):
     return wrap
 
 
+def check_range(proposal, ranges):
+    """Body of a ``@traitlets.validate`` for numeric knobs declared in one table.
+
+    ``ranges`` maps a trait name to ``(low, high, ends)``: ``low``/``high`` may be
+    None, ``ends`` is two characters from ``"[("`` and ``")]"`` saying whether
+    each end is included. The error names the trait and the interval.
+    """
+    name = proposal["trait"].name
+    low, high, ends = ranges[name]
+    v = proposal["value"]
+    ok = bool(np.isfinite(v))
+    if low is not None:
+        ok = ok and (v > low if ends[0] == "(" else v >= low)
+    if high is not None:
+        ok = ok and (v < high if ends[1] == ")" else v <= high)
+    if ok:
+        return v
+    if high is None:
+        need = f"be {'>' if ends[0] == '(' else '>='} {low}"
+    elif low is None:
+        need = f"be {'<' if ends[1] == ')' else '<='} {high}"
+    else:
+        need = f"lie in {ends[0]}{low}, {high}{ends[1]}"
+    raise traitlets.TraitError(f"`{name}` must {need}, got {v}")
+
+
 class View(widgets.VBox):
     """Base class of the phaseglass views.
 
@@ -79,6 +105,34 @@ class View(widgets.VBox):
         self._status_html.add_class("pg-status")
         super().__init__(**kwargs)
         self.add_class("pg-view")
+
+    # ----------------------------------------------------------- coordinates
+    def _coordinate_pickers(self, names):
+        """x and y dropdowns over ``names``, tied to the ``coords`` trait."""
+        options = [(n, i) for i, n in enumerate(names)]
+        self._x_pick = widgets.Dropdown(options=options, value=self.coords[0], description="x",
+                                        layout=widgets.Layout(width="200px"))
+        self._y_pick = widgets.Dropdown(options=options, value=self.coords[1], description="y",
+                                        layout=widgets.Layout(width="200px"))
+        self._x_pick.observe(lambda ch: self._pick_coordinate(0, ch["new"]), "value")
+        self._y_pick.observe(lambda ch: self._pick_coordinate(1, ch["new"]), "value")
+        return self._x_pick, self._y_pick
+
+    @guarded("coordinate change")
+    def _pick_coordinate(self, axis, index):
+        c = list(self.coords)
+        if c[axis] == index:
+            return
+        c[axis] = index
+        if c[0] == c[1]:
+            self.status = "x and y must be different coordinates"
+            (self._x_pick if axis == 0 else self._y_pick).value = self.coords[axis]
+            return
+        self._set_coordinates(tuple(c))
+
+    def _set_coordinates(self, coords):
+        """Show ``coords``; views that must also change their region override this."""
+        self.coords = coords
 
     # ---------------------------------------------------------------- status
     @traitlets.observe("status")

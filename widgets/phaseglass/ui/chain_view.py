@@ -13,7 +13,7 @@ from ..core.target import Target
 from ..core.uniforms import DriftingUniform, FreshUniform
 from ..draw import draw_log_density, draw_pair, draw_traces, draw_trajectory, draw_uniform_sequence
 from ..draw.style import key_handles, legend
-from ._base import View, guarded
+from ._base import View, check_range, guarded
 from .trajectory_view import pilot_region
 
 __all__ = ["ChainView", "KERNELS"]
@@ -127,33 +127,13 @@ class ChainView(View):
         self._refresh()
 
     # ------------------------------------------------------------ validation
-    @traitlets.validate("step_size")
-    def _check_step(self, proposal):
-        v = proposal["value"]
-        if not (np.isfinite(v) and v > 0):
-            raise traitlets.TraitError(f"`step_size` must be > 0, got {v}")
-        return v
+    _RANGES = {"step_size": (0.0, None, "(]"), "n_steps": (1, None, "[]"),
+               "n_chains": (1, None, "[]"), "steps_per_tick": (1, None, "[]"),
+               "persistence": (0.0, 1.0, "[)"), "drift": (0.0, 2.0, "()")}
 
-    @traitlets.validate("n_steps", "n_chains", "steps_per_tick")
-    def _check_count(self, proposal):
-        v = proposal["value"]
-        if v < 1:
-            raise traitlets.TraitError(f"`{proposal['trait'].name}` must be >= 1, got {v}")
-        return v
-
-    @traitlets.validate("persistence")
-    def _check_persistence(self, proposal):
-        v = proposal["value"]
-        if not 0.0 <= v < 1.0:
-            raise traitlets.TraitError(f"`persistence` must lie in [0, 1), got {v}")
-        return v
-
-    @traitlets.validate("drift")
-    def _check_drift(self, proposal):
-        v = proposal["value"]
-        if not 0.0 < v < 2.0:
-            raise traitlets.TraitError(f"`drift` must lie in (0, 2), got {v}")
-        return v
+    @traitlets.validate(*_RANGES)
+    def _check_knob(self, proposal):
+        return check_range(proposal, self._RANGES)
 
     @traitlets.validate("coords")
     def _check_coords(self, proposal):

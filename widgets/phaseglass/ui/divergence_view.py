@@ -242,13 +242,7 @@ class DivergenceView(View):
                                            description="divergence", layout=lay(width="340px"))
         self._pick_list.add_class("pg-divergence-pick")
         self._pick_list.observe(self._on_list, "value")
-        options = [(n, i) for i, n in enumerate(self.names)]
-        self._x_pick = widgets.Dropdown(options=options, value=self.coords[0], description="x",
-                                        layout=lay(width="200px"))
-        self._y_pick = widgets.Dropdown(options=options, value=self.coords[1], description="y",
-                                        layout=lay(width="200px"))
-        self._x_pick.observe(lambda ch: self._pick_coord(0, ch["new"]), "value")
-        self._y_pick.observe(lambda ch: self._pick_coord(1, ch["new"]), "value")
+        self._coordinate_pickers(self.names)
         self._play = widgets.Play(value=0, min=0, max=0, step=1, interval=250, show_repeat=False,
                                   description="replay")
         self._play.add_class("pg-replay-play")
@@ -268,18 +262,6 @@ class DivergenceView(View):
             widgets.HBox([self._play, self._step_button, self._step_slider]),
             self.figure.canvas, self._readout, self._status_html,
         ]
-
-    @guarded("coordinate change")
-    def _pick_coord(self, axis, index):
-        c = list(self.coords)
-        if c[axis] == index:
-            return
-        c[axis] = index
-        if c[0] == c[1]:
-            self.status = "x and y must be different coordinates"
-            (self._x_pick if axis == 0 else self._y_pick).value = self.coords[axis]
-            return
-        self.coords = tuple(c)
 
     def _on_list(self, change):
         if self._syncing or change["new"] == self.selected:

@@ -15,7 +15,7 @@ from ..core.slices import choose_limits, log_density_grid, resolve_coords
 from ..core.target import Target
 from ..draw import draw_chain_spread, draw_gibbs_paths, draw_log_density, draw_traces, legend
 from ..draw.gibbs import chain_spread
-from ._base import View, guarded
+from ._base import View, check_range, guarded
 
 __all__ = ["ShiftGibbsView", "spread_out_starts"]
 
@@ -211,33 +211,12 @@ class ShiftGibbsView(View):
         self._refresh(full=True)
 
     # ------------------------------------------------------------ validation
-    @traitlets.validate("shift")
-    def _check_shift(self, proposal):
-        v = proposal["value"]
-        if not 0.0 <= v < 1.0:
-            raise traitlets.TraitError(f"`shift` must lie in [0, 1), got {v}")
-        return v
+    _RANGES = {"shift": (0.0, 1.0, "[)"), "n_chains": (2, MAX_CHAINS, "[]"),
+               "seed": (0, None, "[]"), "trail": (0, None, "[]")}
 
-    @traitlets.validate("n_chains")
-    def _check_chains(self, proposal):
-        v = proposal["value"]
-        if not 2 <= v <= MAX_CHAINS:
-            raise traitlets.TraitError(f"`n_chains` must be between 2 and {MAX_CHAINS}, got {v}")
-        return v
-
-    @traitlets.validate("seed")
-    def _check_seed(self, proposal):
-        v = proposal["value"]
-        if v < 0:
-            raise traitlets.TraitError(f"`seed` must be >= 0, got {v}")
-        return v
-
-    @traitlets.validate("trail")
-    def _check_trail(self, proposal):
-        v = proposal["value"]
-        if v < 0:
-            raise traitlets.TraitError(f"`trail` must be >= 0, got {v}")
-        return v
+    @traitlets.validate(*_RANGES)
+    def _check_knob(self, proposal):
+        return check_range(proposal, self._RANGES)
 
     @traitlets.validate("coords")
     def _check_coords(self, proposal):
@@ -330,13 +309,7 @@ class ShiftGibbsView(View):
                                (self._ordinary_box, "ordinary"), (self._chains_slider, "n_chains"),
                                (self._seed_box, "seed"), (self._trail_slider, "trail")):
             traitlets.link((control, "value"), (self, trait))
-        options = [(n, i) for i, n in enumerate(self.target.names)]
-        self._x_pick = widgets.Dropdown(options=options, value=self.coords[0], description="x",
-                                        layout=lay(width="200px"))
-        self._y_pick = widgets.Dropdown(options=options, value=self.coords[1], description="y",
-                                        layout=lay(width="200px"))
-        self._x_pick.observe(lambda ch: self._pick(0, ch["new"]), "value")
-        self._y_pick.observe(lambda ch: self._pick(1, ch["new"]), "value")
+        self._coordinate_pickers(self.target.names)
         self._readout = widgets.HTML()
         self._readout.add_class("pg-gibbs-readout")
         self._sync_enabled()
@@ -354,18 +327,6 @@ class ShiftGibbsView(View):
     def _sync_enabled(self):
         self._shift_slider.disabled = bool(self.ordinary or self.random_shift)
         self._random_toggle.disabled = bool(self.ordinary)
-
-    @guarded("coordinate change")
-    def _pick(self, axis, index):
-        c = list(self.coords)
-        if c[axis] == index:
-            return
-        c[axis] = index
-        if c[0] == c[1]:
-            self.status = "x and y must be different coordinates"
-            (self._x_pick if axis == 0 else self._y_pick).value = self.coords[axis]
-            return
-        self.coords = tuple(c)
 
     # ---------------------------------------------------------------- figure
     def _build_figure(self):

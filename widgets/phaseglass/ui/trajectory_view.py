@@ -12,7 +12,7 @@ from ..core.streams import seed_sequence
 from ..core.target import Target
 from ..draw import draw_energy_error, draw_log_density, draw_trajectory, legend
 from ..draw.style import key_handles
-from ._base import View, guarded
+from ._base import View, check_range, guarded
 
 __all__ = ["TrajectoryView", "pilot_region"]
 
@@ -141,26 +141,12 @@ class TrajectoryView(View):
         self._recompute()
 
     # ------------------------------------------------------------ validation
-    @traitlets.validate("step_size")
-    def _check_step(self, proposal):
-        v = proposal["value"]
-        if not (np.isfinite(v) and v > 0):
-            raise traitlets.TraitError(f"`step_size` must be > 0, got {v}")
-        return v
+    _RANGES = {"step_size": (0.0, None, "(]"), "n_steps": (1, None, "[]"),
+               "persistence": (0.0, 1.0, "[)")}
 
-    @traitlets.validate("n_steps")
-    def _check_steps(self, proposal):
-        v = proposal["value"]
-        if v < 1:
-            raise traitlets.TraitError(f"`n_steps` must be >= 1, got {v}")
-        return v
-
-    @traitlets.validate("persistence")
-    def _check_persistence(self, proposal):
-        v = proposal["value"]
-        if not 0.0 <= v < 1.0:
-            raise traitlets.TraitError(f"`persistence` must lie in [0, 1), got {v}")
-        return v
+    @traitlets.validate(*_RANGES)
+    def _check_knob(self, proposal):
+        return check_range(proposal, self._RANGES)
 
     @traitlets.validate("mass_scale")
     def _check_mass(self, proposal):
@@ -204,18 +190,12 @@ class TrajectoryView(View):
         self._resample = widgets.Button(description="resample momentum", icon="refresh")
         self._resample.add_class("pg-resample")
         self._resample.on_click(lambda _: self.resample_momentum())
-        options = [(n, i) for i, n in enumerate(names)]
-        self._x_pick = widgets.Dropdown(options=options, value=self.coords[0], description="x",
-                                        layout=widgets.Layout(width="200px"))
-        self._y_pick = widgets.Dropdown(options=options, value=self.coords[1], description="y",
-                                        layout=widgets.Layout(width="200px"))
+        self._coordinate_pickers(names)
         for control, trait in ((self._step_slider, "step_size"), (self._steps_slider, "n_steps"),
                                (self._persist_slider, "persistence"), (self._seed_box, "seed")):
             traitlets.link((control, "value"), (self, trait))
         self._mass_x.observe(lambda ch: self._set_mass(0, ch["new"]), "value")
         self._mass_y.observe(lambda ch: self._set_mass(1, ch["new"]), "value")
-        self._x_pick.observe(lambda ch: self._pick(0, ch["new"]), "value")
-        self._y_pick.observe(lambda ch: self._pick(1, ch["new"]), "value")
         self._readout = widgets.HTML()
         self._readout.add_class("pg-readout")
         self._click_readout = widgets.HTML(
@@ -243,22 +223,14 @@ class TrajectoryView(View):
         masses[self.coords[axis]] = float(value)
         self.mass_scale = masses
 
-    @guarded("coordinate change")
-    def _pick(self, axis, index):
-        c = list(self.coords)
-        if c[axis] == index:
-            return
-        c[axis] = index
-        if c[0] == c[1]:
-            self.status = "x and y must be different coordinates"
-            (self._x_pick if axis == 0 else self._y_pick).value = self.coords[axis]
-            return
+    def _set_coordinates(self, coords):
+        """Show ``coords`` in a region of three mass-scaled units around the start."""
         z = self.start
+        span = 3.0 * np.sqrt(1.0 / np.asarray(self.mass_scale))
         with self.hold_trait_notifications():
-            self.coords = tuple(c)
-            span = 3.0 * np.sqrt(1.0 / np.asarray(self.mass_scale))
-            self.xlim = (z[c[0]] - span[c[0]], z[c[0]] + span[c[0]])
-            self.ylim = (z[c[1]] - span[c[1]], z[c[1]] + span[c[1]])
+            self.coords = coords
+            self.xlim = (z[coords[0]] - span[coords[0]], z[coords[0]] + span[coords[0]])
+            self.ylim = (z[coords[1]] - span[coords[1]], z[coords[1]] + span[coords[1]])
 
     # ---------------------------------------------------------------- figure
     def _build_figure(self):
