@@ -17,7 +17,7 @@ import numpy as np
 import traitlets
 from matplotlib.figure import Figure
 
-__all__ = ["View", "guarded", "make_canvas_figure", "check_range"]
+__all__ = ["View", "guarded", "make_canvas_figure", "check_range", "check_target"]
 
 
 def make_canvas_figure(figsize, *, css_class="pg-canvas"):
@@ -55,6 +55,20 @@ def guarded(what):
         return inner
 
     return wrap
+
+
+def check_target(target, *, min_dim=1):
+    """Raise a clear error unless ``target`` is a phaseglass Target with ``dim >= min_dim``."""
+    from ..core.target import Target
+
+    if not isinstance(target, Target):
+        raise TypeError(
+            f"`target` must be a phaseglass Target, got {type(target).__name__}; wrap your "
+            "log-density with pg.Target(log_density, grad, dim=...)"
+        )
+    if target.dim < min_dim:
+        raise ValueError(f"`target` must have dim >= {min_dim} for a {min_dim}-D view, got dim={target.dim}")
+    return target
 
 
 def check_range(proposal, ranges):

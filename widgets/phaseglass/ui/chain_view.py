@@ -9,11 +9,10 @@ from ..core.kernels import HMC, PartialRefreshHMC, RandomWalk
 from ..core.run import CAUTION
 from ..core.sampling import Sampler
 from ..core.slices import log_density_grid, resolve_coords
-from ..core.target import Target
 from ..core.uniforms import DriftingUniform, FreshUniform
 from ..draw import draw_log_density, draw_pair, draw_traces, draw_trajectory, draw_uniform_sequence
 from ..draw.style import key_handles, legend
-from ._base import View, check_range, guarded
+from ._base import View, check_range, check_target, guarded
 from .trajectory_view import pilot_region
 
 __all__ = ["ChainView", "KERNELS"]
@@ -84,13 +83,7 @@ class ChainView(View):
     def __init__(self, target, kernel=None, *, kernel_name="hmc", uniform="fresh", step_size=0.2,
                  n_steps=10, persistence=0.9, drift=0.03, n_chains=2, seed=0, coords=(0, 1),
                  capacity=2000, steps_per_tick=1, xlim=None, ylim=None, initial=None):
-        if not isinstance(target, Target):
-            raise TypeError(
-                f"`target` must be a phaseglass Target, got {type(target).__name__}; wrap your "
-                "log-density with pg.Target(log_density, grad, dim=...)"
-            )
-        if target.dim < 2:
-            raise ValueError("`target` must have dim >= 2 for a 2-D view")
+        check_target(target, min_dim=2)
         self.target = target
         self.capacity = int(capacity)
         super().__init__(figsize=(8.6, 4.6))

@@ -12,10 +12,9 @@ from ..core.gibbs import DEFAULT_GRID_SIZE, Gibbs
 from ..core.run import CAUTION
 from ..core.sampling import Sampler
 from ..core.slices import choose_limits, log_density_grid, resolve_coords
-from ..core.target import Target
 from ..draw import draw_chain_spread, draw_gibbs_paths, draw_log_density, draw_traces, legend
 from ..draw.gibbs import chain_spread
-from ._base import View, check_range, guarded
+from ._base import View, check_range, check_target, guarded
 
 __all__ = ["ShiftGibbsView", "spread_out_starts"]
 
@@ -172,13 +171,7 @@ class ShiftGibbsView(View):
     def __init__(self, target, conditionals=None, *, n_chains=4, shift=0.1, random_shift=False,
                  ordinary=False, seed=0, coords=(0, 1), capacity=2000, trail=30,
                  grid_size=DEFAULT_GRID_SIZE):
-        if not isinstance(target, Target):
-            raise TypeError(
-                f"`target` must be a phaseglass Target, got {type(target).__name__}; wrap your "
-                "log-density with pg.Target(log_density, grad, dim=...)"
-            )
-        if target.dim < 2:
-            raise ValueError("`target` must have dim >= 2 for a 2-D view")
+        check_target(target, min_dim=2)
         if isinstance(capacity, bool) or not isinstance(capacity, (int, np.integer)) or capacity < 2:
             raise ValueError(f"`capacity` must be an int >= 2, got {capacity!r}")
         self.target = target

@@ -9,10 +9,9 @@ from ..core.leapfrog import leapfrog
 from ..core.metric import Metric
 from ..core.slices import choose_limits, log_density_grid, resolve_coords
 from ..core.streams import seed_sequence
-from ..core.target import Target
 from ..draw import draw_energy_error, draw_log_density, draw_trajectory, legend
 from ..draw.style import key_handles
-from ._base import View, check_range, guarded
+from ._base import View, check_range, check_target, guarded
 
 __all__ = ["TrajectoryView", "pilot_region"]
 
@@ -103,13 +102,7 @@ class TrajectoryView(View):
     def __init__(self, target, *, start=None, coords=(0, 1), step_size=0.1, n_steps=20,
                  persistence=0.0, seed=0, xlim=None, ylim=None, max_energy_error=1000.0,
                  mass_scale=None):
-        if not isinstance(target, Target):
-            raise TypeError(
-                f"`target` must be a phaseglass Target, got {type(target).__name__}; wrap your "
-                "log-density with pg.Target(log_density, grad, dim=...)"
-            )
-        if target.dim < 2:
-            raise ValueError("`target` must have dim >= 2 for a 2-D view")
+        check_target(target, min_dim=2)
         self.target = target
         self.max_energy_error = float(max_energy_error)
         coords = resolve_coords(coords, target.names, target.dim)

@@ -14,9 +14,8 @@ from ..core.kernels import HMC, PartialRefreshHMC, RandomWalk
 from ..core.run import CAUTION
 from ..core.sampling import Sampler, sample
 from ..core.slices import choose_limits
-from ..core.target import Target
 from ..draw import draw_knob_grid
-from ._base import View, guarded
+from ._base import View, check_target, guarded
 
 __all__ = ["TuningMap", "measure_cell", "make_cell_kernel", "QUANTITIES"]
 
@@ -268,10 +267,7 @@ class TuningMap(View):
                  n_draws=150, n_chains=4, burn_in=25, seed=0, quantity="acceptance",
                  uniform="fresh", opens="trajectory", persistence_index=0, autorun=True,
                  metric=None):
-        if not isinstance(target, Target):
-            raise TypeError(
-                f"`target` must be a phaseglass Target, got {type(target).__name__}; wrap your "
-                "log-density with pg.Target(log_density, grad, dim=...)")
+        check_target(target)
         if kernel not in KERNELS:
             raise ValueError(f"`kernel` must be one of {KERNELS}, got {kernel!r}")
         if metric is not None:
