@@ -30,6 +30,14 @@ def pytest_configure(config):
     config.addinivalue_line("markers", "browser: drives a real Chromium against a JupyterLab server")
 
 
+def pytest_terminal_summary(terminalreporter):
+    """Print the latency figures of every browser run (a benchmark figure, never asserted)."""
+    if harness.SUMMARIES:
+        terminalreporter.section("browser runs: input -> repainted canvas latency")
+        for line in harness.SUMMARIES:
+            terminalreporter.write_line(line)
+
+
 def browser_tests_required() -> bool:
     return os.environ.get("PHASEGLASS_BROWSER_TESTS", "") == "1"
 

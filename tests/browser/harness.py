@@ -108,6 +108,11 @@ LAB_USER_SETTINGS = {
 }
 
 
+#: One line per finished browser run (timings and input->repaint latency); conftest.py prints
+#: them in pytest's terminal summary, so they show even when output is captured (as in CI).
+SUMMARIES: list[str] = []
+
+
 def log(msg: str) -> None:
     print(f"[browser] {msg}", flush=True)
 
@@ -980,6 +985,8 @@ def run_scenario_with_retry(server: JupyterServer, scenario: Scenario, ui: str, 
         if errors:
             log(f"FLAKY: {scenario.name}/{ui} passed on attempt {attempt} after: {errors}")
         log(res.summary())
+        SUMMARIES.append(res.summary() + (f" (FLAKY: passed after {len(errors)} failed attempt(s))"
+                                          if errors else ""))
         out = Path(artefacts_dir or DEFAULT_ARTEFACTS_DIR) / f"{scenario.name}-{ui}-result.json"
         out.write_text(json.dumps(dataclasses.asdict(res), indent=2, default=str))
         return res
