@@ -505,3 +505,12 @@ def test_fixed_shift_on_one_coordinate_warns():
     with _w.catch_warnings():
         _w.simplefilter("error")
         pg.Sampler(t, pg.Gibbs(cond, shift="random"), n_chains=1, seed=0)
+
+
+def test_empty_run_has_per_coordinate_u_shape():
+    # before any transition a Gibbs run already has u shaped (chain, 0, dim)
+    t = pg.demos.correlated_gaussian(3)
+    s = pg.Sampler(t, pg.Gibbs(shift=0.3), n_chains=2, seed=1)
+    assert s.run.u.shape == (2, 0, 3)
+    s.step(2)
+    assert s.run.u.shape == (2, 2, 3)

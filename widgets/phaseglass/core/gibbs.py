@@ -473,6 +473,7 @@ class Gibbs(Kernel):
 
     uses_gradient = False
     tuned_knob = None
+    u_per_coordinate = True
     conditionals = _Knob(_check_conditionals)
     shift = _Knob(_check_shift)
     shared_stream = _Knob(_check_flag)

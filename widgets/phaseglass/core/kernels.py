@@ -102,12 +102,16 @@ class Kernel:
     default_target_accept : float
     shared_stream : bool
         Whether all chains consume one random stream.
+    u_per_coordinate : bool
+        Whether the recorded ``u`` holds one value per coordinate (Gibbs) rather
+        than one per transition.
     """
 
     uses_gradient = True
     tuned_knob = None
     default_target_accept = 0.8
     shared_stream = False
+    u_per_coordinate = False
     metric = Metric()
 
     def prepare(self, target):

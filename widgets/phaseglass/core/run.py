@@ -79,6 +79,8 @@ class Run:
         records = {k: fields.pop(k) for k in _STANDARD if k in fields}
         for k in _STANDARD:
             records.setdefault(k, np.empty((n_chains, z.shape[1])))
+        if getattr(kernel, "u_per_coordinate", False) and records["u"].ndim == 2:
+            records["u"] = np.empty((n_chains, z.shape[1], dim))  # no draws yet
         return cls(target.to_user(z), z, records, fields, target=target, kernel=kernel, seed=seed,
                    trajectories=trajectories, divergences=divergences, first_draw=first_draw,
                    names=target.names)
