@@ -183,10 +183,14 @@ class _Hamiltonian(Kernel):
         ustate = state.extra.setdefault("uniform", {})
         accepted, u = self.uniform.decide(ustate, log_ratio, streams)
         accepted = accepted & ~div
-        acc = accepted[:, None]
-        state.position = np.where(acc, run.position, state.position)
-        state.logp = np.where(accepted, run.logp, state.logp)
-        state.grad = np.where(acc, run.grad, state.grad)
+        if accepted.size == 1:  # one chain: move by reference, no array selection
+            if accepted[0]:
+                state.position, state.logp, state.grad = run.position, run.logp, run.grad
+        else:
+            acc = accepted[:, None]
+            state.position = np.where(acc, run.position, state.position)
+            state.logp = np.where(accepted, run.logp, state.logp)
+            state.grad = np.where(acc, run.grad, state.grad)
         info = {
             "accepted": accepted,
             "accept_prob": accept_prob,

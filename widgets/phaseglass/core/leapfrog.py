@@ -63,6 +63,9 @@ def integrate(target, position, momentum, logp, grad, step_size, n_steps, metric
     rows still moving are evaluated, so gradient counts are honest per chain.
     """
     n, dim = position.shape
+    if n == 1 and not record:
+        return _integrate_one(target, position, momentum, logp, grad, step_size, n_steps, metric,
+                              max_energy_error)
     eps = np.empty((n, 1))
     eps[:, 0] = step_size  # a scalar or (n,)
     half = 0.5 * eps
@@ -142,6 +145,46 @@ def integrate(target, position, momentum, logp, grad, step_size, n_steps, metric
     # one gradient per step taken: a chain that stopped at step k evaluated k of them
     out.n_grad = np.where(out.divergent, divergence_step, n_steps)
     out.record = rec
+    return out
+
+
+def _integrate_one(target, q, p, logp, grad, step_size, n_steps, metric, max_energy_error):
+    """``integrate`` for one chain without recording: energies as Python floats.
+
+    The same arithmetic on the same (1, dim) arrays as the batch loop, with the
+    per-step energy check done on scalars (a one-chain sampler is the case
+    where Python overhead per leapfrog step shows against cheap gradients).
+    """
+    eps = float(np.ravel(step_size)[0])
+    half = 0.5 * eps
+    velocity = metric.velocity
+    vg = target._value_and_grad_rows
+    dot = np.dot
+
+    def kinetic(mom):
+        return 0.5 * float(dot(mom[0], velocity(mom)[0]))
+
+    h0 = kinetic(p) - float(logp[0])
+    h_end = h0
+    step = -1
+    with np.errstate(all="ignore"):
+        for k in range(1, n_steps + 1):
+            p_half = p + half * grad
+            qn = q + eps * velocity(p_half)
+            lpn, gn = vg(qn)
+            pn = p_half + half * gn
+            hn = kinetic(pn) - float(lpn[0])
+            if not abs(hn - h0) <= max_energy_error:  # False for NaN too
+                step, h_end = k, hn
+                break
+            q, p, logp, grad, h_end = qn, pn, lpn, gn, hn
+    out = _Integration()
+    out.position, out.momentum, out.logp, out.grad = q, p, logp, grad
+    out.h0, out.h_end = np.array([h0]), np.array([h_end])
+    out.divergence_step = np.array([step])
+    out.divergent = out.divergence_step >= 0
+    out.n_grad = np.array([step if step >= 0 else n_steps])
+    out.record = None
     return out
 
 
