@@ -176,7 +176,24 @@ class CanvasClick:
     label: str = "canvas-click"
 
 
-Step = SliderStep | CanvasClick
+@dataclass(frozen=True)
+class ButtonClick:
+    """Click an ipywidgets button (found by its CSS class) ``clicks`` times.
+
+    After every click the canvas (``canvas_class``, match ``canvas_index``) must
+    repaint with a different image and every text class must change.
+    """
+
+    button_class: str
+    canvas_class: str | None = None
+    canvas_index: int = 0
+    text_classes: tuple[str, ...] = ()
+    clicks: int = 2
+    index: int = 0
+    label: str = "button"
+
+
+Step = SliderStep | CanvasClick | ButtonClick
 
 
 @dataclass(frozen=True)
@@ -539,7 +556,8 @@ INIT_JS = r"""
 })();
 """
 
-MPL_IMAGE_CANVAS = ".jupyter-matplotlib-canvas-div canvas"  # first = image, second = overlay
+# ipympl draws into the first <canvas> of the div; the second is the zoom/rubber-band overlay
+MPL_IMAGE_CANVAS = ".jupyter-matplotlib-canvas-div > canvas:first-of-type"
 
 
 def canvas_selector(canvas_class: str | None) -> str:
@@ -898,6 +916,17 @@ class _Run:
                            step.expect_canvas_change)
         self.shot(f"after-{step.label}", focus=canvas)
 
+    def do_button(self, step: ButtonClick):
+        button = self.locate(f".{step.button_class}", step.index)
+        button.scroll_into_view_if_needed(timeout=self.remaining_ms(15))
+        canvas = (self.locate(canvas_selector(step.canvas_class), step.canvas_index)
+                  if step.canvas_class else None)
+        texts = self._texts(step.text_classes)
+        for i in range(step.clicks):
+            self.one_input(step.label, f"click {i + 1}", canvas, texts, lambda: button.click(),
+                           canvas is not None)
+        self.shot(f"after-{step.label}", focus=canvas if canvas is not None else button)
+
     def execute(self):
         from playwright.sync_api import sync_playwright
 
@@ -912,6 +941,8 @@ class _Run:
                         self.do_slider(step)
                     elif isinstance(step, CanvasClick):
                         self.do_click(step)
+                    elif isinstance(step, ButtonClick):
+                        self.do_button(step)
                     else:
                         raise TypeError(f"unknown step {step!r}")
                 self.result.timings["interact"] = time.monotonic() - t1

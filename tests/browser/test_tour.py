@@ -2,7 +2,8 @@
 
 Runs every cell, waits for the ipympl canvases to be painted, moves the trajectory view's
 step-size slider (the canvas image and the readout must change after every input), clicks
-the trajectory panel twice (the start point must move, and the canvas repaint), and prints
+the trajectory panel twice (the start point must move, and the canvas repaint), presses the
+chain view's step button twice (one more transition each time, canvas repainted), and prints
 the latency from input to repainted canvas (a benchmark figure, not an assertion).
 Screenshots land in test-artefacts/browser/.
 """
@@ -14,7 +15,8 @@ from pathlib import Path
 
 import pytest
 
-from phaseglass_browser_harness import CanvasClick, Scenario, SliderStep  # loaded by conftest.py
+from phaseglass_browser_harness import (ButtonClick, CanvasClick, Scenario,  # loaded by conftest.py
+                                        SliderStep)
 
 REPO = Path(__file__).resolve().parents[2]
 
@@ -28,6 +30,9 @@ TOUR = Scenario(
                    text_classes=("pg-readout",), label="slider", index=0),
         CanvasClick(canvas_class="pg-canvas", points=((0.2, 0.3), (0.35, 0.6)),
                     text_classes=("pg-click-readout", "pg-readout"), label="click", index=0),
+        # the chain view (second canvas): its step button advances every chain by one transition
+        ButtonClick(button_class="pg-step", canvas_class="pg-canvas", canvas_index=1,
+                    text_classes=("pg-chain-readout",), clicks=2, label="chain-step"),
     ),
     copy_whole_folder=False,
     run_timeout_s=150.0,
@@ -66,6 +71,14 @@ def test_tour_notebook(browser_run, ui):
         assert rec.canvas_latency_ms is not None
     # the second click is right of and below the first one: so is the start point
     assert starts[1][0] > starts[0][0] and starts[1][1] < starts[0][1], starts
+
+    steps = res.step_inputs("chain-step")
+    assert len(steps) == 2
+    counts = [int(re.search(r"(\d+) transitions x", r.texts_after["pg-chain-readout"]).group(1))
+              for r in steps]
+    first = int(re.search(r"(\d+) transitions x", steps[0].texts_before["pg-chain-readout"]).group(1))
+    assert counts == [first + 1, first + 2], (first, counts)
+    assert all(r.canvas_latency_ms is not None for r in steps)
 
     assert not res.page_errors, res.page_errors
     print("LATENCY", res.summary())
