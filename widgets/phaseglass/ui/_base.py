@@ -17,6 +17,8 @@ import numpy as np
 import traitlets
 from matplotlib.figure import Figure
 
+from ..core.slices import resolve_coords
+
 __all__ = ["View", "guarded", "make_canvas_figure", "check_range", "check_target"]
 
 
@@ -121,6 +123,15 @@ class View(widgets.VBox):
         self.add_class("pg-view")
 
     # ----------------------------------------------------------- coordinates
+    def _coordinate_names(self):
+        """Names of the coordinates a ``coords`` pair may refer to."""
+        return self.target.names
+
+    @traitlets.validate("coords")
+    def _check_coords(self, proposal):
+        names = self._coordinate_names()
+        return resolve_coords(tuple(proposal["value"]), names, len(names))
+
     def _coordinate_pickers(self, names):
         """x and y dropdowns over ``names``, tied to the ``coords`` trait."""
         options = [(n, i) for i, n in enumerate(names)]

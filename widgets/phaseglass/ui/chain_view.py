@@ -128,10 +128,6 @@ class ChainView(View):
     def _check_knob(self, proposal):
         return check_range(proposal, self._RANGES)
 
-    @traitlets.validate("coords")
-    def _check_coords(self, proposal):
-        return resolve_coords(tuple(proposal["value"]), self.target.names, self.target.dim)
-
     # ---------------------------------------------------------------- kernel
     def _make_kernel(self):
         uniform = DriftingUniform(self.drift) if self.uniform == "drifting" else FreshUniform()

@@ -137,9 +137,8 @@ class DivergenceView(View):
             self._refresh_run()
 
     # ------------------------------------------------------------ validation
-    @traitlets.validate("coords")
-    def _check_coords(self, proposal):
-        return resolve_coords(tuple(proposal["value"]), self.names, len(self.names))
+    def _coordinate_names(self):
+        return self.names
 
     @traitlets.validate("selected")
     def _check_selected(self, proposal):

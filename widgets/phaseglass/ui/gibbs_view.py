@@ -211,10 +211,6 @@ class ShiftGibbsView(View):
     def _check_knob(self, proposal):
         return check_range(proposal, self._RANGES)
 
-    @traitlets.validate("coords")
-    def _check_coords(self, proposal):
-        return resolve_coords(tuple(proposal["value"]), self.target.names, self.target.dim)
-
     # ------------------------------------------------------------- the kernel
     @property
     def conditionals(self):

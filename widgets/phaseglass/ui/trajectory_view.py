@@ -157,10 +157,6 @@ class TrajectoryView(View):
             raise traitlets.TraitError(f"`{name}` must have shape ({self.target.dim},), got {v.shape}")
         return v
 
-    @traitlets.validate("coords")
-    def _check_coords(self, proposal):
-        return resolve_coords(tuple(proposal["value"]), self.target.names, self.target.dim)
-
     # -------------------------------------------------------------- controls
     def _build_controls(self):
         names = self.target.names
