@@ -15,7 +15,7 @@ from ..core.run import CAUTION
 from ..core.sampling import Sampler, sample
 from ..core.slices import choose_limits
 from ..draw import draw_knob_grid
-from ._base import View, check_target, guarded
+from ._base import View, check_range, check_target, guarded
 
 __all__ = ["TuningMap", "measure_cell", "make_cell_kernel", "QUANTITIES"]
 
@@ -341,26 +341,12 @@ class TuningMap(View):
             raise traitlets.TraitError(f"`persistence` values must lie in [0, 1), got {v}")
         return v
 
-    @traitlets.validate("n_draws")
-    def _check_n_draws(self, proposal):
-        v = proposal["value"]
-        if v < 4:
-            raise traitlets.TraitError(f"`n_draws` must be >= 4 (ESS needs them), got {v}")
-        return v
+    _RANGES = {"n_draws": (4, None, "[]"), "n_chains": (1, None, "[]"),
+               "burn_in": (0, None, "[]"), "seed": (0, None, "[]")}
 
-    @traitlets.validate("n_chains")
-    def _check_n_chains(self, proposal):
-        v = proposal["value"]
-        if v < 1:
-            raise traitlets.TraitError(f"`n_chains` must be >= 1, got {v}")
-        return v
-
-    @traitlets.validate("burn_in", "seed")
-    def _check_non_negative(self, proposal):
-        v = proposal["value"]
-        if v < 0:
-            raise traitlets.TraitError(f"`{proposal['trait'].name}` must be >= 0, got {v}")
-        return v
+    @traitlets.validate(*_RANGES)
+    def _check_knob(self, proposal):
+        return check_range(proposal, self._RANGES)
 
     @traitlets.validate("persistence_index")
     def _check_index(self, proposal):
