@@ -112,7 +112,7 @@ class DivergenceView(View):
             raise ValueError("the run must have dim >= 2 for a pairwise view")
         self.target = target
         self.names = tuple(names)
-        super().__init__(figsize=(12.5, 4.6))
+        super().__init__(figsize=(10.0, 4.2))
         self.divergences = []
         self.trajectory = None
         self._marker_index = np.zeros(0, dtype=int)

@@ -178,7 +178,7 @@ class ShiftGibbsView(View):
         self.capacity = int(capacity)
         # the kernel validates `conditionals` and `grid_size` (TypeError/ValueError naming them)
         self.kernel = Gibbs(conditionals, shift=None, shared_stream=True, grid_size=grid_size)
-        super().__init__(figsize=(10.5, 5.2))
+        super().__init__(figsize=(9.0, 4.8))
         self.sampler = None
         self._run = None
         self._region = None
