@@ -105,39 +105,27 @@ def load_model(spec):
 
 # ------------------------------------------------------------------ argument types
 
-def _positive_float(text):
-    try:
-        v = float(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a number > 0, got {text!r}") from None
-    if not (v > 0 and v < float("inf")):
-        raise argparse.ArgumentTypeError(f"expected a number > 0, got {text!r}")
-    return v
+def _number(convert, accept, expected):
+    """An argparse type: ``convert`` the text, keep it if ``accept(value)``, else say ``expected``."""
+    def parse(text):
+        try:
+            v = convert(text)
+        except ValueError:
+            v = None
+        if v is None or not accept(v):
+            raise argparse.ArgumentTypeError(f"expected {expected}, got {text!r}")
+        return v
+
+    parse.__name__ = expected
+    return parse
 
 
-def _fraction(text):
-    try:
-        v = float(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a number in [0, 1), got {text!r}") from None
-    if not 0 <= v < 1:
-        raise argparse.ArgumentTypeError(f"expected a number in [0, 1), got {text!r}")
-    return v
+_positive_float = _number(float, lambda v: 0 < v < float("inf"), "a number > 0")
+_fraction = _number(float, lambda v: 0 <= v < 1, "a number in [0, 1)")
 
 
 def _count(minimum):
-    def parse(text):
-        try:
-            v = int(text)
-        except ValueError:
-            raise argparse.ArgumentTypeError(
-                f"expected a whole number >= {minimum}, got {text!r}") from None
-        if v < minimum:
-            raise argparse.ArgumentTypeError(f"expected a whole number >= {minimum}, got {text!r}")
-        return v
-
-    parse.__name__ = f"integer >= {minimum}"
-    return parse
+    return _number(int, lambda v: v >= minimum, f"a whole number >= {minimum}")
 
 
 def _coord_pair(text):
