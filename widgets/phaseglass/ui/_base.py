@@ -19,15 +19,79 @@ from matplotlib.figure import Figure
 
 from ..core.slices import resolve_coords
 
-__all__ = ["View", "guarded", "make_canvas_figure", "check_range", "check_target"]
+__all__ = ["View", "guarded", "make_canvas_figure", "check_range", "check_target", "number",
+           "plural", "COLUMN_WIDTH_IN"]
+
+#: Widest figure a view may have, in inches at 100 dpi: a notebook's output column is
+#: about 800 px wide in JupyterLab with the file browser open, and the canvas toolbar
+#: takes about 36 px beside the figure.
+COLUMN_WIDTH_IN = 7.6
+_DPI = 100
+
+
+def number(value, digits=4):
+    """A number as a reader wants it: ``digits`` significant digits, no float noise."""
+    try:
+        v = float(value)
+    except (TypeError, ValueError):
+        return str(value)
+    if not np.isfinite(v):
+        return "\u221e" if v > 0 else ("-\u221e" if v < 0 else "n/a")
+    if v == int(v) and abs(v) < 10 ** digits:
+        return str(int(v))
+    return f"{v:.{digits}g}"
+
+
+def plural(n, word, words=None):
+    """``"1 rejection"``, ``"2 rejections"``."""
+    n = int(n)
+    return f"{n} {word if n == 1 else (words or word + 's')}"
+
+
+_canvas_class = None
+
+
+def _canvas_type():
+    """ipympl's Canvas with a valid ``_data_url`` before the front end is ready.
+
+    ipympl (0.9 -- 0.10) keeps syncing ``_data_url`` until the front end says it is
+    initialised, and a draw in that window (a canvas drawn before display, or by a
+    background thread while the cell still runs) stores a bare base64 string
+    there. The front end loads it as a relative URL, the image is "broken", and the
+    first resize fails with "Error setting state: Failed to execute 'drawImage'":
+    the canvas stays 0x0 (ipympl issue #472). A canvas shown through its own
+    ``_repr_mimebundle_`` gets a proper ``data:`` URL; one inside a Box never does.
+    Completing the URL where it is set fixes every view at its root.
+    """
+    global _canvas_class
+    if _canvas_class is None:
+        from ipympl.backend_nbagg import Canvas
+
+        class ColumnCanvas(Canvas):
+            @traitlets.validate("_data_url")
+            def _complete_data_url(self, proposal):
+                url = proposal["value"]
+                if isinstance(url, str) and url and not url.startswith("data:"):
+                    return "data:image/png;base64," + url
+                return url
+
+        _canvas_class = ColumnCanvas
+    return _canvas_class
 
 
 def make_canvas_figure(figsize, *, css_class="pg-canvas"):
-    """A matplotlib Figure on an ipympl canvas (works without a front end)."""
-    from ipympl.backend_nbagg import Canvas, FigureManager
+    """A matplotlib Figure on an ipympl canvas (works without a front end).
 
-    fig = Figure(figsize=figsize, layout="constrained")
-    canvas = Canvas(fig)
+    ``figsize`` is in inches at 100 dpi; its width may not exceed ``COLUMN_WIDTH_IN``
+    so the figure fits a notebook's output column instead of being clipped.
+    """
+    from ipympl.backend_nbagg import FigureManager
+
+    if figsize[0] > COLUMN_WIDTH_IN + 1e-9:
+        raise ValueError(f"`figsize` width must be <= {COLUMN_WIDTH_IN} in (an 800 px output "
+                         f"column), got {figsize[0]}; stack the panels in rows instead")
+    fig = Figure(figsize=figsize, dpi=_DPI, layout="constrained")
+    canvas = _canvas_type()(fig)
     manager = FigureManager(canvas, 0)
     canvas.manager = manager
     canvas.header_visible = False
@@ -114,7 +178,7 @@ class View(widgets.VBox):
 
     status = traitlets.Unicode("", help="Text of the status line (plain text).")
 
-    def __init__(self, figsize=(9, 4), **kwargs):
+    def __init__(self, figsize=(COLUMN_WIDTH_IN, 4), **kwargs):
         self.figure = make_canvas_figure(figsize)
         self.last_error = None
         self._status_html = widgets.HTML(layout=widgets.Layout(min_height="1.6em"))

@@ -1,0 +1,164 @@
+"""Controls for numeric knobs: a slider to aim with and a box to type the exact value.
+
+A slider quantises: a log slider with 0.02 steps turns 0.05 into 0.0501. Linked
+with ``traitlets.link``, that snapped value flows back into the knob, and the
+figure, the readout and ``view.trajectory`` end up describing different numbers.
+``KnobControl`` binds one trait of a view to a slider and a number box so that
+
+* a value set from code (or typed) is kept exactly, and the slider only shows
+  the nearest position it can reach (its echo from the front end is ignored);
+* a drag sets the knob to the slider's position, rounded to three significant
+  digits so readouts stay short;
+* a value outside the slider's range widens the range instead of being clipped;
+* a refused value (the view's validator raises) lands in the view's status line
+  and the controls return to the knob's value.
+"""
+
+import math
+
+import ipywidgets as widgets
+import traitlets
+
+__all__ = ["KnobControl", "SLIDER_WIDTH"]
+
+#: Width of a slider's track and handle area: wide enough to aim (at least 160 px).
+SLIDER_WIDTH = "190px"
+_STEPS_PER_TRACK = 200  # slider positions across the whole range
+
+
+def _round_sig(v, digits=3):
+    if v == 0 or not math.isfinite(v):
+        return v
+    return round(v, digits - 1 - int(math.floor(math.log10(abs(v)))))
+
+
+class KnobControl(widgets.HBox):
+    """A label, a slider and a number box bound to ``owner.<trait>``.
+
+    Parameters
+    ----------
+    owner : View
+        The view whose trait is controlled (its ``status`` shows refused values).
+    trait : str
+        Name of a numeric trait of ``owner``.
+    low, high : float
+        Slider range (widened automatically when the knob leaves it).
+    log : bool
+        Logarithmic slider (for scales such as the step size).
+    integer : bool
+        Integer knob (``IntSlider`` and ``IntText``).
+    label : str
+        Text before the slider; never truncated.
+    css_class : str, optional
+        Class of the slider (the number box gets ``<css_class>-value``), for browser tests.
+
+    Attributes
+    ----------
+    slider : FloatLogSlider, FloatSlider or IntSlider
+    box : FloatText or IntText
+    """
+
+    def __init__(self, owner, trait, *, low, high, log=False, integer=False, label=None,
+                 css_class=None):
+        self.owner = owner
+        self.trait = trait
+        self.logscale = bool(log)
+        self.integer_knob = bool(integer)
+        self._quiet = False
+        help_text = owner.traits()[trait].help or ""
+        value = getattr(owner, trait)
+        track = widgets.Layout(width=SLIDER_WIDTH)
+        if self.integer_knob:
+            self.slider = widgets.IntSlider(value=int(value), min=int(low), max=int(high), step=1,
+                                            readout=False, layout=track)
+            self.box = widgets.IntText(value=int(value), layout=widgets.Layout(width="72px"))
+        elif self.logscale:
+            lo, hi = math.log10(low), math.log10(high)
+            self.slider = widgets.FloatLogSlider(base=10, min=lo, max=hi,
+                                                 step=(hi - lo) / _STEPS_PER_TRACK, readout=False,
+                                                 layout=track)
+            self.box = widgets.FloatText(value=float(value), layout=widgets.Layout(width="84px"))
+        else:
+            self.slider = widgets.FloatSlider(min=low, max=high, step=(high - low) / _STEPS_PER_TRACK,
+                                              readout=False, layout=track)
+            self.box = widgets.FloatText(value=float(value), layout=widgets.Layout(width="84px"))
+        self.slider.continuous_update = True
+        self.box.continuous_update = False  # commit on Enter or when the box loses focus
+        self.label = widgets.Label(label if label is not None else trait,
+                                   layout=widgets.Layout(flex="0 0 auto"))
+        if help_text:
+            for w in (self.label, self.slider, self.box):
+                w.tooltip = help_text
+        if css_class:
+            self.slider.add_class(css_class)
+            self.box.add_class(css_class + "-value")
+        super().__init__([self.label, self.slider, self.box],
+                         layout=widgets.Layout(align_items="center", flex="0 0 auto",
+                                               margin="0 12px 0 0"))
+        self.add_class("pg-knob")
+        self.show(value)
+        owner.observe(self._from_owner, names=trait)
+        self.slider.observe(self._from_slider, names="value")
+        self.box.observe(self._from_box, names="value")
+
+    # ------------------------------------------------------------------ view
+    @property
+    def disabled(self):
+        return self.slider.disabled
+
+    @disabled.setter
+    def disabled(self, flag):
+        self.slider.disabled = self.box.disabled = bool(flag)
+
+    def _position(self, v):
+        """Slider coordinate of value ``v`` (log10 for a log slider)."""
+        if self.logscale:
+            return math.log10(v) if v > 0 else -math.inf
+        return float(v)
+
+    def show(self, value):
+        """Move slider and box to ``value`` without touching the knob."""
+        self._quiet = True
+        try:
+            s = self.slider
+            pos = self._position(value)
+            if math.isfinite(pos):  # widen the range rather than clip the knob's value
+                if pos < s.min:
+                    s.min = math.floor(pos) if self.logscale else pos
+                if pos > s.max:
+                    s.max = math.ceil(pos) if self.logscale else pos
+            s.value = int(value) if self.integer_knob else float(value)
+            self.box.value = int(value) if self.integer_knob else float(value)
+        finally:
+            self._quiet = False
+
+    # -------------------------------------------------------------- bindings
+    def _from_owner(self, change):
+        self.show(change["new"])
+
+    def _echo(self, v):
+        """True when ``v`` is only the slider's snapped copy of the knob's value."""
+        if self.integer_knob:
+            return int(v) == int(getattr(self.owner, self.trait))
+        current = self._position(getattr(self.owner, self.trait))
+        s = self.slider
+        current = min(max(current, s.min), s.max)
+        return abs(self._position(v) - current) <= 0.5 * s.step + 1e-12
+
+    def _from_slider(self, change):
+        if self._quiet or self._echo(change["new"]):
+            return
+        v = change["new"] if self.integer_knob else _round_sig(float(change["new"]))
+        self._set(v)
+
+    def _from_box(self, change):
+        if self._quiet or change["new"] == getattr(self.owner, self.trait):
+            return
+        self._set(change["new"])
+
+    def _set(self, v):
+        try:
+            setattr(self.owner, self.trait, v)
+        except traitlets.TraitError as exc:
+            self.owner.status = f"error: {exc}"
+            self.show(getattr(self.owner, self.trait))
