@@ -23,6 +23,14 @@ def test_copies_every_example_notebook(tmp_path, capsys):
     assert tour["cells"], "the tour must have cells"
 
 
+def test_help_names_every_notebook_it_copies(capsys):
+    assert cli.main(["demo", "--help"]) == 0
+    text = " ".join(capsys.readouterr().out.split())
+    for nb in launch.notebooks_folder().glob("*.ipynb"):
+        assert nb.stem in text, nb.stem
+    assert "the tour notebook into" not in text  # it copies all of them, not one
+
+
 def test_never_overwrites_the_users_edits(tmp_path, capsys):
     work = tmp_path / "work"
     work.mkdir()

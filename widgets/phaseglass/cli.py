@@ -297,7 +297,7 @@ def _run_demo(args):
 
 #: name -> (help line, add_arguments(parser), run(args) -> exit code).
 SUBCOMMANDS = {
-    "demo": ("copy the tour notebook into a working folder and open it in JupyterLab",
+    "demo": ("copy every example notebook into a working folder and open the tour in JupyterLab",
              _add_demo_arguments, _run_demo),
     "report": ("run a sampler and write figures, summary.json and a self-contained report.html",
                _add_report_arguments, _run_report),

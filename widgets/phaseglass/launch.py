@@ -63,7 +63,16 @@ def copy_notebooks(folder, *, out=print):
     return kept
 
 
+def _notebook_names():
+    try:
+        return ", ".join(sorted(f.stem for f in notebooks_folder().glob("*.ipynb")))
+    except FileNotFoundError:
+        return "none found"
+
+
 def add_demo_arguments(p):
+    p.description = (f"Copy every example notebook ({_notebook_names()}) into a working folder "
+                     "and open the tour in JupyterLab.")
     p.add_argument("--dir", default=DEFAULT_DIR,
                    help=f"working folder for the notebooks (default ./{DEFAULT_DIR}); existing "
                         "notebooks there are never overwritten")
