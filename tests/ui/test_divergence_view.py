@@ -117,6 +117,50 @@ def test_list_and_coordinates_controls(view, funnel_run):
     assert view._ax_pair.get_xlabel() == "mu"
 
 
+def test_replay_knob_keeps_typed_steps_and_follows_the_divergence(view):
+    lengths = {tr.divergence_step for _, _, tr in view.divergences}
+    assert len(lengths) > 1, "the funnel run should have divergences at different steps"
+    for i, (_, _, tr) in enumerate(view.divergences):
+        view.select(i)
+        k = tr.divergence_step
+        assert view._step_slider.max == k == view._play.max
+        assert view._replay_knob.box.value == k == view.replay_step
+    view._replay_knob.box.value = 1  # typed
+    assert view.replay_step == 1 and view._step_slider.value == 1
+    view._replay_knob.box.value = view._end() + 5  # refused: the status says why
+    assert view.replay_step == 1 and "`replay_step` must be in" in view.status
+
+
+def test_replay_controls_are_disabled_until_there_is_a_divergence():
+    async def main():
+        view = DivergenceView(pg.demos.orchards("centred"), kernel=pg.HMC(0.4, 8), n_draws=300,
+                              warmup=0, chunk=100, seed=1)
+        before = [view._play.disabled, view._step_button.disabled, view._step_slider.disabled,
+                  view._replay_knob.box.disabled]
+        primary_before = "pg-primary" in view._x_pick._dom_classes
+        await view.wait()
+        return view, before, primary_before
+
+    view, before, primary_before = asyncio.run(main())
+    assert before == [True, True, True, True] and primary_before
+    assert view.divergences and view.trajectory is not None
+    assert not (view._play.disabled or view._step_button.disabled or view._step_slider.disabled)
+    # the control a browser test moves is now the replay slider (and only it)
+    assert "pg-primary" in view._step_slider._dom_classes
+    assert "pg-primary" not in view._x_pick._dom_classes
+
+
+def test_moving_the_primary_control_changes_the_pixels_at_once(view, blank_fraction):
+    view.figure.canvas.syncing_data_url = False
+    before = view.render()
+    assert "pg-primary" in view._step_slider._dom_classes
+    view._step_slider.value = 1  # what a drag does; no step() or play
+    assert view.replay_step == 1
+    after = view.render()
+    assert np.mean(np.any(before != after, axis=-1)) > 0.001
+    assert blank_fraction(after) < 0.9
+
+
 # ------------------------------------------------------------------ picking
 def test_a_pick_on_a_divergent_marker_selects_that_divergence(view, funnel_run):
     view.render()  # the transforms are settled after a draw
@@ -137,13 +181,21 @@ def test_a_pick_on_a_divergent_marker_selects_that_divergence(view, funnel_run):
 
 # ------------------------------------------------------------ no divergence
 def test_a_run_without_divergences_says_so(tmp_path):
-    run = pg.sample(pg.demos.correlated_gaussian(correlation=0.5), pg.HMC(0.2, 8), n_draws=60,
-                    n_chains=2, seed=2)
+    run = pg.sample(pg.demos.correlated_gaussian(dim=3, correlation=0.5), pg.HMC(0.2, 8),
+                    n_draws=60, n_chains=2, seed=2)
     assert run.n_divergent == 0
     view = DivergenceView(run)
     assert view.divergences == [] and view.selected == -1 and view.trajectory is None
-    assert "no divergent transitions" in view._readout.value
+    assert "no divergent transitions in 2 chains &times; 60 draws" in view._readout.value
     assert "never prove convergence" in view._readout.value
+    assert view._play.disabled and view._step_button.disabled and view._step_slider.disabled
+    # with nothing to replay, the coordinate picker is the control that changes the figure
+    assert "pg-primary" in view._x_pick._dom_classes
+    assert "pg-primary" not in view._step_slider._dom_classes
+    before = view.render()
+    view._x_pick.value = 2
+    assert view.coords == (2, 1)
+    assert np.any(view.render() != before)
     view.step()
     assert "no divergence" in view.status
     view.select(0)

@@ -2,6 +2,7 @@
 
 import asyncio
 import html
+from contextlib import contextmanager
 
 import ipywidgets as widgets
 import numpy as np
@@ -11,11 +12,13 @@ from matplotlib.ticker import MaxNLocator
 from ..core.kernels import HMC, Kernel, kernel_from_settings
 from ..core.run import CAUTION, Run
 from ..core.sampling import Sampler
-from ..core.slices import choose_limits, log_density_grid, resolve_coords
+from ..core.slices import choose_limits, resolve_coords
 from ..core.target import Target
 from ..draw import draw_energy_error, draw_log_density, draw_pair, draw_trajectory, legend
 from ..draw.style import key_handles, note
-from ._base import View, guarded
+from ._base import COLUMN_WIDTH_IN, View, guarded, number, plural
+from ._controls import KnobControl
+from ._shared import GridCache
 
 __all__ = ["DivergenceView"]
 
@@ -25,16 +28,16 @@ _PICK_RADIUS_PX = 6
 class DivergenceView(View):
     """Pairwise scatter of a run's draws with divergent transitions marked; replay any of them.
 
-    Left: two coordinates of every draw (chains pooled, user's scale) with the
-    divergent transitions as ``X`` markers; the one shown is ringed. Click a
+    Top left: two coordinates of every draw (chains pooled, user's scale) with
+    the divergent transitions as ``X`` markers; the one shown is ringed. Click a
     marker (a matplotlib pick event), choose it in the list, or call
-    ``select(index)`` to replay it. Middle: its leapfrog trajectory over the
+    ``select(index)`` to replay it. Top right: its leapfrog trajectory over the
     log-density slice through its start (the draw before the divergence), up
-    to the step where the energy error left the threshold. Right: the energy
+    to the step where the energy error left the threshold. Below: the energy
     error per leapfrog step. ``step()``, the Play control or the step slider
-    replay the trajectory one leapfrog step at a time. A readout gives the
-    number of divergences, which one is shown, where it diverged and its
-    energy error.
+    replay the trajectory one leapfrog step at a time (they are disabled while
+    there is nothing to replay). A readout gives the number of divergences,
+    which one is shown, where it diverged and its energy error.
 
     Given a Target instead of a Run, the view samples it itself: a short
     warm-up (run at once), then ``n_draws`` draws. In a notebook (an asyncio
@@ -112,15 +115,13 @@ class DivergenceView(View):
             raise ValueError("the run must have dim >= 2 for a pairwise view")
         self.target = target
         self.names = tuple(names)
-        super().__init__(figsize=(10.0, 4.2))
+        super().__init__(figsize=(COLUMN_WIDTH_IN, 6.8))
         self.divergences = []
         self.trajectory = None
         self._marker_index = np.zeros(0, dtype=int)
         self._syncing = False
-        self._applying = False
         self._built = False
-        self._grid_key = None
-        self.grid_evaluations = 0
+        self._grids = GridCache(target, n=70) if target is not None else None
         self._path = self._energy = self._density = None
         self._sampler = None
         self._run = run
@@ -245,22 +246,36 @@ class DivergenceView(View):
         self._play = widgets.Play(value=0, min=0, max=0, step=1, interval=250, show_repeat=False,
                                   description="replay")
         self._play.add_class("pg-replay-play")
-        self._step_slider = widgets.IntSlider(value=0, min=0, max=0, description="leapfrog step",
-                                              style={"description_width": "initial"})
-        self._step_slider.add_class("pg-replay-step")
-        for control in (self._play, self._step_slider):
-            traitlets.link((control, "value"), (self, "replay_step"))
+        traitlets.link((self._play, "value"), (self, "replay_step"))
+        self._replay_knob = KnobControl(self, "replay_step", low=0, high=1, integer=True,
+                                        label="leapfrog step", css_class="pg-replay-step")
+        self._step_slider = self._replay_knob.slider
         self._step_button = widgets.Button(description="step", icon="step-forward",
                                            layout=lay(width="90px"))
         self._step_button.add_class("pg-step")
         self._step_button.on_click(lambda _: self.step())
         self._readout = widgets.HTML()
         self._readout.add_class("pg-divergence-readout")
+        self._sync_controls()
         self.children = [
             widgets.HBox([self._pick_list, self._x_pick, self._y_pick]),
-            widgets.HBox([self._play, self._step_button, self._step_slider]),
+            widgets.HBox([self._play, self._step_button, self._replay_knob]),
             self.figure.canvas, self._readout, self._status_html,
         ]
+
+    def _sync_controls(self):
+        """Replay controls work only when there is a divergence to replay.
+
+        The control marked ``pg-primary`` (the one a browser test moves) is the
+        replay slider then, and the x coordinate picker otherwise: either
+        changes the figure at once.
+        """
+        idle = self.trajectory is None
+        self._play.disabled = self._step_button.disabled = idle
+        self._replay_knob.disabled = idle
+        self._step_slider.remove_class("pg-primary")
+        self._x_pick.remove_class("pg-primary")
+        (self._x_pick if idle else self._step_slider).add_class("pg-primary")
 
     def _on_list(self, change):
         if self._syncing or change["new"] == self.selected:
@@ -270,7 +285,11 @@ class DivergenceView(View):
     # ---------------------------------------------------------------- figure
     def _build_figure(self):
         fig = self.figure
-        self._ax_pair, self._ax, self._ax_err = fig.subplots(1, 3, width_ratios=[1.0, 1.0, 0.95])
+        # two rows so the figure fits a notebook column: the draws and the replay side by
+        # side, the energy error (which wants width for its steps) across the bottom
+        axd = fig.subplot_mosaic([["pair", "replay"], ["error", "error"]],
+                                 height_ratios=[1.75, 1.25])
+        self._ax_pair, self._ax, self._ax_err = axd["pair"], axd["replay"], axd["error"]
         empty = np.zeros((1, 0, len(self.names)))
         self._pair = draw_pair(self._ax_pair, empty, self.coords, names=self.names, markersize=2.5)
         self._pair.divergent.set_picker(True)
@@ -278,7 +297,7 @@ class DivergenceView(View):
         (self._ring,) = self._ax_pair.plot([], [], linestyle="none", marker="o", markersize=15,
                                            markerfacecolor="none", markeredgecolor="black",
                                            markeredgewidth=1.6, zorder=6, label="shown below")
-        self._ax_pair.set_title("draws; click a divergence to replay it", loc="left", fontsize=9)
+        self._ax_pair.set_title("draws: click an \u2716 to replay it", loc="left", fontsize=9)
         # until there is a divergence to replay, the replay panels are a message
         self._ax.set_axis_off()
         self._note = self._ax.text(0.5, 0.55, "no divergence to replay", transform=self._ax.transAxes,
@@ -290,7 +309,7 @@ class DivergenceView(View):
         p = self._pair
         handles = [p.points, p.divergent, self._ring]
         labels = ["draws (chains pooled)", "divergent transition", "replayed divergence"]
-        legend(self._ax_pair, loc="upper center", bbox_to_anchor=(0.5, -0.15), ncol=2,
+        legend(self._ax_pair, loc="upper center", bbox_to_anchor=(0.5, -0.13), ncol=2,
                handles=handles, labels=labels, fontsize=7, markerscale=1.0)
 
     def _make_replay_drawings(self, tr):
@@ -308,14 +327,15 @@ class DivergenceView(View):
                                      names=self._axis_names_all())
         self._path.autoscale = False
         self._energy = draw_energy_error(self._ax_err, tr)
+        self._ax_err.set_ylabel("energy error \u0394H")  # the long form does not fit this height
         self._ax_err.xaxis.set_major_locator(MaxNLocator(8, integer=True))
         self._offview = note(self._ax, "", loc="lower right")
         p = self._path
         handles = ([self._density.contours] if self._density is not None else []) + [
             p.path, p.start, p.momentum] + key_handles("divergent")
-        legend(self._ax, loc="upper center", bbox_to_anchor=(0.5, -0.15), ncol=2, handles=handles,
+        legend(self._ax, loc="upper center", bbox_to_anchor=(0.5, -0.13), ncol=2, handles=handles,
                labels=[h.get_label() for h in handles], fontsize=7)
-        self._ax_err.legend(loc="lower left", fontsize=7)
+        self._ax_err.legend(loc="center left", bbox_to_anchor=(1.01, 0.5), fontsize=7)
         e = self._energy
         self.set_dynamic([p.path, p.start, p.end, p.divergent, p.momentum, e.error, e.divergence,
                           e.verdict, self._offview])
@@ -347,16 +367,10 @@ class DivergenceView(View):
         return xlim, ylim
 
     def _grid(self, tr, xlim, ylim):
-        """The log-density slice through the trajectory's start; once per divergence and region."""
-        if self.target is None:
+        """The log-density slice through the trajectory's start (cached per region)."""
+        if self._grids is None:
             return None
-        key = (self.selected, self.coords, xlim, ylim)
-        if key != self._grid_key:
-            self._grid_cache = log_density_grid(self.target, self.coords, tr.positions[0], xlim,
-                                                ylim, n=70)
-            self._grid_key = key
-            self.grid_evaluations += 1
-        return self._grid_cache
+        return self._grids.get(self.coords, tr.positions[0], xlim, ylim)
 
     # ---------------------------------------------------------------- the run
     def _refresh_run(self):
@@ -404,18 +418,14 @@ class DivergenceView(View):
         c, t, tr = self.divergences[i]
         return f"{i + 1}: chain {c}, draw {t} (step {tr.divergence_step} of {tr.n_steps})"
 
-    class _Sync:
-        def __init__(self, view):
-            self.view = view
-
-        def __enter__(self):
-            self.view._syncing = True
-
-        def __exit__(self, *exc):
-            self.view._syncing = False
-
+    @contextmanager
     def _sync(self):
-        return self._Sync(self)
+        """Set controls from the view without their observers acting on it."""
+        self._syncing = True
+        try:
+            yield
+        finally:
+            self._syncing = False
 
     # -------------------------------------------------------------- selection
     def select(self, index):
@@ -443,8 +453,8 @@ class DivergenceView(View):
             self._make_replay_drawings(tr)
         with self._sync():
             self._pick_list.value = self.selected
-        for control in (self._play, self._step_slider):
-            control.max = end
+        self._play.max = self._step_slider.max = end
+        self._sync_controls()
         self._path.coords = tuple(self.coords)
         xlim, ylim = self._trajectory_limits(tr)
         grid = self._grid(tr, xlim, ylim)
@@ -521,7 +531,8 @@ class DivergenceView(View):
             if not np.all(np.isfinite(tip)):
                 text = "the diverging step reached non-finite values"
             elif not (x0 <= tip[0] <= x1 and y0 <= tip[1] <= y1):
-                text = f"the diverging step leaves the view,\nto ({tip[0]:.3g}, {tip[1]:.3g})"
+                text = (f"the diverging step leaves the view,\n"
+                        f"to ({number(tip[0], 3)}, {number(tip[1], 3)})")
         self._offview.set_text(text)
 
     # ------------------------------------------------------------ coordinates
@@ -562,25 +573,26 @@ class DivergenceView(View):
                 if self._remaining > 0 else "")
         n_div = run.n_divergent
         if n_div == 0:
-            text = (f"no divergent transitions in {run.n_chains} chains &times; {run.n_draws} "
-                    f"draws{busy}; nothing to replay")
+            text = (f"no divergent transitions in {plural(run.n_chains, 'chain')} &times; "
+                    f"{plural(run.n_draws, 'draw')}{busy}; nothing to replay")
             self._readout.value = mono.format(text) + caution
             return
-        parts = [f"{n_div} divergent transition{'s' if n_div != 1 else ''} of {total} "
-                 f"({n_div / max(total, 1):.1%}){busy}"]
+        parts = [f"{plural(n_div, 'divergent transition')} of {total} "
+                 f"({number(100 * n_div / max(total, 1), 2)} %){busy}"]
         if len(self.divergences) != n_div:
             parts.append(f"{len(self.divergences)} with replays")
         if self.trajectory is not None and self.selected >= 0:
             c, t, tr = self.divergences[self.selected]
             k = tr.divergence_step
             dh = float(tr.energy_error[k])
-            dh_text = f"&Delta;H = {dh:+.4g}" if np.isfinite(dh) else "&Delta;H non-finite"
+            dh_text = (f"&Delta;H = {'+' if dh > 0 else ''}{number(dh)}" if np.isfinite(dh)
+                       else "&Delta;H not finite")
             parts.append(f"showing {self.selected + 1} of {len(self.divergences)}: chain {c}, "
                          f"draw {t}")
             parts.append(f"diverged at leapfrog step {k} of {tr.n_steps} "
-                         f"(step size {float(tr.step_size):.3g}), {dh_text} "
-                         f"(threshold &plusmn;{tr.max_energy_error:g})")
-            parts.append(f"replay at step {self.replay_step}")
+                         f"(step size {number(tr.step_size, 3)}), {dh_text} "
+                         f"(threshold &plusmn;{number(tr.max_energy_error)})")
+            parts.append(f"replay at step {self.replay_step} of {k}")
         self._readout.value = mono.format(" | ".join(parts)) + caution
 
     # ---------------------------------------------------------------- settings
