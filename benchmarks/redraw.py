@@ -5,7 +5,16 @@ the machine and a markdown table of numbers measured in this one run; it is not 
 and asserts nothing.
 
 Question: how long after ``view.step_size = x`` is the new frame ready to send, for a
-``TrajectoryView`` on the 2-D ``glaze_ridge`` demo with 100 leapfrog steps?
+``TrajectoryView`` on the 2-D ``glaze_ridge`` demo with 100 leapfrog steps? And the same
+for the two other views whose knobs act on every move:
+
+* ``ChainView``: a step-size change redraws the preview of the next transition (chain 0's
+  trajectory from its current state, the chains not advanced), glaze ridge, 20 steps;
+* ``DivergenceView``: one step of a divergence replay (``replay_step += 1``) on the centred
+  orchards model, the first divergence of a short HMC run.
+
+Both are timed the same way (trait change -> frame handed to ipympl) against the same
+30 ms goal; they have no naive counterpart here.
 
 * fast path: what the view does (recompute the trajectory, update the artists in place,
   restore the cached background, draw the changed artists, hand the frame to ipympl).
@@ -136,6 +145,57 @@ def main():
           f"{naive_cpu_ms:.1f} | | |")
     print(f"| naive / fast | {ratio:.1f}x | | {ratio_cpu:.1f}x | >= {RATIO_GOAL:g}x | "
           f"{_met(ratio >= RATIO_GOAL)} / {_met(ratio_cpu >= RATIO_GOAL)} |")
+    print(_row("ChainView: step-size change -> preview frame", *chain_view_preview(repeats)))
+    print(_row("DivergenceView: one replay step -> frame", *divergence_replay(repeats)))
+
+
+def time_changes(view, change, n):
+    """Wall and thread-CPU seconds of ``change(view, k)`` for k = 1..n (each ends in a frame)."""
+    wall, cpu = [], []
+    for k in range(1, n + 1):
+        t0, c0 = time.perf_counter(), time.thread_time()
+        change(view, k)
+        cpu.append(time.thread_time() - c0)
+        wall.append(time.perf_counter() - t0)
+    if view.status.startswith("error"):
+        raise SystemExit(f"the {type(view).__name__} reported a problem: {view.status}")
+    return np.asarray(wall), np.asarray(cpu)
+
+
+def chain_view_preview(repeats):
+    view = pg.ChainView(pg.demos.glaze_ridge(), step_size=0.05, n_steps=20, seed=1)
+    view.figure.canvas.syncing_data_url = False
+    view.step(3)
+    view.render()
+    base = view.step_size
+
+    def change(v, k):
+        v.step_size = base * (1.0 + 0.004 * k)
+
+    return time_changes(view, change, repeats)
+
+
+def divergence_replay(repeats):
+    target = pg.demos.orchards("centred")
+    run = pg.sample(target, pg.HMC(0.2, 5), n_draws=300, warmup=200, n_chains=2, seed=1)
+    if not run.n_divergent:
+        raise SystemExit("the orchards run had no divergence to replay; change the seed")
+    view = pg.DivergenceView(run, coords=("log_tau", "effect_1"))
+    view.figure.canvas.syncing_data_url = False
+    tr = view.divergences[0][2]
+    steps = int(tr.divergence_step)
+    view.render()
+
+    def change(v, k):
+        v.replay_step = k % (steps + 1)
+
+    return time_changes(view, change, repeats)
+
+
+def _row(label, wall, cpu):
+    w, c = 1e3 * np.median(wall), 1e3 * np.median(cpu)
+    return (f"| {label} (ms) | {w:.1f} | {1e3 * np.quantile(wall, 0.9):.1f} | {c:.1f} | "
+            f"<= {FAST_GOAL_MS:g} | {_met(w <= FAST_GOAL_MS)} / {_met(c <= FAST_GOAL_MS)} |")
 
 
 def _met(ok):

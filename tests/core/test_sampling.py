@@ -259,7 +259,8 @@ def test_summary_of_a_divergent_run(orchard_runs, capsys):
     print(digest)
     out = capsys.readouterr().out
     assert "log_tau" in out and "effect_7" in out
-    assert pg.CAUTION in out
+    assert pg.CAUTION in " ".join(out.split())  # wrapped to fit a notebook column
+    assert max(len(line) for line in out.splitlines()) <= 100
     assert any("divergent transition" in w for w in digest.warnings)
     d = json.loads(json.dumps(digest.as_dict()))
     assert d["caution"] == pg.CAUTION

@@ -1,5 +1,7 @@
 """``Run``: the record of a sampling run, and its per-parameter digest."""
 
+import textwrap
+
 import numpy as np
 
 from . import diagnostics as dg
@@ -7,6 +9,8 @@ from .diagnostics import EBFMI_WARNING_LEVEL as EBFMI_LIMIT
 from .diagnostics import RHAT_WARNING_LEVEL as RHAT_LIMIT
 
 __all__ = ["Run", "Digest", "CAUTION"]
+
+_TEXT_WIDTH = 92  # characters per line of printed summaries
 
 #: Shown wherever diagnostics are presented.
 CAUTION = (
@@ -236,19 +240,20 @@ class Digest:
             rows.append(f"{name:<{width}} " + " ".join(cells))
         ri = self.run_info
         rows.append("")
-        rows.append(
+        rows.extend(textwrap.wrap(
             f"{ri['chains']} chains x {ri['draws_per_chain']} draws, acceptance {ri['acceptance']:.3f}, "
             f"{ri['divergences']} divergent, {ri['gradient_evaluations']} gradient evaluations, "
-            f"ESS per gradient {ri['ess_per_gradient']:.3g}"
-        )
+            f"ESS per gradient {ri['ess_per_gradient']:.3g}", _TEXT_WIDTH))
         bf = ", ".join("nan" if not np.isfinite(b) else f"{b:.2f}" for b in ri["ebfmi"])
         rows.append(f"E-BFMI per chain: {bf}")
         if self.warnings:
             rows.append("Warnings:")
-            rows.extend(f"  - {w}" for w in self.warnings)
+            for w in self.warnings:  # wrapped: a notebook's output column is ~95 characters
+                rows.extend(textwrap.wrap(w, _TEXT_WIDTH, initial_indent="  - ",
+                                          subsequent_indent="    "))
         else:
             rows.append("No problem detected by these checks.")
-        rows.append(CAUTION)
+        rows.extend(textwrap.wrap(CAUTION, _TEXT_WIDTH))
         return "\n".join(rows)
 
     def __repr__(self):
