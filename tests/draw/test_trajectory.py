@@ -211,3 +211,124 @@ def test_artists_exclude_the_axes_and_remove_takes_them_off(ax, smooth_traj):
     d.remove()
     assert not ax.lines and not ax.patches
     assert ax in ax.figure.axes
+
+
+# ------------------------------------------------------- legible and inside the Axes
+
+def _figure(width, height, dpi=100):
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+
+    fig = Figure(figsize=(width, height), dpi=dpi, layout="constrained")
+    FigureCanvasAgg(fig)
+    return fig
+
+
+def _colour_pixels(fig, colour, tol=40):
+    """Pixels of ``fig`` (rendered now) within ``tol`` of ``colour``: boolean mask, row 0 on top."""
+    from matplotlib.colors import to_rgb
+
+    fig.canvas.draw()
+    img = np.asarray(fig.canvas.buffer_rgba())[..., :3].astype(float)
+    return np.all(np.abs(img - 255 * np.array(to_rgb(colour))) < tol, axis=-1)
+
+
+@pytest.mark.parametrize("size", [(3.0, 2.2), (3.8, 3.2), (3.8, 6.0)])
+def test_energy_error_tick_labels_never_overlap(smooth_traj, size):
+    fig = _figure(*size)
+    ax = fig.add_subplot()
+    draw_energy_error(ax, smooth_traj)
+    fig.canvas.draw()
+    renderer = fig.canvas.get_renderer()
+    labels = [t for t in ax.get_yticklabels() if t.get_visible() and t.get_text()]
+    boxes = sorted((t.get_window_extent(renderer) for t in labels), key=lambda b: b.y0)
+    for low, high in zip(boxes, boxes[1:]):
+        assert high.y0 >= low.y1, [t.get_text() for t in labels]
+    values = set(ax.get_yticks())
+    assert {0.0, 1000.0, -1000.0} <= values  # zero and the divergence threshold always
+    assert all(t.get_text().lstrip("\u2212").isdigit() for t in labels)  # plain numbers
+
+
+def test_energy_error_ticks_follow_the_room_there_is(smooth_traj):
+    counts = []
+    for height in (2.2, 8.0):
+        fig = _figure(3.8, height)
+        ax = fig.add_subplot()
+        draw_energy_error(ax, smooth_traj)
+        fig.canvas.draw()
+        counts.append(len(ax.get_yticks()))
+    assert counts[1] > counts[0]  # a tall axis labels the decades in between
+
+
+def test_off_scale_divergence_marker_is_drawn_whole(divergent_traj):
+    colour = style.OKABE_ITO["vermillion"]
+    fig = _figure(3.8, 3.0)
+    ax = fig.add_subplot()
+    d = draw_energy_error(ax, divergent_traj)
+    k = divergent_traj.divergence_step
+    assert d.divergence.get_xdata()[0] == k
+    off_scale = _colour_pixels(fig, colour)  # its value is near the top of the scale
+    # every pixel of the X lies inside the Axes, and it is as big as an X in mid-air
+    h = off_scale.shape[0]
+    rows, cols = np.nonzero(off_scale)
+    b = ax.bbox
+    assert np.all((cols >= b.x0 - 1) & (cols <= b.x1 + 1))
+    assert np.all((h - rows >= b.y0 - 1) & (h - rows <= b.y1 + 1))
+    d.divergence.set_data([k], [0.5])
+    in_view = _colour_pixels(fig, colour)
+    assert in_view.sum() > 20
+    assert off_scale.sum() >= 0.95 * in_view.sum()
+    # the drawn position is at the edge of the frame, the data keep the true value
+    d.divergence.set_data([k], [1e9])
+    fig.canvas.draw()
+    shown = ax.transData.transform(d.divergence.shown_xydata)[0]
+    assert b.y1 - 20 < shown[1] < b.y1
+    assert d.divergence.get_ydata()[0] == 1e9
+
+
+def test_divergent_step_out_of_view_ends_on_the_frame(divergent_traj):
+    tr = divergent_traj
+    k = tr.divergence_step
+    fig = _figure(3.8, 3.0)
+    ax = fig.add_subplot()
+    d = draw_trajectory(ax, tr)
+    x0, y0 = tr.positions[k - 1]
+    ax.set_xlim(x0 - 0.01, x0 + 0.01)  # the blow-up leaves this small window
+    ax.set_ylim(y0 - 0.01, y0 + 0.01)
+    assert not (ax.viewLim.contains(*tr.positions[k]))
+    fig.canvas.draw()
+    assert_allclose(d.divergent.get_xydata(), tr.positions[[k - 1, k]])  # data unchanged
+    start, end = ax.transData.transform(d.divergent.shown_xydata)
+    b = ax.bbox
+    radius = d.divergent.get_markersize() / 2 * fig.dpi / 72
+    assert b.x0 + radius <= end[0] <= b.x1 - radius and b.y0 + radius <= end[1] <= b.y1 - radius
+    assert min(end[0] - b.x0, b.x1 - end[0], end[1] - b.y0, b.y1 - end[1]) < radius + 3
+    # ... in the direction the trajectory flew off
+    true = ax.transData.transform(tr.positions[[k - 1, k]])
+    u, w = true[1] - true[0], end - start
+    assert abs(u[0] * w[1] - u[1] * w[0]) < 1e-6 * np.linalg.norm(u) * np.linalg.norm(w)
+    assert u @ w > 0
+
+
+def test_long_momentum_arrow_ends_inside_the_axes(gaussian):
+    tr = pg.leapfrog(gaussian, [0.0, 0.0], [3.0, 1.0], 0.1, 8)
+    fig = _figure(3.8, 3.0)
+    ax = fig.add_subplot()
+    d = draw_trajectory(ax, tr, momentum_scale=10.0)  # tip at (30, 10): far outside
+    d.autoscale = False
+    ax.set_xlim(-2, 2)
+    ax.set_ylim(-2, 2)
+    fig.canvas.draw()
+    assert_allclose(d.momentum_ends, [[0.0, 0.0], [30.0, 10.0]])  # the true arrow
+    tail, tip = d.momentum.shown_ends
+    assert_allclose(tail, [0.0, 0.0])
+    assert -2 < tip[0] < 2 and -2 < tip[1] < 2 and tip[0] > 1.8  # up to the right edge
+    assert abs(tip[1] - tip[0] / 3.0) < 1e-9  # along the momentum
+    # the head is drawn: the arrow's colour reaches the right edge of the Axes
+    mask = _colour_pixels(fig, style.MOMENTUM["color"])
+    cols = np.nonzero(mask)[1]
+    assert cols.max() > ax.bbox.x1 - 12 and cols.max() <= ax.bbox.x1
+    # an arrow inside the view is drawn as it is
+    d.update(pg.leapfrog(gaussian, [0.0, 0.0], [0.1, 0.05], 0.1, 8))
+    fig.canvas.draw()
+    assert_allclose(d.momentum.shown_ends, d.momentum_ends)

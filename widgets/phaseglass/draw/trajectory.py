@@ -7,6 +7,7 @@ from matplotlib.axes import Axes
 from matplotlib.lines import Line2D
 from matplotlib.patches import FancyArrowPatch
 from matplotlib.text import Text
+from matplotlib.ticker import FuncFormatter, Locator, NullLocator
 
 from . import style
 from ._base import Drawing, exclude_from_autoscale
@@ -43,6 +44,123 @@ def one_chain(trajectory, chain=0):
         step_size=float(eps[chain] if eps.size > 1 else eps[0]), n_steps=trajectory.n_steps,
         max_energy_error=trajectory.max_energy_error,
     )
+
+
+# ------------------------------------------------------- keeping marks inside the Axes
+
+def _inner_box(ax, pad):
+    """The Axes' box in display pixels, shrunk by ``pad`` pixels on every side (or None)."""
+    b = ax.bbox
+    box = (b.x0 + pad, b.y0 + pad, b.x1 - pad, b.y1 - pad)
+    return box if box[2] > box[0] and box[3] > box[1] else None
+
+
+def _inside(p, box):
+    return box[0] <= p[0] <= box[2] and box[1] <= p[1] <= box[3]
+
+
+def _cut_at_box(tail, tip, box):
+    """``tip`` moved back along ``tail -> tip`` onto the edge of ``box`` (tail inside)."""
+    d = tip - tail
+    t = 1.0
+    for axis, (lo, hi) in enumerate(((box[0], box[2]), (box[1], box[3]))):
+        if tail[axis] + t * d[axis] > hi:
+            t = (hi - tail[axis]) / d[axis]
+        elif tail[axis] + t * d[axis] < lo:
+            t = (lo - tail[axis]) / d[axis]
+    return tail + max(t, 0.0) * d
+
+
+class _ArrowInView(FancyArrowPatch):
+    """An arrow shortened at draw time so that its head stays inside its Axes.
+
+    Its positions keep the true tail and tip (``get_path``, ``momentum_ends``); a
+    tip beyond the view is drawn on the edge of the Axes, head and all, instead of
+    being cut off. An arrow whose tail is outside the view is not drawn.
+    """
+
+    #: Tail and tip as last drawn (data coordinates), None when the arrow was not drawn.
+    shown_ends = None
+
+    def draw(self, renderer):
+        ends = [np.asarray(p, dtype=float) for p in self._posA_posB]
+        self.shown_ends = np.array(ends)
+        ax = self.axes
+        if ax is None or not self.get_visible():
+            return super().draw(renderer)
+        to_px = self.get_transform()
+        tail, tip = to_px.transform(ends[0]), to_px.transform(ends[1])
+        box = _inner_box(ax, renderer.points_to_pixels(3.0))
+        if box is None or not np.all(np.isfinite([tail, tip])) or _inside(tip, box):
+            return super().draw(renderer)
+        if not _inside(tail, box):
+            self.shown_ends = None
+            return None
+        shown = to_px.inverted().transform(_cut_at_box(tail, tip, box))
+        self.shown_ends = np.array([ends[0], shown])
+        self._posA_posB = [tuple(ends[0]), tuple(shown)]
+        try:
+            return super().draw(renderer)
+        finally:
+            self._posA_posB = [tuple(ends[0]), tuple(ends[1])]
+
+
+class _LineInView(Line2D):
+    """A Line2D whose marked end is drawn inside its Axes, never cut by the frame.
+
+    ``keep="segment"``: a two-point segment from a point in view to one that may
+    be far outside (a divergence) is shortened onto the edge of the Axes, so its
+    end marker is drawn whole there. ``keep="points"``: each point is pulled
+    inside the frame (a marker for a value off the scale sits on the edge). Only
+    drawing changes: ``get_xydata`` keeps the true values.
+    """
+
+    def __init__(self, *args, keep="segment", **kwargs):
+        super().__init__(*args, **kwargs)
+        self.keep = keep
+
+    def _shown(self, xy, renderer):
+        ax = self.axes
+        pad = renderer.points_to_pixels(0.5 * self.get_markersize() + 1.0)
+        box = _inner_box(ax, pad) if ax is not None else None
+        if box is None or len(xy) == 0:
+            return None
+        to_px = self.get_transform()
+        px = to_px.transform(np.where(np.isfinite(xy), xy, np.sign(xy) * 1e300))
+        if not np.all(np.isfinite(px)):
+            return None
+        if self.keep == "points":
+            moved = np.column_stack([np.clip(px[:, 0], box[0], box[2]),
+                                     np.clip(px[:, 1], box[1], box[3])])
+        else:
+            if len(px) != 2 or not _inside(px[0], box) or _inside(px[1], box):
+                return None
+            moved = np.vstack([px[0], _cut_at_box(px[0], px[1], box)])
+        if np.array_equal(moved, px):
+            return None
+        return to_px.inverted().transform(moved)
+
+    #: Positions as last drawn (data coordinates).
+    shown_xydata = None
+
+    def draw(self, renderer):
+        xy = self.get_xydata()
+        shown = self._shown(xy, renderer) if self.get_visible() else None
+        self.shown_xydata = xy.copy() if shown is None else shown
+        if shown is None:
+            return super().draw(renderer)
+        self.set_data(shown[:, 0], shown[:, 1])
+        try:
+            return super().draw(renderer)
+        finally:
+            self.set_data(xy[:, 0], xy[:, 1])
+            self.stale = False
+
+
+def _line_in_view(ax, keep, **kwargs):
+    line = _LineInView([], [], keep=keep, **kwargs)
+    ax.add_line(line)
+    return line
 
 
 def _check_upto(upto, n_steps):
@@ -102,10 +220,14 @@ class TrajectoryDrawing(Drawing):
         trajectory is shown partly (``upto``).
     divergent : Line2D
         Dashed segment from the last safe step to the step that diverged, with
-        an ``X`` at the latter; empty when there is no divergence.
+        an ``X`` at the latter; empty when there is no divergence. A step that
+        flew out of view is drawn on the edge of the Axes, in its direction, with
+        the ``X`` whole (the data keep the true position).
     momentum : FancyArrowPatch
         The initial momentum, drawn as the velocity it starts, ``M^-1 p0``
         (``p0`` with the identity metric), times ``momentum_scale``, from the start.
+        An arrow longer than the view is drawn up to the edge of the Axes, head
+        included (``momentum_ends`` keep the true tip).
     coords : tuple of int
     momentum_scale : float
     metric : Metric
@@ -208,11 +330,12 @@ def draw_trajectory(ax, trajectory, *, coords=(0, 1), accepted=None, chain=0, up
         momentum_scale = float(traj.step_size) * max(traj.n_steps / 4.0, 2.0)
     style.dress(ax)
     (path,) = ax.plot([], [], label="leapfrog path", zorder=3, **style.PATH)
-    (div,) = ax.plot([], [], label="divergent step", markevery=[1], zorder=4, **style.DIVERGENT)
+    div = _line_in_view(ax, "segment", label="divergent step", markevery=[1], zorder=4,
+                        **style.DIVERGENT)
     exclude_from_autoscale(div)
     (start,) = ax.plot([], [], label="start", zorder=5, **style.START)
     (end,) = ax.plot([], [], markersize=8, zorder=5, **style.UNDECIDED)
-    arrow = FancyArrowPatch((0, 0), (0, 0), arrowstyle="-|>", mutation_scale=12, linewidth=1.6,
+    arrow = _ArrowInView((0, 0), (0, 0), arrowstyle="-|>", mutation_scale=12, linewidth=1.6,
                             color=style.MOMENTUM["color"], label="initial momentum", zorder=4,
                             shrinkA=0, shrinkB=0)
     ax.add_patch(arrow)
@@ -248,6 +371,62 @@ def _verdict(traj, upto):
             f"acceptance probability {float(_accept_prob(final)):.3f}")
 
 
+class _SpacedTicks(Locator):
+    """Ticks picked from ``candidates`` (most important first) that never crowd.
+
+    At draw time each candidate in view is kept only when its label is at least
+    ``spacing`` label heights away from every tick kept before it, so the choice
+    follows the Axes' real size and dpi: a short symlog axis keeps 0, the
+    threshold and +-1, a tall one adds the decades in between.
+    """
+
+    def __init__(self, candidates, spacing=1.6):
+        self.candidates = candidates
+        self.spacing = float(spacing)
+
+    def __call__(self):
+        lo, hi = sorted(self.axis.get_view_interval())
+        values = [c for c in self.candidates if lo <= c <= hi]
+        ax = self.axis.axes
+        if ax is None:
+            return sorted(values)
+        try:
+            size = self.axis.majorTicks[0].label1.get_size()
+        except (IndexError, AttributeError):
+            size = 8.0
+        gap = self.spacing * size * ax.figure.dpi / 72.0
+        along = 1 if self.axis.axis_name == "y" else 0
+        kept, where = [], []
+        for v in values:
+            px = ax.transData.transform((0.0, v) if along else (v, 0.0))[along]
+            if all(abs(px - w) >= gap for w in where):
+                kept.append(v)
+                where.append(px)
+        return sorted(kept)
+
+    def tick_values(self, vmin, vmax):
+        return [c for c in self.candidates if vmin <= c <= vmax]
+
+
+def _energy_ticks(threshold):
+    """Tick candidates for a symlog energy-error axis, most important first."""
+    threshold = float(threshold)
+    out = [0.0, threshold, -threshold, 1.0, -1.0]
+    decade = 10.0
+    middle = []
+    while decade < 0.5 * threshold:
+        middle += [decade, -decade]
+        decade *= 10.0
+    # every other decade first, so a tight axis still gets evenly spread labels
+    out += middle[2::4] + middle[3::4] + middle[0::4] + middle[1::4]
+    return out
+
+
+def _plain_number(v, pos=None):
+    text = f"{v:g}"
+    return text.replace("-", "\u2212")
+
+
 @dataclass(repr=False, eq=False)
 class EnergyErrorDrawing(Drawing):
     """Returned by ``draw_energy_error``.
@@ -260,8 +439,8 @@ class EnergyErrorDrawing(Drawing):
     thresholds : list of Line2D
         The divergence threshold at ``+max_energy_error`` and ``-max_energy_error``.
     divergence : Line2D
-        ``X`` at the step that diverged (its value clipped to twice the threshold so
-        it stays in view); empty otherwise.
+        ``X`` at the step that diverged (a value beyond the scale, or infinite, is
+        drawn on the edge of the Axes, whole); empty otherwise.
     verdict : Text
         The Axes title (left): final energy error and acceptance probability
         ``min(1, exp(-dH))``, or where it diverged; on a linear axis also a note
@@ -301,8 +480,8 @@ class EnergyErrorDrawing(Drawing):
         if traj.divergent and upto >= traj.divergence_step:
             k = traj.divergence_step
             v = traj.energy_error[k]
-            v = v if np.isfinite(v) else thr * 1.2
-            self.divergence.set_data([k], [np.clip(v, -2 * thr, 2 * thr)])
+            v = v if np.isfinite(v) else thr * 1e6  # beyond the scale: drawn on the edge
+            self.divergence.set_data([k], [v])
             self.divergence.set_label("divergent step")
         else:
             self.divergence.set_data([], [])
@@ -313,6 +492,9 @@ class EnergyErrorDrawing(Drawing):
         text = _verdict(traj, upto)
         if self.scale == "symlog":
             self.ax.set_ylim(-2.5 * thr, 2.5 * thr)
+            ticks = self.ax.yaxis.get_major_locator()
+            if isinstance(ticks, _SpacedTicks):
+                ticks.candidates = _energy_ticks(thr)
         else:
             finite = err[np.isfinite(err)]
             top = max(float(np.max(np.abs(finite))) if finite.size else 1.0, 1e-3) * 1.15
@@ -359,6 +541,10 @@ def draw_energy_error(ax, trajectory, *, chain=0, upto=None, scale="symlog", lin
     style.dress(ax)
     if scale == "symlog":
         ax.set_yscale("symlog", linthresh=linthresh, linscale=3.0)  # room for small errors
+        # plain numbers, and only as many ticks as the axis has room for (no minor ticks)
+        ax.yaxis.set_major_locator(_SpacedTicks(_energy_ticks(traj.max_energy_error)))
+        ax.yaxis.set_major_formatter(FuncFormatter(_plain_number))
+        ax.yaxis.set_minor_locator(NullLocator())
     ax.axhline(0.0, **style.REFERENCE, zorder=1)
     thresholds = [
         ax.axhline(sign * traj.max_energy_error, zorder=1, label=lab, **style.THRESHOLD)
@@ -366,8 +552,9 @@ def draw_energy_error(ax, trajectory, *, chain=0, upto=None, scale="symlog", lin
     ]
     (error,) = ax.plot([], [], label="energy error \u0394H", zorder=3,
                        **{**style.PATH, "markersize": 3.5})
-    (div,) = ax.plot([], [], linestyle="none", label="divergent step", zorder=4,
-                     **{k: v for k, v in style.DIVERGENT.items() if k != "linestyle"})
+    div = _line_in_view(ax, "points", linestyle="none", label="divergent step", zorder=4,
+                        **{k: v for k, v in style.DIVERGENT.items() if k != "linestyle"})
+    exclude_from_autoscale(div)
     verdict = ax.set_title("", loc="left", fontsize=9)
     ax.set_xlabel("leapfrog step")
     ax.set_ylabel("energy error \u0394H = H(step) \u2212 H(0)")
