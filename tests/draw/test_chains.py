@@ -35,12 +35,15 @@ def test_uniform_sequence_marks_rejections_hollow(ax):
     assert_allclose(d.trail.get_ydata(), u)
     assert d.rejected.get_markerfacecolor() == "none"
     assert d.accepted.get_markerfacecolor() != "none"
-    assert "3 rejections in 6 iterations, in 2 run(s); longest run 2" in d.summary.get_text()
+    assert d.summary.get_text() == "3 rejections in 6 iterations: 2 runs, longest 2"
     before = ids(d)
     d.update(u[:3], acc[:3])
     assert same_artists(d, before)
     assert_allclose(d.rejected.get_ydata(), [0.9, 0.95])
     assert len(d.accept_prob.get_xdata()) == 0
+    assert d.summary.get_text() == "2 rejections in 3 iterations: 1 run, longest 2"
+    d.update(u[:2], np.array([False, True]))
+    assert d.summary.get_text() == "1 rejection in 2 iterations: 1 run, longest 1"  # no "1 rejections"
 
 
 def test_rejection_runs_and_input_checks(ax):

@@ -1,4 +1,5 @@
-"""Per-chain views of draws: traces, autocorrelation, running bulk ESS, ESS per gradient."""
+"""Per-chain views of draws: traces, autocorrelation, running bulk ESS, ESS per gradient,
+and a chain's next transition drawn as a preview."""
 
 from dataclasses import dataclass
 
@@ -7,12 +8,12 @@ from matplotlib.axes import Axes
 from matplotlib.lines import Line2D
 
 from . import style
-from ._base import Drawing, as_chain_draws, check_divergent
+from ._base import Drawing, as_chain_draws, check_divergent, exclude_from_autoscale
 
 __all__ = [
     "draw_traces", "draw_autocorrelation", "draw_running_ess", "draw_ess_per_gradient",
-    "TracesDrawing", "AutocorrelationDrawing", "RunningEssDrawing", "EssPerGradientDrawing",
-    "running_ess",
+    "draw_next_transition", "TracesDrawing", "AutocorrelationDrawing", "RunningEssDrawing",
+    "EssPerGradientDrawing", "NextTransitionDrawing", "running_ess",
 ]
 
 _MIN_ESS_DRAWS = 8  # fewer draws per chain give ESS estimates too noisy to draw
@@ -416,3 +417,134 @@ def draw_ess_per_gradient(ax, data, labels=None, *, horizontal=None,
         ax.ticklabel_format(axis="y", style="sci", scilimits=(-2, 3))
     d = EssPerGradientDrawing(ax=ax, bars=list(bars.patches), values=texts, horizontal=horizontal)
     return d.update(v)
+
+
+# -------------------------------------------------------------- next transition
+
+#: A transition that has not happened yet: dashed and faded black (no chain colour), with a
+#: diamond (never a circle) at the proposal, so it cannot be read as a recorded one.
+_NEXT_PATH = dict(color=style.OKABE_ITO["black"], linestyle=(0, (4.0, 2.5)), linewidth=1.3,
+                  alpha=0.75, marker="o", markersize=2.0)
+_NEXT_END = dict(marker="D", markersize=7.5, linestyle="none", markeredgewidth=1.5)
+_NEXT_END_COLOURS = {True: (style.ACCEPTED["color"], style.ACCEPTED["color"]),
+                     False: (style.REJECTED["markeredgecolor"], "none"),
+                     None: ("#555555", "#BBBBBB")}
+
+
+def _next_parts(transition, coords, chain):
+    """Split a pending transition into (path, divergent segment, proposal), each (k, 2)."""
+    from phaseglass.core.leapfrog import Trajectory
+
+    from .trajectory import one_chain
+
+    none = np.empty((0, 2))
+    if transition is None:
+        return none, none, none
+    if isinstance(transition, Trajectory):
+        traj = one_chain(transition, chain)
+        pos = traj.positions[:, list(coords)]
+        if traj.divergent:
+            k = traj.divergence_step
+            tip = pos[k] if np.all(np.isfinite(pos[k])) else pos[k - 1]
+            return pos[:k], np.vstack([pos[k - 1], tip]), none
+        return pos, none, pos[-1:]
+    pts = np.asarray(transition, dtype=float)
+    if pts.ndim != 2 or pts.shape[0] < 2 or pts.shape[1] <= max(coords):
+        raise ValueError("`transition` must be a Trajectory or points shaped (k >= 2, dim) "
+                         f"covering coordinates {tuple(coords)}, got shape {pts.shape}")
+    pos = pts[:, list(coords)]
+    return pos, none, pos[-1:]
+
+
+@dataclass(repr=False, eq=False)
+class NextTransitionDrawing(Drawing):
+    """Returned by ``draw_next_transition``.
+
+    Attributes
+    ----------
+    ax : Axes
+    path : Line2D
+        Dashed, faded path of the pending transition: the leapfrog positions up
+        to the last safe step, or the points given (a random walk's
+        ``[start, proposal]``); empty when nothing is previewed.
+    end : Line2D
+        Diamond at the proposal: filled when it would be accepted, hollow when
+        rejected, grey when not given; empty for a divergent transition.
+    divergent : Line2D
+        Dashed segment to the step that would diverge, with an ``X``; empty otherwise.
+    coords : tuple of int
+    """
+
+    ax: Axes
+    path: Line2D
+    end: Line2D
+    divergent: Line2D
+    coords: tuple
+
+    def update(self, transition=None, accepted=None, *, chain=0):
+        """Show another pending transition (None shows nothing) with the same artists."""
+        path, div, end = _next_parts(transition, self.coords, chain)
+        self.path.set_data(path[:, 0], path[:, 1])
+        self.divergent.set_data(div[:, 0], div[:, 1])
+        self.end.set_data(end[:, 0], end[:, 1])
+        edge, face = _NEXT_END_COLOURS[None if accepted is None else bool(accepted)]
+        self.end.set_color(edge)
+        self.end.set_markeredgecolor(edge)
+        self.end.set_markerfacecolor(face)
+        self._rescale()
+        return self
+
+
+def draw_next_transition(ax, transition=None, accepted=None, *, coords=(0, 1), chain=0,
+                         names=None, label="next transition (preview)"):
+    """Draw the transition a chain would take next, as a preview (dashed, faded, a diamond).
+
+    Beside the recorded draws and the latest trajectory, this shows what the
+    next transition *would* do with the current knobs, before it is taken.
+
+    Parameters
+    ----------
+    ax : Axes
+    transition : Trajectory or array_like, shape (k, dim), optional
+        A leapfrog Trajectory (single, or a batch with ``chain``) on the
+        sampler's scale, or the points of a move without a trajectory (a random
+        walk's ``[start, proposal]``). None draws nothing (yet).
+    accepted : bool, optional
+        Whether the proposal would be accepted (filled diamond) or rejected (hollow).
+    coords : pair of int or str
+    chain : int
+        Row of a batch Trajectory.
+    names : sequence of str, optional
+        Coordinate names (to resolve ``coords`` given by name).
+    label : str
+        Legend label of the path.
+
+    Returns
+    -------
+    NextTransitionDrawing
+        ``update(transition=None, accepted=None, *, chain=0)`` reuses the artists.
+
+    Examples
+    --------
+    >>> import phaseglass as pg
+    >>> from matplotlib.figure import Figure
+    >>> tr = pg.leapfrog(pg.demos.correlated_gaussian(), [1.0, 0.0], [0.0, 1.0], 0.2, 12)
+    >>> d = draw_next_transition(Figure().add_subplot(), tr, accepted=True)
+    >>> d.path.get_xydata().shape
+    (13, 2)
+    """
+    from phaseglass.core.slices import resolve_coords
+
+    if names is not None:
+        coords = resolve_coords(coords, names, len(names))
+    else:
+        coords = tuple(int(c) for c in coords)
+        if len(coords) != 2 or min(coords) < 0:
+            raise ValueError(f"`coords` must be two non-negative indices, got {coords}")
+    (path,) = ax.plot([], [], label=label, zorder=6, **_NEXT_PATH)
+    (div,) = ax.plot([], [], label="_next divergent step", markevery=[1], zorder=6,
+                     **{**style.DIVERGENT, "linestyle": (0, (4.0, 2.5)), "alpha": 0.85})
+    exclude_from_autoscale(div)
+    (end,) = ax.plot([], [], label="_next proposal", zorder=7, **_NEXT_END)
+    d = NextTransitionDrawing(ax=ax, path=path, end=end, divergent=div, coords=tuple(coords))
+    return d.update(transition, accepted, chain=chain)

@@ -10,7 +10,8 @@ from matplotlib.text import Text
 from . import style
 from ._base import Drawing
 
-__all__ = ["draw_uniform_sequence", "UniformSequenceDrawing", "rejection_runs"]
+__all__ = ["draw_uniform_sequence", "UniformSequenceDrawing", "rejection_runs",
+           "draw_next_decision", "NextDecisionDrawing"]
 
 
 def rejection_runs(accepted):
@@ -51,13 +52,20 @@ def _check(u, accepted, accept_prob):
     return u, accepted, accept_prob
 
 
+def _plural(n, word):
+    """``"1 rejection"``, ``"2 rejections"`` (the drawing layer's copy of ui's ``plural``)."""
+    n = int(n)
+    return f"{n} {word if n == 1 else word + 's'}"
+
+
 def _summary(accepted):
     runs = rejection_runs(accepted)
-    n = accepted.size
+    n = _plural(accepted.size, "iteration")
     if runs.size == 0:
-        return f"no rejections in {n} iterations"
-    return (f"{runs.sum()} rejections in {n} iterations, in {runs.size} run(s); "
-            f"longest run {runs.max()}")
+        return f"no rejections in {n}"
+    # short: the title must fit over a narrow panel
+    return (f"{_plural(runs.sum(), 'rejection')} in {n}: {_plural(runs.size, 'run')}, "
+            f"longest {runs.max()}")
 
 
 @dataclass(repr=False, eq=False)
@@ -149,3 +157,91 @@ def draw_uniform_sequence(ax, u, accepted, accept_prob=None, *, first=0, trail=T
     d = UniformSequenceDrawing(ax=ax, trail=line, accepted=acc, rejected=rej, accept_prob=prob,
                                summary=summary, first=int(first))
     return d.update(u, accepted, accept_prob)
+
+
+# ------------------------------------------------------------------ preview
+
+#: Look of a decision that has not happened yet: a diamond (never a circle, so it cannot be
+#: mistaken for a recorded u) and a dashed tick, in the acceptance probability's colour, at
+#: the acceptance probability.
+_NEXT_MARKER = dict(marker="D", markersize=6.5, linestyle="none", markeredgewidth=1.4,
+                    color="#555555", markerfacecolor="#BBBBBB")  # undecided until update
+_NEXT_PROB = dict(color=style.ACCEPT_PROB["color"], linestyle=(0, (2.0, 1.2)), linewidth=1.6)
+
+
+@dataclass(repr=False, eq=False)
+class NextDecisionDrawing(Drawing):
+    """Returned by ``draw_next_decision``.
+
+    Attributes
+    ----------
+    ax : Axes
+    u : Line2D
+        Diamond at ``(iteration, u)``: filled (accepted colour) when the decision
+        would accept, hollow (rejected colour) when it would reject; empty when
+        nothing is previewed.
+    accept_prob : Line2D
+        Dashed tick from ``iteration - 0.5`` to ``iteration + 0.5`` at the
+        acceptance probability (``u`` below it accepts); empty when nothing is previewed.
+    iteration : int or None
+    """
+
+    ax: Axes
+    u: Line2D
+    accept_prob: Line2D
+    iteration: object = None
+
+    def update(self, iteration=None, u=None, accepted=None, accept_prob=None):
+        """Show another pending decision, or nothing when ``iteration`` is None."""
+        if iteration is None:
+            self.iteration = None
+            self.u.set_data([], [])
+            self.accept_prob.set_data([], [])
+            return self
+        u = float(u)
+        if not 0.0 <= u <= 1.0:
+            raise ValueError(f"`u` must lie in [0, 1], got {u}")
+        self.iteration = int(iteration)
+        self.u.set_data([self.iteration], [u])
+        colour = style.ACCEPTED["color"] if accepted else style.REJECTED["markeredgecolor"]
+        self.u.set_color(colour)
+        self.u.set_markeredgecolor(colour)
+        self.u.set_markerfacecolor(colour if accepted else "none")
+        if accept_prob is None:
+            self.accept_prob.set_data([], [])
+        else:
+            p = float(accept_prob)
+            self.accept_prob.set_data([self.iteration - 0.5, self.iteration + 0.5], [p, p])
+        self._rescale()
+        return self
+
+
+def draw_next_decision(ax, iteration=None, u=None, accepted=None, accept_prob=None, *,
+                       label="next u (preview)"):
+    """Mark the accept/reject decision a chain's next transition would make.
+
+    For a preview beside ``draw_uniform_sequence``: the ``u`` the next
+    iteration would draw (a diamond, filled when it would accept, hollow when
+    it would reject) and its acceptance probability (a dashed tick). Nothing
+    is drawn while ``iteration`` is None.
+
+    Parameters
+    ----------
+    ax : Axes
+    iteration : int, optional
+        Iteration number of the pending decision (``run.first_draw + run.n_draws``).
+    u : float in [0, 1]
+    accepted : bool
+    accept_prob : float, optional
+    label : str
+        Legend label of the diamond.
+
+    Returns
+    -------
+    NextDecisionDrawing
+        ``update(iteration=None, u=None, accepted=None, accept_prob=None)`` reuses the artists.
+    """
+    (marker,) = ax.plot([], [], label=label, zorder=6, **_NEXT_MARKER)
+    (prob,) = ax.plot([], [], label="_next acceptance probability", zorder=5, **_NEXT_PROB)
+    d = NextDecisionDrawing(ax=ax, u=marker, accept_prob=prob)
+    return d.update(iteration, u, accepted, accept_prob)
