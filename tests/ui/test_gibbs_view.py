@@ -152,30 +152,59 @@ def test_spread_out_starts_are_far_apart():
 
 
 # ------------------------------------------------------------------ the knobs
-def test_shift_changes_between_sweeps_and_reset_knobs_reset(target):
-    view = make(target)
+def test_a_shift_change_replays_the_shown_sweeps_at_once(target):
+    view = make(target, trail=30)
     view.step(5)
-    position = view.sampler.state.position.copy()
-    view._shift_slider.value = 0.25  # the control is linked to the trait
-    assert view.shift == 0.25 and view.kernel.shift == 0.25
-    assert view.n_sweeps == 5
-    np.testing.assert_array_equal(view.sampler.state.position, position)  # no reset
-    view.step(1)
-    assert view.n_sweeps == 6
     starts = view.sampler.initial.copy()
-    view.ordinary = True  # resets: back to the same starts, same stream
-    assert view.n_sweeps == 0 and view.kernel.shift is None and view._shift_slider.disabled
+    paths = [p.get_xydata().copy() for p in view._paths.paths]
+    view.figure.canvas.syncing_data_url = False
+    picture = view.render()
+    view._shift_slider.value = 0.25  # what a drag does; no step() or play
+    assert view.shift == 0.25 and view.kernel.shift == 0.25 and view.n_sweeps == 5
+    # the same five sweeps from the same starts on the same stream, now with c = 0.25
+    again = pg.Sampler(target, pg.Gibbs(exact_conditionals, shift=0.25, shared_stream=True),
+                       starts, n_chains=4, seed=0)
+    again.step(5)
     np.testing.assert_array_equal(view.sampler.initial, starts)
-    np.testing.assert_array_equal(view.sampler.state.position, starts)
-    view.step(2)
+    np.testing.assert_array_equal(view.run.draws, again.run.draws)
+    # ... and the artists show it without a step
+    assert all(not np.array_equal(old, p.get_xydata()) for old, p in zip(paths, view._paths.paths))
+    for c in range(4):
+        np.testing.assert_allclose(view._paths.heads[c].get_xydata(),
+                                   view.run.unconstrained[c, -1:])
+    assert np.mean(np.any(view.render() != picture, axis=-1)) > 0.001
+    title = view._title.get_text()
+    assert "4 chains" in title and "5 sweeps" in title and "c = 0.25" in title
+    assert title.endswith("(replayed at once)")
+    assert "replayed from their starts for 5 sweeps" in view._readout.value
+    assert "pg-primary" in view._shift_slider._dom_classes
+    view.step()
+    assert view.n_sweeps == 6 and "replayed" not in view._title.get_text()
+
+
+def test_a_replay_is_bounded_by_the_trail_and_every_knob_replays(target):
+    view = make(target, trail=12)
+    view.step(40)
+    view.shift = 0.3
+    assert view.n_sweeps == 12  # a long run replays only the shown trail
+    starts = view.sampler.initial.copy()
+    view.ordinary = True
+    assert view.n_sweeps == 12 and view.kernel.shift is None and view._shift_slider.disabled
+    np.testing.assert_array_equal(view.sampler.initial, starts)
+    # with the shift knob disabled, the chains slider is the control that changes the figure
+    assert "pg-primary" in view._chains_slider._dom_classes
+    assert "pg-primary" not in view._shift_slider._dom_classes
     view.seed = 3
+    assert view.n_sweeps == 12 and "the seed" in view._readout.value
+    view._chains_slider.value = 6
+    assert view.n_chains == 6 and view.n_sweeps == 12
+    assert len(view._paths.paths) == 6 and len(view._trace_y.lines) == 6
+    assert view.run.draws.shape == (6, 12, 2)
+    assert len({tuple(np.round(s, 12)) for s in view.sampler.initial}) == 6  # six distinct starts
+    view.reset()
     assert view.n_sweeps == 0
-    view.n_chains = 6
-    assert view.n_sweeps == 0 and len(view._paths.paths) == 6 and len(view._trace_y.lines) == 6
-    view.step(3)
-    assert view.run.draws.shape == (6, 3, 2)
-    starts = view.sampler.initial
-    assert len({tuple(np.round(s, 12)) for s in starts}) == 6  # six distinct starts
+    view.shift = 0.2  # nothing shown, nothing replayed
+    assert view.n_sweeps == 0
 
 
 def test_play_ticks_step_and_buttons_work(target):

@@ -11,10 +11,12 @@ from matplotlib.ticker import LogLocator, MaxNLocator, NullLocator
 from ..core.gibbs import DEFAULT_GRID_SIZE, Gibbs
 from ..core.run import CAUTION
 from ..core.sampling import Sampler
-from ..core.slices import choose_limits, log_density_grid, resolve_coords
+from ..core.slices import choose_limits, resolve_coords
 from ..draw import draw_chain_spread, draw_gibbs_paths, draw_log_density, draw_traces, legend
 from ..draw.gibbs import chain_spread
-from ._base import View, check_range, check_target, guarded
+from ._base import COLUMN_WIDTH_IN, View, check_range, check_target, guarded, number, plural
+from ._controls import KnobControl
+from ._shared import GridCache
 
 __all__ = ["ShiftGibbsView", "spread_out_starts"]
 
@@ -24,6 +26,7 @@ _PILOT_DRAWS = 32      # per chain; the first quarter is dropped
 _PILOT_SEED = 20240917  # fixed, so starts and region do not depend on the view's seed
 _TRACE_BLOCK = 50       # trace x-limits grow in blocks, so most ticks only blit
 _SPREAD_FLOOR = 1e-12   # where draw_chain_spread shows a zero gap
+_REPLAY_MAX = 100       # sweeps re-run at most when a knob changes (a user's conditionals may be slow)
 
 
 def spread_out_starts(points, n, scale=None):
@@ -80,9 +83,9 @@ class ShiftGibbsView(View):
     Left: the paths of the latest ``trail`` sweeps over the log-density
     contours (a 2-D slice through the pilot mean for an n-D target; computed
     once per region). Right: a trace per chain of each shown coordinate, and
-    the largest gap between chains per sweep (log scale). A readout gives the
-    sweep count, the shift in use and the largest distance between chains.
-    Step, Play/Pause (front-end driven: each tick of the Play control makes one
+    the largest gap between chains per sweep (log scale). The figure's title
+    and a readout give the sweep count, the shift in use and the largest
+    distance between chains. Step, Play/Pause (front-end driven: each tick of the Play control makes one
     sweep, so the kernel is never blocked) and Reset drive it.
 
     Everything is on the sampler's (unconstrained) scale; for a target without
@@ -133,10 +136,14 @@ class ShiftGibbsView(View):
 
     Notes
     -----
-    Changing ``shift`` or ``random_shift`` changes the kernel between sweeps
-    and keeps the chains where they are. Changing ``ordinary``, ``n_chains`` or
-    ``seed`` resets: the chains go back to their starts with a fresh shared
-    stream. Changing ``coords`` only changes what is drawn.
+    A knob shows its effect at once: changing ``shift``, ``random_shift``,
+    ``ordinary``, ``n_chains`` or ``seed`` replays. The chains go back to their
+    starts, with a fresh shared stream from ``seed``, and make the same number
+    of sweeps again with the new setting -- at most ``trail`` sweeps (and at
+    most 100; 100 when ``trail`` is 0), so a replay stays quick even with slow
+    conditionals. Step or Play then go on from there. ``reset()`` goes back to
+    the starts with no sweeps. Changing ``coords`` or ``trail`` only changes
+    what is drawn.
 
     Examples
     --------
@@ -145,23 +152,26 @@ class ShiftGibbsView(View):
     >>> view.step(20)
     >>> view.run.draws.shape
     (4, 20, 2)
-    >>> view.ordinary = True     # resets; the chains now coalesce
-    >>> view.step(60)
+    >>> view.ordinary = True     # replays the 20 sweeps from the starts: the chains coalesce
+    >>> view.n_sweeps
+    20
+    >>> view.step(40)
     >>> view.distance < 1e-9
     True
     """
 
     shift = traitlets.Float(
-        0.1, help="Shift c of the driving uniforms: u <- F(old x) + c (mod 1); 0 does not explore."
+        0.1, help="Shift c of the driving uniforms: u <- F(old x) + c (mod 1); 0 does not "
+        "explore. Replays the shown sweeps from the starts."
     ).tag(setting=True)
     random_shift = traitlets.Bool(
-        False, help="Draw a fresh shift from the shared stream each sweep (shift='random')."
+        False, help="Draw a fresh shift from the shared stream each sweep (shift='random'); replays."
     ).tag(setting=True)
     ordinary = traitlets.Bool(
-        False, help="Ordinary Gibbs sampling on the same shared stream (fresh uniforms); resets."
+        False, help="Ordinary Gibbs sampling on the same shared stream (fresh uniforms); replays."
     ).tag(setting=True)
-    n_chains = traitlets.Int(4, help="Number of chains (2 to 10); resets.").tag(setting=True)
-    seed = traitlets.Int(0, help="Seed of the one random stream all chains share; resets.").tag(
+    n_chains = traitlets.Int(4, help="Number of chains (2 to 10); replays.").tag(setting=True)
+    seed = traitlets.Int(0, help="Seed of the one random stream all chains share; replays.").tag(
         setting=True)
     coords = traitlets.Tuple(traitlets.Int(), traitlets.Int(),
                              help="Indices of the two coordinates shown.").tag(setting=True)
@@ -178,15 +188,16 @@ class ShiftGibbsView(View):
         self.capacity = int(capacity)
         # the kernel validates `conditionals` and `grid_size` (TypeError/ValueError naming them)
         self.kernel = Gibbs(conditionals, shift=None, shared_stream=True, grid_size=grid_size)
-        super().__init__(figsize=(9.0, 4.8))
+        super().__init__(figsize=(COLUMN_WIDTH_IN, 4.8))
         self.sampler = None
         self._run = None
         self._region = None
         self._limits = {}
         self._syncing = False
         self._built = False
+        self._replayed = None  # (knob, sweeps) of the latest replay, for the readout
         self.met_at = None
-        self.grid_evaluations = 0
+        self._grids = GridCache(target, n=80)
         with self.hold_trait_notifications():
             self.coords = resolve_coords(coords, target.names, target.dim)
             self.n_chains = n_chains
@@ -265,23 +276,26 @@ class ShiftGibbsView(View):
     # -------------------------------------------------------------- controls
     def _build_controls(self):
         lay = widgets.Layout
-        self._shift_slider = widgets.FloatSlider(
-            value=self.shift, min=0.0, max=0.999, step=0.001, readout_format=".3f",
-            description="shift c", continuous_update=True)
-        self._shift_slider.add_class("pg-shift")
+        self._shift_knob = KnobControl(self, "shift", low=0.0, high=0.999, label="shift c",
+                                       css_class="pg-shift")
+        self._shift_slider = self._shift_knob.slider
+        self._shift_slider.continuous_update = False  # a drag replays once, when released
         self._random_toggle = widgets.ToggleButton(value=self.random_shift, description="random shift",
-                                                   icon="random", tooltip="shift='random'")
+                                                   icon="random", tooltip="shift='random'",
+                                                   layout=lay(width="130px"))
         self._random_toggle.add_class("pg-random-shift")
-        self._ordinary_box = widgets.Checkbox(value=self.ordinary, description="ordinary Gibbs (resets)",
-                                              indent=False, layout=lay(width="190px"))
+        self._ordinary_box = widgets.Checkbox(value=self.ordinary, description="ordinary Gibbs",
+                                              indent=False, layout=lay(width="130px"))
         self._ordinary_box.add_class("pg-ordinary")
-        self._chains_slider = widgets.IntSlider(value=self.n_chains, min=2, max=MAX_CHAINS,
-                                                description="chains", continuous_update=False)
-        self._chains_slider.add_class("pg-n-chains")
+        self._chains_knob = KnobControl(self, "n_chains", low=2, high=MAX_CHAINS, integer=True,
+                                        label="chains", css_class="pg-n-chains")
+        self._chains_slider = self._chains_knob.slider
+        self._chains_slider.continuous_update = False
         self._seed_box = widgets.BoundedIntText(value=self.seed, min=0, max=2**31 - 1,
-                                                description="seed", layout=lay(width="160px"))
-        self._trail_slider = widgets.IntSlider(value=self.trail, min=0, max=500, step=5,
-                                               description="trail")
+                                                description="seed", layout=lay(width="150px"))
+        self._seed_box.add_class("pg-seed")
+        self._trail_knob = KnobControl(self, "trail", low=0, high=500, integer=True,
+                                       label="trail (sweeps)", css_class="pg-trail")
         self._step_button = widgets.Button(description="step", icon="step-forward",
                                            layout=lay(width="90px"))
         self._step_button.add_class("pg-step")
@@ -294,28 +308,34 @@ class ShiftGibbsView(View):
                                             layout=lay(width="90px"))
         self._reset_button.add_class("pg-reset")
         self._reset_button.on_click(lambda _: self.reset())
-        for control, trait in ((self._shift_slider, "shift"), (self._random_toggle, "random_shift"),
-                               (self._ordinary_box, "ordinary"), (self._chains_slider, "n_chains"),
-                               (self._seed_box, "seed"), (self._trail_slider, "trail")):
+        for control, trait in ((self._random_toggle, "random_shift"), (self._ordinary_box, "ordinary"),
+                               (self._seed_box, "seed")):
             traitlets.link((control, "value"), (self, trait))
         self._coordinate_pickers(self.target.names)
         self._readout = widgets.HTML()
         self._readout.add_class("pg-gibbs-readout")
         self._sync_enabled()
         rows = [
-            widgets.HBox([self._shift_slider, self._random_toggle, self._ordinary_box]),
-            widgets.HBox([self._step_button, self._play, self._reset_button, self._chains_slider,
-                          self._seed_box]),
+            widgets.HBox([self._shift_knob, self._random_toggle, self._ordinary_box]),
+            widgets.HBox([self._step_button, self._play, self._reset_button, self._seed_box]),
+            widgets.HBox([self._chains_knob, self._trail_knob]),
         ]
         if self.target.dim > 2:
-            rows.append(widgets.HBox([self._x_pick, self._y_pick, self._trail_slider]))
-        else:
-            rows[1].children = rows[1].children + (self._trail_slider,)
+            rows.append(widgets.HBox([self._x_pick, self._y_pick]))
         self.children = rows + [self.figure.canvas, self._readout, self._status_html]
 
     def _sync_enabled(self):
-        self._shift_slider.disabled = bool(self.ordinary or self.random_shift)
+        """The shift knob only acts with a fixed shift.
+
+        The control marked ``pg-primary`` (the one a browser test moves) is the
+        shift slider then, and the chains slider otherwise: either replays at once.
+        """
+        fixed = not (self.ordinary or self.random_shift)
+        self._shift_knob.disabled = not fixed
         self._random_toggle.disabled = bool(self.ordinary)
+        self._shift_slider.remove_class("pg-primary")
+        self._chains_slider.remove_class("pg-primary")
+        (self._shift_slider if fixed else self._chains_slider).add_class("pg-primary")
 
     # ---------------------------------------------------------------- figure
     def _build_figure(self):
@@ -324,6 +344,7 @@ class ShiftGibbsView(View):
                                  width_ratios=[1.05, 1.0])
         self._ax, self._ax_tx, self._ax_ty, self._ax_spread = (
             axd["paths"], axd["tx"], axd["ty"], axd["spread"])
+        self._title = fig.suptitle(" ", x=0.01, ha="left", fontsize=9)
         self._ax_tx.sharex(self._ax_spread)
         self._ax_ty.sharex(self._ax_spread)
         for ax in (self._ax_tx, self._ax_ty):
@@ -376,14 +397,15 @@ class ShiftGibbsView(View):
                            for p, h in zip(self._paths.paths, self._paths.heads)]
         handles[:self.n_chains] = self._path_keys
         legend(self._ax, loc="upper center", bbox_to_anchor=(0.5, -0.13),
-               ncol=4 if self.n_chains <= 6 else 5, handles=handles, labels=labels, fontsize=7)
+               ncol=3, handles=handles, labels=labels, fontsize=7)  # 4 columns overflow
         # the y label names the line; the meeting point gets a note beside its star
         self._met_note = self._ax_spread.annotate(
             "", xy=(0, _SPREAD_FLOOR), xytext=(6, 8), textcoords="offset points", fontsize=7,
             color=self._spread.met.get_color(), fontweight="bold", annotation_clip=False)
         p = self._paths
         self.set_dynamic(p.paths + p.heads + [self._starts_line] + self._trace_x.lines
-                         + self._trace_y.lines + [self._spread.spread, self._spread.met, self._met_note])
+                         + self._trace_y.lines + [self._spread.spread, self._spread.met,
+                                                  self._met_note, self._title])
         self._limits = {}
         # the legend may have grown: lay the figure out again at the next full draw
         # (the base class freezes the layout after it)
@@ -419,14 +441,7 @@ class ShiftGibbsView(View):
 
     def _grid(self):
         """The log-density grid, computed once per region and pair of coordinates."""
-        key = (self.coords, self._region)
-        if key != getattr(self, "_grid_key", None):
-            xlim, ylim = self._region
-            self._grid_cache = log_density_grid(self.target, self.coords, self._through(),
-                                                xlim, ylim, n=80)
-            self._grid_key = key
-            self.grid_evaluations += 1
-        return self._grid_cache
+        return self._grids.get(self.coords, self._through(), *self._region)
 
     # ------------------------------------------------------------- stepping
     @guarded("step")
@@ -436,6 +451,7 @@ class ShiftGibbsView(View):
             raise RuntimeError("there is no sampler to step (the last reset failed; see above)")
         self.sampler.step(n)
         self._run = None
+        self._replayed = None
         self._refresh()
         self.status = ""
 
@@ -447,16 +463,31 @@ class ShiftGibbsView(View):
     @guarded("reset")
     def reset(self):
         """Put the chains back at their starts with a fresh shared stream (same seed)."""
-        self._new_sampler()
+        self._replayed = None
+        self._restart(0)
         self._syncing = True
         try:
             self._play.value = 0
         finally:
             self._syncing = False
-        if self._built:
-            if len(self._paths.paths) != self.n_chains:
-                self._draw_chains()
+
+    def _restart(self, sweeps):
+        """Chains back at their starts (fresh stream), then ``sweeps`` sweeps, then redraw."""
+        self._new_sampler()
+        if not self._built or self.sampler is None:
+            return
+        if len(self._paths.paths) != self.n_chains:
+            self._draw_chains()
+        try:
+            if sweeps:
+                self.sampler.step(sweeps)  # all or nothing per sweep: a failure keeps what was made
+        finally:
+            self._run = None
             self._refresh(full=True)
+
+    def _replay_length(self):
+        """Sweeps a knob change re-runs: as many as shown, at most ``trail`` and _REPLAY_MAX."""
+        return min(self.n_sweeps, self.trail or _REPLAY_MAX, _REPLAY_MAX)
 
     @property
     def run(self):
@@ -489,20 +520,20 @@ class ShiftGibbsView(View):
         return float(np.sqrt(np.max(np.sum(diff * diff, axis=-1))))
 
     # -------------------------------------------------------------- observers
-    @traitlets.observe("shift", "random_shift")
-    def _on_shift(self, change):
+    @traitlets.observe("shift", "random_shift", "ordinary", "n_chains", "seed")
+    def _on_knob(self, change):
         if not self._built:
             return
         self._sync_enabled()
-        self._sync_kernel()  # between sweeps, no reset
-        self._write_readout()
+        self._replay(change["name"])
 
-    @traitlets.observe("ordinary", "n_chains", "seed")
-    def _on_reset_knob(self, change):
-        if not self._built:
-            return
-        self._sync_enabled()
-        self.reset()
+    @guarded("replay")
+    def _replay(self, knob):
+        """Show a knob's effect at once: the shown sweeps again, from the starts, with it."""
+        sweeps = self._replay_length()
+        self._replayed = (knob, sweeps)
+        self._restart(sweeps)
+        self.status = ""
 
     @traitlets.observe("coords")
     def _on_coords(self, change):
@@ -551,6 +582,7 @@ class ShiftGibbsView(View):
         if self._update_limits(z, first, spread):
             full = True
         self._place_met_note()
+        self._write_title()
         self._write_readout()
         self.redraw(full=full)
 
@@ -614,18 +646,38 @@ class ShiftGibbsView(View):
         note.set_horizontalalignment("right" if right else "left")
         note.set_text(f"all chains meet (draw {self.met_at})")
 
+    _KNOB_WORDS = {"shift": "the shift", "random_shift": "random shift",
+                   "ordinary": "ordinary Gibbs", "n_chains": "the number of chains",
+                   "seed": "the seed"}
+
+    def _mode(self):
+        if self.ordinary:
+            return "ordinary Gibbs"
+        if self.random_shift:
+            return "random shift"
+        return f"shift c = {number(self.shift, 3)}"
+
+    def _write_title(self):
+        text = (f"{plural(self.n_chains, 'chain')}, {plural(self.n_sweeps, 'sweep')} from their "
+                f"starts, {self._mode()}")
+        self._title.set_text(text + (" (replayed at once)" if self._replayed else ""))
+
     def _write_readout(self):
         if self.ordinary:
             mode = "none: ordinary Gibbs (fresh uniforms, shared by all chains)"
         elif self.random_shift:
             mode = "random (a fresh c each sweep, shared by all chains)"
         else:
-            mode = f"c = {self.shift:.3f}"
-        d = self.distance
-        parts = [f"sweep {self.n_sweeps}", f"shift {mode}",
-                 f"max distance between chains {d:.3g}"]
+            mode = f"c = {number(self.shift)}"
+        parts = [plural(self.n_sweeps, "sweep"), f"shift {mode}",
+                 f"largest distance between chains {number(self.distance, 3)}"]
         if self.met_at is not None:
             parts.append(f"<b>all chains met at draw {self.met_at}</b>")
+        if self._replayed is not None:
+            knob, sweeps = self._replayed
+            parts.append(f"{html.escape(self._KNOB_WORDS[knob])} changed: the chains were "
+                         f"replayed from their starts for {plural(sweeps, 'sweep')} (a change "
+                         f"replays at most the trail, {min(self.trail or _REPLAY_MAX, _REPLAY_MAX)})")
         note = ""
         if not self.ordinary and not self.random_shift and self.shift == 0.0:
             note = ("<br><b style='color:#a33'>shift 0:</b> each chain is a deterministic map of "
@@ -657,14 +709,6 @@ class ShiftGibbsView(View):
 
         ``conditionals`` cannot be stored in settings: pass them again.
         """
-        s = dict(settings)
-        view = s.pop("view", cls.__name__)
-        if view != cls.__name__:
-            raise ValueError(f"`settings` are for a {view}, not a {cls.__name__}")
-        known = set(cls.setting_names()) | {"capacity", "grid_size"}
-        unknown = sorted(set(s) - known)
-        if unknown:
-            raise ValueError(f"`settings` has unknown keys {unknown}; known: {sorted(known)}")
-        if "coords" in s:
-            s["coords"] = tuple(s["coords"])
-        return cls(target, conditionals, **s)
+        fixed = {k: settings[k] for k in ("capacity", "grid_size") if k in settings}
+        view = cls(target, conditionals, **fixed)
+        return view.apply_settings(settings)
