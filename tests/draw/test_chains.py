@@ -35,15 +35,17 @@ def test_uniform_sequence_marks_rejections_hollow(ax):
     assert_allclose(d.trail.get_ydata(), u)
     assert d.rejected.get_markerfacecolor() == "none"
     assert d.accepted.get_markerfacecolor() != "none"
-    assert d.summary.get_text() == "3 rejections in 6 iterations: 2 runs, longest 2"
+    assert d.summary.get_text() == "3 of 6 rejected: 2 runs, longest 2"
     before = ids(d)
     d.update(u[:3], acc[:3])
     assert same_artists(d, before)
     assert_allclose(d.rejected.get_ydata(), [0.9, 0.95])
     assert len(d.accept_prob.get_xdata()) == 0
-    assert d.summary.get_text() == "2 rejections in 3 iterations: 1 run, longest 2"
+    assert d.summary.get_text() == "2 of 3 rejected: 1 run, longest 2"
     d.update(u[:2], np.array([False, True]))
-    assert d.summary.get_text() == "1 rejection in 2 iterations: 1 run, longest 1"  # no "1 rejections"
+    assert d.summary.get_text() == "1 of 2 rejected: 1 run, longest 1"  # never "1 runs"
+    d.update(u[:2], np.array([True, True]))
+    assert d.summary.get_text() == "none of 2 rejected"
 
 
 def test_rejection_runs_and_input_checks(ax):

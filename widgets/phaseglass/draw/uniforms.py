@@ -60,12 +60,11 @@ def _plural(n, word):
 
 def _summary(accepted):
     runs = rejection_runs(accepted)
-    n = _plural(accepted.size, "iteration")
+    n = accepted.size
     if runs.size == 0:
-        return f"no rejections in {n}"
-    # short: the title must fit over a narrow panel
-    return (f"{_plural(runs.sum(), 'rejection')} in {n}: {_plural(runs.size, 'run')}, "
-            f"longest {runs.max()}")
+        return f"none of {n} rejected"
+    # short: the title must fit over a narrow panel (about 300 px) for thousands of iterations
+    return f"{runs.sum()} of {n} rejected: {_plural(runs.size, 'run')}, longest {runs.max()}"
 
 
 @dataclass(repr=False, eq=False)
@@ -85,7 +84,8 @@ class UniformSequenceDrawing(Drawing):
         The acceptance probability per iteration (empty when not given): a
         proposal is accepted when ``u`` falls below it.
     summary : Text
-        Count of rejections and of runs of consecutive rejections.
+        Count of rejections and of runs of consecutive rejections
+        (``"3 of 6 rejected: 2 runs, longest 2"``).
     first : int
         Iteration number of the first value.
     """
