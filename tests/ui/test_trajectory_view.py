@@ -171,7 +171,12 @@ def test_coordinate_pickers_switch_the_slice(orchards):
     assert view.grid_evaluations == n + 1
     assert view._ax.get_xlabel() == "effect_1"
     assert np.allclose(view._path.path.get_xydata(), view.trajectory.positions[:, [2, 1]])
-    assert view._mass_x.description.endswith("effect_1")
+    # the mass knobs name the shown coordinates in full and control their masses
+    assert view._mass_knobs[0].label.value == "mass effect_1"
+    assert view._mass_knobs[1].label.value == "mass log_tau"
+    view._mass_knobs[0].box.value = 2.5  # a typed value is taken exactly
+    assert view.mass_scale[2] == 2.5 and view.mass_x == 2.5
+    assert np.allclose(view._metric().inverse_mass[2], 1 / 2.5)
     # choosing the same coordinate for both axes is refused with a message
     view._x_pick.value = 1
     assert view.coords == (2, 1) and view._x_pick.value == 2
@@ -254,7 +259,7 @@ def test_link_keeps_two_views_in_step(gaussian):
     assert b.step_size == 0.1
     a.step_size = 0.27
     assert b.step_size == 0.27 and b.trajectory.step_size == 0.27
-    b._step_slider.value = 0.05  # the slider drives its view, which drives the other
+    b._step_knob.slider.value = 0.05  # the slider drives its view, which drives the other
     assert a.step_size == pytest.approx(0.05) and a.trajectory.step_size == pytest.approx(0.05)
     link.unlink()
     a.step_size = 0.3
@@ -279,3 +284,92 @@ def test_bad_arguments_are_refused(gaussian):
         view.persistence = 1.0
     with pytest.raises(traitlets.TraitError, match="`start` must have shape"):
         view.start = [1.0, 2.0, 3.0]
+
+
+def test_a_step_size_set_from_code_is_the_step_size_used(gaussian):
+    # The tour builds TrajectoryView(step_size=0.05); a log slider can only reach
+    # 10**(k * step) and the front end echoes that snapped value back. The knob,
+    # the readout and the trajectory must keep saying 0.05.
+    view = make(gaussian, step_size=0.05, n_steps=40, seed=1)
+    slider = view._step_knob.slider
+    snapped = 10 ** (round(np.log10(0.05) / slider.step) * slider.step)
+    assert snapped != 0.05  # the echo really is a different number
+    slider.value = snapped  # what the front end sends after it has placed the handle
+    assert view.step_size == 0.05
+    assert view.trajectory.step_size == 0.05
+    assert "step size 0.05 &times; 40 steps = length 2 " in view._readout.value
+    ref = reference(view)
+    assert np.array_equal(view.trajectory.energy_error, ref.energy_error)
+    assert np.allclose(view._energy.error.get_ydata(), ref.energy_error)
+    assert view._step_knob.box.value == 0.05  # the exact number is on show too
+
+
+def test_a_slider_drag_changes_the_step_size_and_the_trajectory(gaussian):
+    view = make(gaussian, step_size=0.05, n_steps=40, seed=1)
+    before = view.trajectory
+    slider = view._step_knob.slider
+    slider.value = 10 ** (np.log10(0.05) + 6 * slider.step)  # six slider positions up
+    eps = view.step_size
+    assert eps > 0.05 and eps == float(f"{eps:.3g}")  # a drag gives a short number
+    assert view.trajectory.step_size == eps
+    assert not np.allclose(view.trajectory.positions, before.positions)
+    assert np.allclose(view._path.path.get_xydata(), view.trajectory.positions)
+    assert f"step size {eps:.4g} &times;" in view._readout.value
+    steps = view._steps_knob.slider
+    steps.value = 7
+    assert view.n_steps == 7 and view.trajectory.n_steps == 7
+
+
+def test_the_primary_control_is_the_step_size_slider_and_repaints(gaussian):
+    view = make(gaussian, step_size=0.1, n_steps=30)
+    primary = [w for w in view._step_knob.children if "pg-primary" in w._dom_classes]
+    assert primary == [view._step_knob.slider]
+    assert "pg-step-size" in view._step_knob.slider._dom_classes
+    before = view.render()
+    view._step_knob.slider.value = 10 ** (np.log10(0.1) + 10 * view._step_knob.slider.step)
+    after = np.asarray(view.figure.canvas.buffer_rgba()).copy()  # the fast path's frame
+    assert not np.array_equal(before, after)
+
+
+def test_controls_are_labelled_in_full_and_wide_enough_to_aim(gaussian):
+    view = make(gaussian)
+    names = gaussian.names
+    knobs = [view._step_knob, view._steps_knob, view._persist_knob] + view._mass_knobs
+    labels = [k.label.value for k in knobs]
+    assert labels == ["step size", "steps", "persistence", f"mass {names[0]}",
+                      f"mass {names[1]}"]
+    for k in knobs:
+        assert int(k.slider.layout.width.rstrip("px")) >= 160
+        assert k.label.layout.flex == "0 0 auto"  # a label never shrinks (no ellipsis)
+        assert k.label.tooltip  # the trait's help
+    assert view._resample.description == "new momentum"
+    assert "persistence" in view._resample.tooltip and "Resample" in view._resample.tooltip
+    # the mass knobs set the shown coordinates' masses
+    view._mass_knobs[1].box.value = 0.25
+    assert view.mass_scale == [1.0, 0.25] and view.mass_y == 0.25
+    view.mass_scale = [3.0, 0.5]
+    assert (view.mass_x, view.mass_y) == (3.0, 0.5)
+    assert view._mass_knobs[0].box.value == 3.0
+
+
+def test_the_figure_fits_the_column_and_nothing_is_cut(gaussian):
+    from phaseglass.ui._base import COLUMN_WIDTH_IN
+
+    view = make(gaussian)
+    width, height = view.figure.get_size_inches()
+    assert width <= COLUMN_WIDTH_IN
+    view.step_size = 2.0  # a divergence: the longest verdict
+    view.render()
+    fig = view.figure
+    renderer = fig.canvas.get_renderer()
+    # everything drawn (labels, titles, tick labels in view, the legend) is on the canvas
+    drawn = fig.get_tightbbox(renderer)  # inches
+    assert drawn.x0 >= -0.01 and drawn.y0 >= -0.01
+    assert drawn.x1 <= width + 0.01 and drawn.y1 <= height + 0.01
+    (key,) = fig.legends  # one key below both panels, whole
+    b = key.get_window_extent(renderer)
+    assert b.x0 >= 0 and b.y0 >= 0 and b.x1 <= fig.bbox.x1 and b.y1 <= fig.bbox.y1
+    for ax in (view._ax, view._ax_err):
+        assert b.y1 <= ax.get_window_extent(renderer).y0  # below the panels, not over them
+    labels = [t.get_text() for t in key.get_texts()]
+    assert "initial momentum" in labels and "divergence threshold \u00b11000" in labels

@@ -3,41 +3,33 @@
 import ipywidgets as widgets
 import numpy as np
 import traitlets
-from matplotlib.ticker import FixedLocator, MaxNLocator, NullLocator
+from matplotlib.ticker import MaxNLocator
 
 from ..core.leapfrog import leapfrog
 from ..core.metric import Metric
-from ..core.slices import choose_limits, log_density_grid, resolve_coords
+from ..core.slices import resolve_coords
 from ..core.streams import seed_sequence
 from ..draw import draw_energy_error, draw_log_density, draw_trajectory, legend
 from ..draw.style import key_handles
-from ._base import View, check_range, check_target, guarded
+from ._base import View, check_range, check_target, guarded, number
+from ._controls import KnobControl
+from ._shared import GridCache, pilot, step_size_range
 
 __all__ = ["TrajectoryView", "pilot_region"]
 
 _DRAG_RADIUS_PX = 12  # a press this close to the start point drags the momentum
+_MASS_RANGE = (0.01, 100.0)
 
 
 def pilot_region(target, coords, *, seed=0, start=None):
-    """A view region and a start point from a short pilot run (sampler's scale).
+    """``(xlim, ylim, start)`` from the shared pilot run (sampler's scale).
 
-    Returns ``(xlim, ylim, start)``; falls back to (-3, 3) boxes around
-    ``start`` (or the origin) when the pilot fails.
+    Kept for modules that still import it; new code calls ``_shared.pilot``.
     """
-    from ..core.kernels import HMC
-    from ..core.sampling import sample
-
-    try:
-        run = sample(target, HMC(0.1, 10), n_draws=150, n_chains=2, warmup=150, seed=seed)
-        z = run.unconstrained
-        xlim, ylim = choose_limits(z, coords=coords, quantiles=(0.005, 0.995), pad=0.15)
-        if start is None:
-            start = z[0, -1].copy()
-        return xlim, ylim, np.asarray(start, dtype=float)
-    except Exception:
-        centre = np.zeros(target.dim) if start is None else np.asarray(start, dtype=float)
-        i, j = coords
-        return ((centre[i] - 3, centre[i] + 3), (centre[j] - 3, centre[j] + 3), centre)
+    run = pilot(target, seed=seed)
+    start = run.start() if start is None else np.asarray(start, dtype=float)
+    xlim, ylim = run.region(coords, start)
+    return xlim, ylim, start
 
 
 class TrajectoryView(View):
@@ -98,6 +90,10 @@ class TrajectoryView(View):
     momentum = traitlets.Any(help="Initial momentum, shape (dim,).").tag(setting=True)
     xlim = traitlets.Tuple(traitlets.Float(), traitlets.Float(), help="x range shown.").tag(setting=True)
     ylim = traitlets.Tuple(traitlets.Float(), traitlets.Float(), help="y range shown.").tag(setting=True)
+    mass_x = traitlets.Float(1.0, help="Mass of the coordinate on the x axis (its entry of "
+                                       "`mass_scale`).")
+    mass_y = traitlets.Float(1.0, help="Mass of the coordinate on the y axis (its entry of "
+                                       "`mass_scale`).")
 
     def __init__(self, target, *, start=None, coords=(0, 1), step_size=0.1, n_steps=20,
                  persistence=0.0, seed=0, xlim=None, ylim=None, max_energy_error=1000.0,
@@ -106,19 +102,23 @@ class TrajectoryView(View):
         self.target = target
         self.max_energy_error = float(max_energy_error)
         coords = resolve_coords(coords, target.names, target.dim)
-        super().__init__(figsize=(8.4, 3.9))
-        self._grid_key = None
+        super().__init__(figsize=(7.6, 3.9))
+        self._grids = GridCache(target, n=90)
         self._applying = False
         self._drag = None
         self._resamples = 0
         self.trajectory = None
         self.accepted = None
+        # the shared pilot gives the region and start when not given, and always the
+        # step-size slider's range (scaled to this target's tuned step size)
+        self._pilot = pilot(target, seed=seed)
         with self.hold_trait_notifications():
-            if xlim is None or ylim is None or start is None:
-                px, py, pstart = pilot_region(target, coords, seed=seed, start=start)
+            if start is None:
+                start = self._pilot.start()
+            if xlim is None or ylim is None:
+                px, py = self._pilot.region(coords, start)
                 xlim = px if xlim is None else xlim
                 ylim = py if ylim is None else ylim
-                start = pstart
             self.coords = coords
             self.xlim = tuple(float(v) for v in xlim)
             self.ylim = tuple(float(v) for v in ylim)
@@ -133,9 +133,15 @@ class TrajectoryView(View):
         self._build_figure()
         self._recompute()
 
+    @property
+    def grid_evaluations(self):
+        """How many log-density grids the contours have needed (one per region)."""
+        return self._grids.evaluations
+
     # ------------------------------------------------------------ validation
     _RANGES = {"step_size": (0.0, None, "(]"), "n_steps": (1, None, "[]"),
-               "persistence": (0.0, 1.0, "[)")}
+               "persistence": (0.0, 1.0, "[)"), "mass_x": (0.0, None, "(]"),
+               "mass_y": (0.0, None, "(]")}
 
     @traitlets.validate(*_RANGES)
     def _check_knob(self, proposal):
@@ -159,58 +165,71 @@ class TrajectoryView(View):
 
     # -------------------------------------------------------------- controls
     def _build_controls(self):
-        names = self.target.names
-        self._step_slider = widgets.FloatLogSlider(
-            value=self.step_size, base=10, min=-3, max=0.5, step=0.02, description="step size",
-            readout_format=".3g", continuous_update=True)
-        self._step_slider.add_class("pg-step-size")
-        self._steps_slider = widgets.IntSlider(value=self.n_steps, min=1, max=300,
-                                               description="steps", continuous_update=True)
-        self._steps_slider.add_class("pg-n-steps")
-        self._persist_slider = widgets.FloatSlider(value=self.persistence, min=0.0, max=0.99,
-                                                   step=0.01, description="persistence")
-        self._persist_slider.add_class("pg-persistence")
-        self._mass_x = widgets.FloatLogSlider(value=self.mass_scale[self.coords[0]], base=10,
-                                              min=-2, max=2, step=0.05, readout_format=".3g")
-        self._mass_y = widgets.FloatLogSlider(value=self.mass_scale[self.coords[1]], base=10,
-                                              min=-2, max=2, step=0.05, readout_format=".3g")
+        low, high = step_size_range(self._pilot.step_size)
+        self._step_knob = KnobControl(self, "step_size", low=low, high=high, log=True,
+                                      label="step size", css_class="pg-step-size")
+        self._step_knob.slider.add_class("pg-primary")
+        self._steps_knob = KnobControl(self, "n_steps", low=1, high=300, integer=True,
+                                       label="steps", css_class="pg-n-steps")
+        self._persist_knob = KnobControl(self, "persistence", low=0.0, high=0.99,
+                                         label="persistence", css_class="pg-persistence")
+        self._mass_knobs = [
+            KnobControl(self, name, low=_MASS_RANGE[0], high=_MASS_RANGE[1], log=True,
+                        label="mass", css_class=f"pg-{name.replace('_', '-')}")
+            for name in ("mass_x", "mass_y")]
         self._seed_box = widgets.BoundedIntText(value=self.seed, min=0, max=2**31 - 1,
-                                                description="seed", layout=widgets.Layout(width="160px"))
-        self._resample = widgets.Button(description="resample momentum", icon="refresh")
+                                                description="seed",
+                                                layout=widgets.Layout(width="150px"))
+        self._seed_box.tooltip = self.traits()["seed"].help
+        traitlets.link((self._seed_box, "value"), (self, "seed"))
+        self._resample = widgets.Button(
+            description="new momentum", icon="refresh", layout=widgets.Layout(width="auto"),
+            tooltip="Resample the momentum: p \u2190 a p + \u221a(1 \u2212 a\u00b2) \u03be, "
+                    "\u03be ~ N(0, M), a = persistence (a = 0: a fresh draw)")
         self._resample.add_class("pg-resample")
         self._resample.on_click(lambda _: self.resample_momentum())
-        self._coordinate_pickers(names)
-        for control, trait in ((self._step_slider, "step_size"), (self._steps_slider, "n_steps"),
-                               (self._persist_slider, "persistence"), (self._seed_box, "seed")):
-            traitlets.link((control, "value"), (self, trait))
-        self._mass_x.observe(lambda ch: self._set_mass(0, ch["new"]), "value")
-        self._mass_y.observe(lambda ch: self._set_mass(1, ch["new"]), "value")
+        self._coordinate_pickers(self.target.names)
         self._readout = widgets.HTML()
         self._readout.add_class("pg-readout")
         self._click_readout = widgets.HTML(
             "<span style='font-family:monospace'>click the left panel to move the start; press on "
             "the start and drag to set the initial momentum</span>")
         self._click_readout.add_class("pg-click-readout")
-        self._sync_mass_labels()
-        row1 = widgets.HBox([self._step_slider, self._steps_slider, self._persist_slider])
-        row2 = widgets.HBox([self._mass_x, self._mass_y, self._seed_box, self._resample])
-        rows = [row1, row2]
+        self._name_mass_knobs()
+        wrap = widgets.Layout(flex_flow="row wrap", align_items="center")
+        rows = [widgets.HBox([self._step_knob, self._steps_knob], layout=wrap),
+                widgets.HBox(self._mass_knobs, layout=wrap),
+                widgets.HBox([self._persist_knob, self._resample, self._seed_box], layout=wrap)]
         if self.target.dim > 2:
-            rows.append(widgets.HBox([self._x_pick, self._y_pick]))
+            rows.append(widgets.HBox([self._x_pick, self._y_pick], layout=wrap))
         self.children = rows + [self.figure.canvas, self._readout, self._click_readout,
                                 self._status_html]
 
-    def _sync_mass_labels(self):
+    def _name_mass_knobs(self):
         names = self.target.names
-        self._mass_x.description = f"mass {names[self.coords[0]]}"[:18]
-        self._mass_y.description = f"mass {names[self.coords[1]]}"[:18]
-        self._mass_x.value = self.mass_scale[self.coords[0]]
-        self._mass_y.value = self.mass_scale[self.coords[1]]
+        for knob, i in zip(self._mass_knobs, self.coords):
+            knob.label.value = f"mass {names[i]}"
 
-    def _set_mass(self, axis, value):
-        masses = list(self.mass_scale)
-        masses[self.coords[axis]] = float(value)
-        self.mass_scale = masses
+    @traitlets.observe("coords")
+    def _on_coords(self, change):
+        if hasattr(self, "_x_pick"):
+            self._x_pick.value, self._y_pick.value = self.coords
+            self._name_mass_knobs()
+
+    @traitlets.observe("mass_scale", "coords")
+    def _show_masses(self, change):
+        """``mass_x``/``mass_y`` follow the shown coordinates' entries of ``mass_scale``."""
+        if len(self.mass_scale) == self.target.dim:
+            self.mass_x = self.mass_scale[self.coords[0]]
+            self.mass_y = self.mass_scale[self.coords[1]]
+
+    @traitlets.observe("mass_x", "mass_y")
+    def _set_mass(self, change):
+        i = self.coords[0 if change["name"] == "mass_x" else 1]
+        if len(self.mass_scale) == self.target.dim and self.mass_scale[i] != change["new"]:
+            masses = list(self.mass_scale)
+            masses[i] = float(change["new"])
+            self.mass_scale = masses
 
     def _set_coordinates(self, coords):
         """Show ``coords`` in a region of three mass-scaled units around the start."""
@@ -232,19 +251,15 @@ class TrajectoryView(View):
         self._path.autoscale = False
         self._energy = draw_energy_error(self._ax_err, tr)
         self._energy.verdict.set_fontsize(8)
-        # few ticks: tick labels are most of the cost of a full draw
-        self._ax_err.yaxis.set_major_locator(FixedLocator([-1000, -10, -1, 0, 1, 10, 1000]))
-        self._ax_err.yaxis.set_minor_locator(NullLocator())
         for ax in (self._ax, self._ax_err):
             ax.xaxis.set_major_locator(MaxNLocator(6))
         self._ax.yaxis.set_major_locator(MaxNLocator(6))
-        p = self._path
-        handles = [self._density.contours, p.path, p.start, p.momentum] + key_handles(
-            "accepted", "rejected", "divergent")
-        legend(self._ax, loc="upper center", bbox_to_anchor=(0.5, -0.14), ncol=4, handles=handles,
-               labels=[h.get_label() for h in handles], fontsize=7)
-        self._ax_err.legend(loc="lower left", fontsize=7)
         p, e = self._path, self._energy
+        # one key for both panels, below them (a legend under one panel squeezes it)
+        handles = [self._density.contours, p.path, p.start, p.momentum] + key_handles(
+            "accepted", "rejected", "divergent") + [e.thresholds[0]]
+        legend(fig, loc="outside lower center", ncols=4, handles=handles,
+               labels=[h.get_label() for h in handles], fontsize=7)
         self.set_dynamic([p.path, p.start, p.end, p.divergent, p.momentum, e.error,
                           e.divergence, e.verdict, e.accept_line])
         self._ax.set_xlim(self.xlim)
@@ -259,16 +274,8 @@ class TrajectoryView(View):
         return (names[self.coords[0]] + suffix, names[self.coords[1]] + suffix)
 
     def _grid(self):
-        """Contours are computed once per region, coordinates and slice, never per tick."""
-        through = self.start.copy()
-        through[list(self.coords)] = 0.0  # the slice depends only on the other coordinates
-        key = (self.coords, self.xlim, self.ylim, tuple(through) if self.target.dim > 2 else None)
-        if key != self._grid_key:
-            self._grid_cache = log_density_grid(self.target, self.coords, self.start,
-                                                self.xlim, self.ylim, n=90)
-            self._grid_key = key
-            self.grid_evaluations = getattr(self, "grid_evaluations", 0) + 1
-        return self._grid_cache
+        """Contours: computed once per region, coordinates and slice, never per tick."""
+        return self._grids.get(self.coords, self.start, self.xlim, self.ylim)
 
     # ----------------------------------------------------------- computation
     def _metric(self):
@@ -311,8 +318,6 @@ class TrajectoryView(View):
         if self.momentum is not None and old.shape == new.shape:
             # keep the same standard-normal draw: p = sqrt(M) z
             self.momentum = self.momentum * np.sqrt(new / old)
-        if hasattr(self, "_mass_x"):
-            self._sync_mass_labels()
 
     @traitlets.observe("step_size", "n_steps", "start", "momentum", "coords", "xlim", "ylim",
                        "mass_scale")
@@ -322,15 +327,13 @@ class TrajectoryView(View):
 
     @guarded("redraw")
     def _recompute(self):
-        if self._grid_key is not None and (self._grid_key[0] != self.coords):
-            self._x_pick.value, self._y_pick.value = self.coords
-            self._sync_mass_labels()
-        grid_key = self._grid_key
+        before = (self._grids.evaluations, self._grids.key)
         grid = self._grid()
-        if grid_key != self._grid_key:  # new contours only for a new region: not per tick
+        new_region = (self._grids.evaluations, self._grids.key) != before
+        if new_region:  # new contours only for a new region: not per tick
             self._density.update(grid)
-        static = (self._grid_key, self.coords, self.xlim, self.ylim, self.n_steps)
-        full = grid_key != self._grid_key or static != getattr(self, "_static_key", None)
+        static = (self._grids.key, self.coords, self.xlim, self.ylim, self.n_steps)
+        full = new_region or static != getattr(self, "_static_key", None)
         self._static_key = static
         tr = self._integrate()
         self.trajectory = tr
@@ -338,11 +341,11 @@ class TrajectoryView(View):
         # The end marker shows the Metropolis decision this view's seed would make.
         u = np.random.default_rng(seed_sequence(self.seed).spawn(1)[0]).random()
         self.accepted = bool(not tr.divergent and np.log(u) < -err)
+        self._ax.set_xlim(self.xlim)
+        self._ax.set_ylim(self.ylim)
         self._path.coords = tuple(self.coords)
         self._path.update(tr, self.accepted)
         self._energy.update(tr)
-        self._ax.set_xlim(self.xlim)
-        self._ax.set_ylim(self.ylim)
         names = self._axis_names()
         self._ax.set_xlabel(names[0])
         self._ax.set_ylabel(names[1])
@@ -354,15 +357,16 @@ class TrajectoryView(View):
         length = self.step_size * self.n_steps
         if tr.divergent:
             verdict = (f"<b style='color:#a33'>divergent</b> at step {tr.divergence_step} "
-                       f"(|&Delta;H| &gt; {tr.max_energy_error:g}); acceptance probability 0")
+                       f"(|&Delta;H| &gt; {number(tr.max_energy_error)}); acceptance "
+                       f"probability 0")
             dh = "&Delta;H = &infin;"
         else:
             d = float(tr.energy_error[-1])
             prob = float(np.exp(min(0.0, -d)))
-            dh = f"&Delta;H = {d:+.4g}"
-            verdict = f"acceptance probability {prob:.3f}; no divergence"
-        return (f"<span style='font-family:monospace'>step size {self.step_size:.4g} &times; "
-                f"{self.n_steps} steps = length {length:.4g} | {dh} | {verdict}</span>")
+            dh = f"&Delta;H = {'+' if d >= 0 else ''}{number(d)}"
+            verdict = f"acceptance probability {number(prob, 3)}; no divergence"
+        return (f"<span style='font-family:monospace'>step size {number(self.step_size)} &times; "
+                f"{self.n_steps} steps = length {number(length)} | {dh} | {verdict}</span>")
 
     # ---------------------------------------------------------------- mouse
     def _start_pixels(self):
