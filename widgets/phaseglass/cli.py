@@ -40,17 +40,19 @@ def _one_line(exc):
 # ------------------------------------------------------------------ models
 
 def load_model(spec):
-    """Return the Target named by ``spec``: a demo name or ``package.module:callable``.
+    """Return the Target named by ``spec``: a demo name, ``package.module:callable`` or
+    ``path/to/file.py:callable``.
 
     The callable is called with no arguments and must return a phaseglass Target.
     The current directory is searched first, so ``mymodel:build`` finds
-    ``./mymodel.py``.
+    ``./mymodel.py``; a file path (``./mymodel.py:build``, ``models/m.py:build``)
+    is loaded from that file, with its folder importable while it loads.
 
     Raises
     ------
     UsageError
-        With a one-line message for an unknown name, a module that cannot be
-        imported, a missing or non-callable attribute, a callable that raises,
+        With a one-line message for an unknown name, a module or file that cannot
+        be imported, a missing or non-callable attribute, a callable that raises,
         or a return value that is not a Target.
     """
     from .core import demos
@@ -59,26 +61,20 @@ def load_model(spec):
     if spec in demos.DEMOS:
         return demos.get(spec)
     if ":" not in spec:
+        hint = (f"; name the function that builds the Target: {spec}:build"
+                if spec.endswith(".py") else "")
         raise UsageError(
-            f"unknown --model {spec!r}: give a demo name ({', '.join(demos.DEMOS)}) "
-            "or package.module:callable"
+            f"unknown --model {spec!r}: give a demo name ({', '.join(demos.DEMOS)}), "
+            f"package.module:callable or path/to/file.py:callable{hint}"
         )
-    module_name, _, attr = spec.partition(":")
+    module_name, _, attr = spec.rpartition(":")  # rpartition: a Windows path has a drive colon
     if not module_name or not attr:
-        raise UsageError(f"--model {spec!r} must look like package.module:callable")
-    cwd = os.getcwd()
-    added = cwd not in sys.path
-    if added:
-        sys.path.insert(0, cwd)
-    try:
-        module = importlib.import_module(module_name)
-    except ModuleNotFoundError as exc:
-        raise UsageError(f"cannot import module {module_name!r} for --model {spec!r}: {exc}") from None
-    except Exception as exc:  # the user's module raised while importing
-        raise UsageError(f"importing {module_name!r} for --model {spec!r} raised {_one_line(exc)}") from None
-    finally:
-        if added:
-            sys.path.remove(cwd)
+        raise UsageError(f"--model {spec!r} must look like package.module:callable "
+                         "or path/to/file.py:callable")
+    if module_name.endswith(".py") or "/" in module_name or os.sep in module_name:
+        module = _load_file(module_name, spec)
+    else:
+        module = _import_module(module_name, spec)
     obj = module
     for part in attr.split("."):
         if not hasattr(obj, part):
@@ -103,6 +99,62 @@ def load_model(spec):
     return target
 
 
+class _on_path:
+    """Put a folder first on ``sys.path`` for the duration of a ``with`` block."""
+
+    def __init__(self, folder):
+        self.folder = str(folder)
+
+    def __enter__(self):
+        self.added = self.folder not in sys.path
+        if self.added:
+            sys.path.insert(0, self.folder)
+
+    def __exit__(self, *exc):
+        if self.added and self.folder in sys.path:
+            sys.path.remove(self.folder)
+
+
+def _import_module(module_name, spec):
+    if module_name.startswith("."):
+        raise UsageError(f"--model {spec!r}: a relative module name cannot be imported; write "
+                         f"the full name (package.module:callable) or a file path (./file.py:callable)")
+    try:
+        with _on_path(os.getcwd()):
+            return importlib.import_module(module_name)
+    except ModuleNotFoundError as exc:
+        raise UsageError(f"cannot import module {module_name!r} for --model {spec!r}: {exc}") from None
+    except Exception as exc:  # the user's module raised while importing
+        raise UsageError(f"importing {module_name!r} for --model {spec!r} raised {_one_line(exc)}") from None
+
+
+def _load_file(path_text, spec):
+    """Import a Python file by path (``importlib.util.spec_from_file_location``)."""
+    import importlib.util
+    from pathlib import Path
+
+    path = Path(path_text).expanduser()
+    if not path.is_file():
+        what = "is a folder" if path.is_dir() else "does not exist"
+        raise UsageError(f"--model {spec!r}: the file {path_text!r} {what} (looked in {os.getcwd()})")
+    if path.suffix != ".py":
+        raise UsageError(f"--model {spec!r}: {path_text!r} is not a .py file")
+    path = path.resolve()
+    name = "phaseglass_model_" + "".join(c if c.isalnum() else "_" for c in path.stem)
+    module_spec = importlib.util.spec_from_file_location(name, path)
+    if module_spec is None or module_spec.loader is None:
+        raise UsageError(f"--model {spec!r}: cannot load {path_text!r} as a Python module")
+    module = importlib.util.module_from_spec(module_spec)
+    sys.modules[name] = module  # dataclasses and pickling look the module up by name
+    try:
+        with _on_path(path.parent):  # so the file can import its neighbours
+            module_spec.loader.exec_module(module)
+    except Exception as exc:
+        sys.modules.pop(name, None)
+        raise UsageError(f"importing {path_text!r} for --model {spec!r} raised {_one_line(exc)}") from None
+    return module
+
+
 # ------------------------------------------------------------------ argument types
 
 def _number(convert, accept, expected):
@@ -122,6 +174,12 @@ def _number(convert, accept, expected):
 
 _positive_float = _number(float, lambda v: 0 < v < float("inf"), "a number > 0")
 _fraction = _number(float, lambda v: 0 <= v < 1, "a number in [0, 1)")
+
+#: PNG resolution range: below it the figures are unreadable; above it one figure needs hundreds
+#: of megabytes (and matplotlib refuses images wider than 2**16 pixels).
+DPI_RANGE = (10, 600)
+_dpi = _number(float, lambda v: DPI_RANGE[0] <= v <= DPI_RANGE[1],
+               f"a number from {DPI_RANGE[0]} to {DPI_RANGE[1]} (screen: 90, print: 300)")
 
 
 def _count(minimum):
@@ -150,8 +208,9 @@ def _add_report_arguments(p):
 
     model = p.add_argument_group("model")
     model.add_argument("--model", default="gaussian", metavar="NAME|MODULE:CALLABLE",
-                       help=f"a demo ({', '.join(demos.DEMOS)}) or package.module:callable "
-                            "returning a phaseglass Target (default: gaussian)")
+                       help=f"a demo ({', '.join(demos.DEMOS)}), package.module:callable or "
+                            "path/to/file.py:callable returning a phaseglass Target "
+                            "(default: gaussian)")
     model.add_argument("--coords", type=_coord_pair, default=None, metavar="A,B",
                        help="two coordinates (names or indices) for trajectories, paths and the "
                             "first pair (default: the first two)")
@@ -181,9 +240,16 @@ def _add_report_arguments(p):
     run.add_argument("--seed", type=_count(0), default=None, metavar="INT",
                      help="random seed; the one used is recorded in the report (default: fresh)")
     run.add_argument("--out", default="phaseglass-report", metavar="DIR",
-                     help="folder for the report, created if needed (default: ./phaseglass-report)")
-    run.add_argument("--dpi", type=_positive_float, default=90, metavar="DPI",
-                     help="resolution of the PNG figures (default: 90)")
+                     help="folder for the report, created if needed; it must be new, empty or hold "
+                          "an earlier report, whose files alone are replaced "
+                          "(default: ./phaseglass-report)")
+    run.add_argument("--replace", action="store_true",
+                     help="also write into a non-empty --out folder that holds no earlier report, "
+                          "overwriting files named like the report's (summary.json, report.html, "
+                          "the figures); other files there are never touched")
+    run.add_argument("--dpi", type=_dpi, default=90, metavar="DPI",
+                     help=f"resolution of the PNG figures, {DPI_RANGE[0]} to {DPI_RANGE[1]} "
+                          "(default: 90)")
     run.add_argument("--no-grid", action="store_true",
                      help="skip the step size x steps heat map (saves a few short runs)")
     run.add_argument("--gif", action="store_true",
@@ -243,6 +309,16 @@ def _run_report(args):
             raise UsageError(f"--coords: {str(exc).splitlines()[0]}") from None
     elif target.dim < 2:
         coords = None
+    from .report import ReportFolderError, check_report_folder, write_report
+
+    def check_folder():  # before sampling, so a refused folder costs nothing
+        try:
+            check_report_folder(args.out, replace=args.replace, argument="--out",
+                                fix="pass --replace")
+        except ReportFolderError as exc:
+            raise UsageError(str(exc)) from None
+
+    check_folder()
     say(f"sampling {args.model}: {type(kernel).__name__}, {args.chains} chains x "
         f"{args.draws} draws after {args.warmup} warm-up")
     started = time.perf_counter()
@@ -264,13 +340,14 @@ def _run_report(args):
         "seed given": args.seed is not None,
     }
     settings = {k: v for k, v in settings.items() if v is not None}
-    from .report import write_report
-
     command = " ".join([PROG] + list(args._argv))
     try:
         files = write_report(args.out, run, settings=settings, title=args.model, coords=coords,
                              grid=not args.no_grid, animation=args.gif, dpi=args.dpi,
-                             command=command)
+                             command=command, replace=args.replace)
+    except ReportFolderError as exc:  # the folder changed while sampling
+        check_folder()
+        raise UsageError(str(exc)) from None
     except OSError as exc:
         raise RunError(f"cannot write the report to {args.out!r}: {exc}") from None
     n_warn = len(files.warnings)
@@ -322,9 +399,22 @@ def build_parser():
     return parser
 
 
+def _tolerant_streams():
+    """Under a non-UTF-8 locale (LC_ALL=C, Windows consoles) a path or name the terminal cannot
+    show is printed escaped instead of crashing the command with UnicodeEncodeError."""
+    for stream in (sys.stdout, sys.stderr):
+        encoding = (getattr(stream, "encoding", None) or "").lower().replace("-", "")
+        if encoding != "utf8" and hasattr(stream, "reconfigure"):
+            try:
+                stream.reconfigure(errors="backslashreplace")
+            except (ValueError, OSError):  # a stream that cannot be reconfigured: leave it
+                pass
+
+
 def main(argv=None):
     """Run the command line; returns the exit code (0 ok, 1 run failed, 2 bad usage)."""
     argv = list(sys.argv[1:] if argv is None else argv)
+    _tolerant_streams()
     parser = build_parser()
     try:
         args = parser.parse_args(argv)

@@ -7,6 +7,16 @@ one self-contained ``report.html`` (images embedded as base64) that opens
 anywhere without the files beside it. ``phaseglass report`` on the command line
 runs a sampler and calls it.
 
+The folder is the user's: a report never touches a file it did not write. It
+writes into a new or empty folder, or into a folder holding an earlier report
+(recognised by its ``summary.json``, which carries ``"written_by": "phaseglass
+report"`` and the list of files that report wrote); there it replaces or removes
+only those files. Any other non-empty folder is refused unless ``replace=True``,
+and even then only the report's own file names are written and nothing else is
+removed. Every file is written atomically (a temporary file in the same folder,
+then ``os.replace``) and text as UTF-8, so a crash never leaves a half-written
+``report.html`` or ``summary.json``.
+
 Figures are built on ``matplotlib.figure.Figure`` directly (no pyplot state),
 so this works in scripts, servers and notebooks alike.
 """
@@ -15,6 +25,8 @@ import base64
 import html
 import io
 import json
+import os
+import secrets
 import time
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -23,11 +35,19 @@ import numpy as np
 
 from .core.run import CAUTION, EBFMI_LIMIT, ESS_PER_CHAIN_LIMIT, RHAT_LIMIT
 
-__all__ = ["write_report", "ReportFiles", "knob_grid", "FIGURE_NAMES"]
+__all__ = ["write_report", "check_report_folder", "atomic_write", "ReportFiles", "ReportFolderError",
+           "knob_grid", "FIGURE_NAMES", "WRITTEN_BY"]
 
 #: PNG files a report may contain, in the order shown (views that do not apply are skipped).
 FIGURE_NAMES = ("trajectory", "divergence", "uniforms", "traces", "autocorrelation",
                 "running_ess", "ess_per_gradient", "energy", "pairs", "gibbs", "tuning")
+
+#: The marker in ``summary.json`` that says a folder holds a report this module wrote.
+WRITTEN_BY = "phaseglass report"
+
+#: Every file name a report may write; nothing else is ever written, replaced or removed.
+_OWN_NAMES = frozenset([f"{n}.png" for n in FIGURE_NAMES] + ["chain.gif", "summary.json",
+                                                              "report.html"])
 
 _COLUMN_TITLES = {
     "mean": "mean", "sd": "sd", "q5": "5%", "q95": "95%", "ess_centre": "bulk ESS",
@@ -72,6 +92,138 @@ class ReportFiles:
     seconds: float = 0.0
 
 
+# ---------------------------------------------------------------- files
+
+class ReportFolderError(ValueError):
+    """The folder given for a report is one the report may not write into."""
+
+
+def atomic_write(path, data):
+    """Write ``data`` to ``path`` so that ``path`` is either the old file or the whole new one.
+
+    The data goes to a temporary file in the same folder, which then replaces
+    ``path`` (``os.replace`` is atomic on POSIX and Windows). If anything fails
+    midway the temporary file is removed and ``path`` is left as it was.
+
+    Parameters
+    ----------
+    path : str or Path
+    data : str or bytes
+        Text is encoded as UTF-8, whatever the locale.
+
+    Returns
+    -------
+    Path
+    """
+    path = Path(path)
+    if isinstance(data, str):
+        data = data.encode("utf-8")
+    tmp, f = _temp_beside(path, ".tmp")
+    try:
+        with f:
+            f.write(data)
+            f.flush()
+            os.fsync(f.fileno())
+        os.replace(tmp, path)
+    except BaseException:
+        tmp.unlink(missing_ok=True)
+        raise
+    return path
+
+
+def _temp_beside(path, suffix):
+    """A new, empty hidden file next to ``path``, opened for binary writing: ``(Path, file)``.
+
+    Created with ``open(..., "xb")`` rather than ``tempfile.mkstemp`` so it gets the
+    usual permissions (the user's umask), not mkstemp's owner-only 0600.
+    """
+    for _ in range(100):
+        tmp = path.with_name(f".{path.name}.{secrets.token_hex(4)}{suffix}")
+        try:
+            return tmp, open(tmp, "xb")
+        except FileExistsError:
+            continue
+    raise FileExistsError(f"cannot create a temporary file beside {path}")
+
+
+def _earlier_report(folder):
+    """The file names an earlier report in ``folder`` wrote (its manifest), or None if there is none.
+
+    Only names a report can write are believed, so a hand-edited manifest cannot
+    make a report touch anything else.
+    """
+    manifest = folder / "summary.json"
+    if not manifest.is_file():
+        return None
+    try:
+        data = json.loads(manifest.read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError, ValueError):
+        return None
+    if not isinstance(data, dict) or data.get("written_by") != WRITTEN_BY:
+        return None
+    listed = data.get("files")
+    if not isinstance(listed, list):
+        return None
+    return {n for n in listed if isinstance(n, str) and n in _OWN_NAMES}
+
+
+def check_report_folder(out_dir, *, replace=False, argument="`out_dir`",
+                        fix="pass replace=True"):
+    """Check that a report may be written into ``out_dir``; raise a clear error if not.
+
+    Allowed: a folder that does not exist yet, an empty folder, or a folder
+    holding an earlier report whose own files are the only ones named like report
+    files. ``replace=True`` also allows any other folder (only the report's own
+    file names are then written; nothing else is removed).
+
+    Parameters
+    ----------
+    out_dir : str or Path
+    replace : bool
+    argument, fix : str
+        How the error message names the folder argument and the way out (the
+        command line says ``--out`` and ``--replace``).
+
+    Returns
+    -------
+    set of str
+        File names the earlier report in the folder wrote (empty if none): these,
+        and only these, the new report may remove.
+
+    Raises
+    ------
+    ReportFolderError
+        A ``ValueError`` naming ``argument`` and what to do.
+    """
+    if out_dir is None or not str(out_dir).strip():
+        raise ReportFolderError(f"{argument} must name a folder for the report, got {str(out_dir)!r}")
+    folder = Path(out_dir)
+    if not folder.exists():
+        return set()
+    if not folder.is_dir():
+        raise ReportFolderError(f"{argument} {str(out_dir)!r} exists and is not a folder; "
+                         "name a new or empty folder")
+    folders = sorted(n for n in _OWN_NAMES if (folder / n).is_dir())
+    if folders:
+        raise ReportFolderError(f"{argument} {str(out_dir)!r} has a folder named like a report file "
+                         f"({', '.join(folders)}); name another folder for the report")
+    earlier = _earlier_report(folder)
+    if earlier is None:
+        if replace or not any(folder.iterdir()):
+            return set()
+        raise ReportFolderError(
+            f"{argument} {str(out_dir)!r} is not empty and holds no earlier phaseglass report; "
+            f"name a new or empty folder, or {fix} to write the report's files there "
+            "(other files are kept)")
+    clash = sorted(n for n in _OWN_NAMES - earlier if (folder / n).exists() or (folder / n).is_symlink())
+    if clash and not replace:
+        raise ReportFolderError(
+            f"{argument} {str(out_dir)!r} holds {', '.join(clash)}, which the earlier report "
+            f"there did not write; move {'them' if len(clash) > 1 else 'it'} away, name another "
+            f"folder, or {fix} to overwrite")
+    return earlier
+
+
 # ---------------------------------------------------------------- helpers
 
 def _seed(run, k):
@@ -80,12 +232,10 @@ def _seed(run, k):
     return np.random.SeedSequence(entropy, spawn_key=(7919, k))
 
 
-def _png(figure, path, dpi):
+def _png(figure, dpi):
     buf = io.BytesIO()
     figure.savefig(buf, format="png", dpi=dpi)
-    data = buf.getvalue()
-    Path(path).write_bytes(data)
-    return data
+    return buf.getvalue()
 
 
 def _coords(run, coords):
@@ -315,13 +465,14 @@ def _grid_axes(kernel):
 # ---------------------------------------------------------------- writing
 
 def write_report(out_dir, run, *, settings=None, title=None, coords=None, grid=True,
-                 grid_draws=100, animation=False, dpi=90, command=None):
+                 grid_draws=100, animation=False, dpi=90, command=None, replace=False):
     """Write figures, ``summary.json`` and a self-contained ``report.html`` for a run.
 
     Parameters
     ----------
     out_dir : str or Path
-        Created if needed; existing report files are replaced.
+        Created if needed. It must be new, empty, or hold an earlier report (then
+        only that report's files are replaced or removed); see ``replace``.
     run : Run
         Needs ``run.target`` and ``run.kernel`` (as ``sample`` and ``Sampler.run`` give).
     settings : dict, optional
@@ -339,18 +490,41 @@ def write_report(out_dir, run, *, settings=None, title=None, coords=None, grid=T
     dpi : float
     command : str, optional
         The command line, recorded in the report.
+    replace : bool
+        Also write into a non-empty folder that holds no earlier report, or over
+        files named like report files that the earlier report did not write.
+        Only the report's own file names (``FIGURE_NAMES`` PNGs, ``chain.gif``,
+        ``summary.json``, ``report.html``) are ever written; nothing else is
+        removed.
 
     Returns
     -------
     ReportFiles
+
+    Raises
+    ------
+    ValueError
+        For a folder the report may not write into (see ``check_report_folder``).
     """
     started = time.perf_counter()
-    out = Path(out_dir)
-    out.mkdir(parents=True, exist_ok=True)
     if run.target is None or run.kernel is None:
         raise ValueError("`run` must carry its target and kernel (use pg.sample or Sampler.run)")
+    earlier = check_report_folder(out_dir, replace=replace)
+    out = Path(out_dir)
     digest = run.summary()
     coords = _coords(run, coords)
+    out.mkdir(parents=True, exist_ok=True)
+    claimed = set(earlier)  # what the manifest on disk lists: the earlier report's files and ours
+    written = set()
+
+    def claim(name):
+        """List ``name`` in the manifest before writing it, so a crash leaves a folder the
+        next report still recognises as its own."""
+        if name not in claimed:
+            claimed.update((name, "summary.json"))
+            atomic_write(out / "summary.json", json.dumps(
+                {"written_by": WRITTEN_BY, "complete": False, "files": sorted(claimed)}, indent=2))
+        written.add(name)
     files = ReportFiles(folder=out, html=out / "report.html", summary=out / "summary.json",
                         warnings=list(digest.warnings))
     images = {}
@@ -359,13 +533,11 @@ def write_report(out_dir, run, *, settings=None, title=None, coords=None, grid=T
 
     def keep(name, fig, caption):
         path = out / f"{name}.png"
-        images[name] = _png(fig, path, dpi)
+        images[name] = _png(fig, dpi)
+        claim(path.name)
+        atomic_write(path, images[name])
         files.figures[name] = path
         captions[name] = caption
-
-    for stale in FIGURE_NAMES:  # a re-run into the same folder must not mix two runs
-        (out / f"{stale}.png").unlink(missing_ok=True)
-    (out / "chain.gif").unlink(missing_ok=True)
 
     leapfrog = _uses_gradient(run) and hasattr(run.kernel, "n_steps")
     if leapfrog and coords is not None:
@@ -444,12 +616,25 @@ def write_report(out_dir, run, *, settings=None, title=None, coords=None, grid=T
     if animation and coords is not None:
         from .draw.animate import write_chain_animation
 
-        files.animation = write_chain_animation(
-            out / "chain.gif", run.target, run.kernel, coords=coords, seed=_seed(run, 3),
-            initial=run.draws[0, -1])
+        claim("chain.gif")
+        tmp, f = _temp_beside(out / "chain.gif", ".gif")
+        f.close()
+        try:  # the GIF writer writes in place: write beside it, then swap it in whole
+            write_chain_animation(tmp, run.target, run.kernel, coords=coords, seed=_seed(run, 3),
+                                  initial=run.draws[0, -1])
+            os.replace(tmp, out / "chain.gif")
+        except BaseException:
+            tmp.unlink(missing_ok=True)
+            raise
+        files.animation = out / "chain.gif"
+    claim("summary.json")
+    claim("report.html")
+    for stale in sorted(earlier - written):  # the earlier report's files this run does not make
+        (out / stale).unlink(missing_ok=True)
     summary = _summary(run, digest, settings, title, files, grid_info, command)
-    files.summary.write_text(json.dumps(summary, indent=2, allow_nan=False))
-    files.html.write_text(_html(run, digest, summary, images, captions, files))
+    page = _html(run, digest, summary, images, captions, files)
+    atomic_write(files.summary, json.dumps(summary, indent=2, allow_nan=False))
+    atomic_write(files.html, page)
     files.seconds = time.perf_counter() - started
     return files
 
@@ -460,6 +645,8 @@ def _summary(run, digest, settings, title, files, grid_info, command):
     d = digest.as_dict()
     target = run.target
     return {
+        "written_by": WRITTEN_BY,
+        "complete": True,
         "phaseglass_version": __version__,
         "model": {"name": title, "description": getattr(target, "description", None),
                   "dim": run.dim, "names": list(run.names),
@@ -471,6 +658,7 @@ def _summary(run, digest, settings, title, files, grid_info, command):
         "notes": list(files.notes),
         "caution": CAUTION,
         "tuning_grid": grid_info,
+        # the manifest: the only files a later report into this folder may replace or remove
         "files": sorted([p.name for p in files.figures.values()]
                         + (["chain.gif"] if files.animation else [])
                         + ["summary.json", "report.html"]),
