@@ -61,6 +61,8 @@ def _plural(n, word):
 def _summary(accepted):
     runs = rejection_runs(accepted)
     n = accepted.size
+    if n == 0:
+        return "no iterations yet"
     if runs.size == 0:
         return f"none of {n} rejected"
     # short: the title must fit over a narrow panel (about 300 px) for thousands of iterations
