@@ -40,7 +40,7 @@ def test_step_records_run_and_artists_show_it(glaze):
     # the latest trajectory is drawn from chain 0's previous state
     traj = view.sampler.last_trajectory
     assert np.allclose(view._traj.path.get_xydata()[0], traj.positions[0, 0, :2])
-    assert "25 transitions x 3 chains" in view._readout.value
+    assert "25 transitions \u00d7 3 chains" in view._readout.value
     assert pg.CAUTION in view._readout.value
 
 
@@ -80,7 +80,7 @@ def test_kernel_switch_keeps_positions_and_starts_new_record(glaze):
     assert np.allclose(view.sampler.state.position, before)
     view.step(3)
     assert view.run.n_grad.sum() == 0  # a random walk uses no gradients
-    assert "log-density evaluation" in view._readout.value
+    assert "6 log-density evaluations" in view._readout.value  # 3 transitions x 2 chains
 
 
 def test_reset_and_seed_restart(glaze):
@@ -113,7 +113,7 @@ def test_divergences_are_counted_and_marked():
     view.step(5)
     assert view.run.n_divergent > 0
     assert len(view._pairs.divergent.get_xydata()) == view.run.n_divergent
-    assert "divergent" in view._readout.value
+    assert f"{view.run.n_divergent} divergent transition" in view._readout.value
 
 
 def test_errors_from_user_code_land_in_status_and_view_keeps_working():
@@ -160,6 +160,12 @@ def test_settings_round_trip_and_exports(glaze, tmp_path):
     png = view.save_png(tmp_path / "chain.png")
     img = np.asarray(Image.open(png))
     assert img.std() > 5  # not blank
+    # the file is drawn at another dpi: its background must not be pasted by the next preview
+    assert view._background is None
+    view.render()
+    view.step_size = 0.05
+    shown = np.asarray(view.figure.canvas.buffer_rgba()).copy()
+    assert np.array_equal(shown, view.render())
     gif = view.save_gif(tmp_path / "chain.gif", n_transitions=2, frames_per_transition=2)
     with Image.open(gif) as im:
         assert im.n_frames == 4
@@ -181,3 +187,198 @@ def test_a_tuned_kernel_keeps_its_mass_matrix(glaze):
     assert np.allclose(view.kernel.metric.inverse_mass, [0.2, 0.5])
     view.kernel_name = "partial"
     assert np.allclose(view.kernel.metric.inverse_mass, [0.2, 0.5])
+
+
+# ------------------------------------------------------------------ preview of the next transition
+
+def _pair(glaze, **kw):
+    """Two identical views: one gets knob previews in between, the other does not."""
+    return make(glaze, **kw), make(glaze, **kw)
+
+
+@pytest.mark.parametrize("kw", [
+    dict(kernel_name="partial", uniform="drifting", step_size=0.05, n_steps=3, persistence=0.9),
+    dict(kernel_name="hmc", uniform="fresh", step_size=0.05, n_steps=6),  # jittered step size
+    dict(kernel_name="walk", uniform="drifting", step_size=0.3),
+], ids=["partial-drifting", "hmc-jitter", "walk"])
+def test_preview_consumes_no_random_numbers_and_is_the_next_transition(glaze, kw):
+    previewed, plain = _pair(glaze, seed=7, n_chains=2, **kw)
+    previewed.step(6)
+    plain.step(6)
+    counts = (glaze.n_density, glaze.n_grad)
+    for eps in (0.02, 0.4, 0.11):  # previews with other knobs, then the knobs end equal
+        previewed.step_size = eps
+    previewed.n_steps = 9
+    previewed.drift = 0.2
+    previewed.persistence = 0.5
+    with previewed.hold_trait_notifications():
+        previewed.step_size, previewed.n_steps = kw["step_size"], kw.get("n_steps", 10)
+        previewed.drift, previewed.persistence = 0.03, kw.get("persistence", 0.9)
+    preview = previewed.preview
+    assert preview is not None and preview.draw == 6
+    assert (glaze.n_density, glaze.n_grad) == counts  # a preview is not the user's work
+    assert previewed.run.n_draws == 6
+    previewed.step(1)
+    plain.step(1)
+    for field in ("unconstrained", "u", "accepted", "accept_prob", "energy_error"):
+        assert np.array_equal(getattr(previewed.run, field), getattr(plain.run, field)), field
+    # the preview was exactly that transition
+    assert preview.accepted == bool(plain.run.accepted[0, -1])
+    assert preview.u == plain.run.u[0, -1]
+    assert preview.accept_prob == plain.run.accept_prob[0, -1]
+    if kw["kernel_name"] == "walk":
+        if preview.accepted:
+            assert np.array_equal(preview.proposal, plain.run.unconstrained[0, -1])
+    else:
+        assert np.array_equal(preview.trajectory.positions, plain.sampler.last_trajectory.positions[0])
+        assert preview.step_size == plain.run.step_size[0, -1]
+    previewed.step(10)
+    plain.step(10)
+    assert np.array_equal(previewed.run.unconstrained, plain.run.unconstrained)
+    assert previewed.preview is None  # taken, so gone
+
+
+def test_knob_change_draws_the_preview_at_once_without_advancing(glaze):
+    view = make(glaze, kernel_name="partial", uniform="drifting", step_size=0.05, n_steps=8,
+                persistence=0.9, seed=2)
+    view.step(20)
+    view.render()
+    assert len(view._next.path.get_xydata()) == 0  # no preview before a knob moves
+    before = np.asarray(view.figure.canvas.buffer_rgba()).copy()
+    view.step_size = 0.08
+    path = view._next.path.get_xydata()
+    assert view.run.n_draws == 20
+    assert len(path) == 9  # n_steps + 1 leapfrog positions
+    assert np.allclose(path[0], view.sampler.state.position[0, list(view.coords)])
+    assert np.allclose(path, view.preview.trajectory.positions[:, list(view.coords)])
+    # the repaint happened already (blit into the canvas buffer, no step, no full draw)
+    blitted = np.asarray(view.figure.canvas.buffer_rgba()).copy()
+    assert np.any(blitted != before)
+    full = view.render()
+    assert np.mean(np.any(blitted[..., :3] != full[..., :3], axis=-1)) < 0.002
+    view.step_size = 0.02
+    assert not np.allclose(view._next.path.get_xydata()[-1], path[-1])
+    # the u the next iteration would draw, at that iteration
+    assert np.allclose(view._next_u.u.get_xydata(), [[20, view.preview.u]])
+    text = view._readout.value
+    assert "preview" in text and "would be " + ("accepted" if view.preview.accepted else "rejected") in text
+    view.step()
+    assert view.preview is None
+    assert len(view._next.path.get_xydata()) == 0 and len(view._next_u.u.get_xydata()) == 0
+    assert "preview" not in view._readout.value
+
+
+def test_random_walk_preview_shows_the_proposal(glaze):
+    view = make(glaze, kernel_name="walk", step_size=0.4, seed=5)
+    view.step(3)
+    view.step_size = 0.5
+    p = view.preview
+    assert p.trajectory is None
+    i, j = view.coords
+    assert np.allclose(view._next.path.get_xydata(), [p.start[[i, j]], p.proposal[[i, j]]])
+    assert np.allclose(view._next.end.get_xydata(), [p.proposal[[i, j]]])
+    assert "proposal (" in view._readout.value
+
+
+def test_divergent_preview_is_marked():
+    # Leapfrog on N(0, sigma^2) is unstable for step size > 2 sigma (Neal 2011, "MCMC using
+    # Hamiltonian dynamics", Handbook of MCMC ch. 5): sigma = 0.1 here, so 0.5 diverges.
+    target = pg.demos.correlated_gaussian(2, 0.0, scales=[1.0, 0.1])
+    view = pg.ChainView(target, step_size=0.05, n_steps=10, xlim=(-3, 3), ylim=(-0.5, 0.5))
+    view.step_size = 0.5
+    assert view.preview.divergent and not view.preview.accepted
+    assert len(view._next.divergent.get_xydata()) == 2
+    assert len(view._next.end.get_xydata()) == 0
+    assert "would diverge at leapfrog step" in view._readout.value
+
+
+def test_kernel_switch_previews_the_new_kernel(glaze):
+    view = make(glaze, step_size=0.1, n_steps=5)
+    view.step(4)
+    view.kernel_name = "walk"
+    assert view.preview is not None and view.preview.trajectory is None
+    assert view._step_knob.label.value == "scale"
+    assert view._steps_knob.disabled and view._persist_knob.disabled
+    assert view._drift_knob.disabled  # fresh u: no drift to set
+    view.uniform = "drifting"
+    assert not view._drift_knob.disabled
+
+
+# ------------------------------------------------------------------ controls and words
+
+def test_sliders_are_wide_scaled_to_the_target_and_keep_code_values(glaze):
+    from phaseglass.ui._controls import KnobControl
+    from phaseglass.ui._shared import pilot, step_size_range
+
+    view = make(glaze, step_size=0.05, kernel_name="partial")
+    knobs = [view._step_knob, view._steps_knob, view._persist_knob, view._drift_knob]
+    assert all(isinstance(k, KnobControl) for k in knobs)
+    for k, css in zip(knobs, ["pg-step-size", "pg-n-steps", "pg-persistence", "pg-drift"]):
+        assert css in k.slider._dom_classes
+        assert int(k.slider.layout.width.rstrip("px")) >= 160
+    assert "pg-primary" in view._step_knob.slider._dom_classes
+    low, high = step_size_range(pilot(glaze).step_size)
+    assert view._step_knob.slider.min == pytest.approx(np.log10(low))
+    assert view._step_knob.slider.max == pytest.approx(np.log10(high))
+    # the value set from code is the value used, not the slider's nearest position
+    assert view.step_size == 0.05 and view.kernel.step_size == 0.05
+    assert view._step_knob.box.value == 0.05
+    view.step_size = 0.0437
+    assert view.kernel.step_size == 0.0437
+    # a drag is taken (rounded to 3 significant digits) and previewed
+    view._step_knob.slider.value = 10 ** (np.log10(low) + 0.6 * (np.log10(high) - np.log10(low)))
+    assert view.step_size != 0.0437 and view.kernel.step_size == view.step_size
+    assert view.preview is not None and view.preview.step_size == view.step_size
+    assert view._steps_knob.slider.max >= 100
+    # the random walk's scale gets a range around 2.38 sd / sqrt(dim) (Roberts, Gelman & Gilks 1997)
+    view.kernel_name = "walk"
+    sd = pilot(glaze).sd
+    centre = 2.38 * np.exp(np.mean(np.log(sd))) / np.sqrt(2)
+    lo, hi = 10 ** view._step_knob.slider.min, 10 ** view._step_knob.slider.max
+    assert lo < centre < hi and hi / lo == pytest.approx(300)
+
+
+def test_readout_in_words_not_python(glaze):
+    view = make(glaze, kernel_name="partial", uniform="drifting", step_size=0.03981071705534969,
+                n_steps=1, persistence=0.9500000000000002, drift=0.03)
+    text = view._readout.value
+    assert "PartialRefreshHMC(" not in text and "{" not in text
+    assert ("HMC with partial momentum refresh: step size 0.03981, 1 step, persistence 0.95, "
+            "drifting u (drift 0.03), identity mass matrix") in text
+    view.step(1)
+    assert "1 transition \u00d7 2 chains" in view._readout.value
+    tuned = pg.HMC(0.3, 4, metric=np.array([0.2, 0.5]))
+    assert "HMC: step size 0.3 (jittered by \u00b110 %), 4 steps, fresh u, diagonal mass matrix" in \
+        make(glaze, kernel=tuned)._readout.value
+
+
+def test_kernel_dropdown_texts_fit_its_width(glaze):
+    view = make(glaze)
+    width_px = int(view._kernel_pick.layout.width.rstrip("px"))
+    longest = max(len(label) for label, _ in view._kernel_pick.options)
+    # about 8 px per character at JupyterLab's 13 px UI font, plus 32 px for the arrow and padding
+    assert 8 * longest + 32 <= width_px
+    assert view._kernel_pick.description == ""  # its label is a separate Label: nothing squeezes it
+
+
+@pytest.mark.parametrize("kw", [
+    dict(kernel_name="partial", uniform="drifting", step_size=0.04, n_steps=1, persistence=0.95),
+    dict(kernel_name="walk", step_size=0.6),  # many rejections: the longest u-panel title
+], ids=["partial", "walk"])
+def test_figure_fits_the_column_and_the_u_legend_leaves_the_data(glaze, kw):
+    from phaseglass.ui._base import COLUMN_WIDTH_IN
+
+    view = pg.ChainView(glaze, seed=3, **kw)  # region from the pilot run, as in a notebook
+    view.step(1500)
+    view.step_size = 1.5 * view.step_size  # with a preview
+    view.render()
+    fig = view.figure
+    assert fig.get_size_inches()[0] <= COLUMN_WIDTH_IN
+    renderer = fig.canvas.get_renderer()
+    box = fig.bbox
+    for ax in fig.axes:  # titles, tick labels and legends all inside the figure
+        tight = ax.get_tightbbox(renderer)
+        assert tight.x0 >= box.x0 - 1 and tight.x1 <= box.x1 + 1, ax.get_title(loc="left")
+        assert tight.y0 >= box.y0 - 1 and tight.y1 <= box.y1 + 1, ax.get_title(loc="left")
+    leg = view._ax_u.get_legend().get_window_extent(renderer)
+    assert leg.y1 <= view._ax_u.get_window_extent(renderer).y0  # below the panel, off the u = 1 band

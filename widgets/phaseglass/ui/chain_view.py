@@ -1,31 +1,153 @@
 """ChainView: run a kernel transition by transition and watch what each choice buys."""
 
+import copy
+import html
+from dataclasses import dataclass
+
 import ipywidgets as widgets
 import numpy as np
 import traitlets
+from matplotlib.ticker import MaxNLocator
 
 from ..core.diagnostics import ess
 from ..core.kernels import HMC, PartialRefreshHMC, RandomWalk
 from ..core.run import CAUTION
 from ..core.sampling import Sampler
-from ..core.slices import log_density_grid, resolve_coords
+from ..core.slices import resolve_coords
 from ..core.uniforms import DriftingUniform, FreshUniform
 from ..draw import draw_log_density, draw_pair, draw_traces, draw_trajectory, draw_uniform_sequence
+from ..draw.chains import draw_next_transition
 from ..draw.style import key_handles, legend
-from ._base import View, check_range, check_target, guarded
-from .trajectory_view import pilot_region
+from ..draw.trajectory import one_chain
+from ..draw.uniforms import draw_next_decision
+from ._base import View, check_range, check_target, guarded, number, plural
+from ._controls import KnobControl
+from ._shared import GridCache, pilot, step_size_range
 
-__all__ = ["ChainView", "KERNELS"]
+__all__ = ["ChainView", "KERNELS", "NextTransition", "peek_next_transition", "describe_kernel"]
 
-#: Kernel choices of the view: name -> (class, description).
+#: Kernel choices of the view: name -> text of the dropdown.
 KERNELS = {
-    "hmc": "HMC (fresh momentum, fixed steps)",
-    "partial": "HMC with partial momentum refresh",
+    "hmc": "HMC",
+    "partial": "HMC, partial momentum refresh",
     "walk": "random-walk Metropolis",
 }
 
 _MIN_ESS_DRAWS = 20
+_MAX_STEPS_SLIDER = 200
+_WALK_SCALE = 2.38  # optimal random-walk scale is about 2.38 sd / sqrt(dim) (Roberts, Gelman & Gilks 1997)
+_METRIC_WORDS = {"identity": "identity mass matrix", "diagonal": "diagonal mass matrix",
+                 "dense": "dense mass matrix"}
 
+
+# ------------------------------------------------------------------ preview
+
+@dataclass(frozen=True, repr=False)
+class NextTransition:
+    """What chain 0's next transition would do with the current knobs, before it is taken.
+
+    Attributes
+    ----------
+    draw : int
+        Iteration number the transition would get (``sampler.n_draws``).
+    start : ndarray, shape (dim,)
+        Chain 0's current position (sampler's scale).
+    proposal : ndarray, shape (dim,)
+        The point proposed: the trajectory's last step before any divergence,
+        or the random walk's proposal.
+    trajectory : Trajectory or None
+        Chain 0's leapfrog trajectory (None for a random walk).
+    accepted, divergent : bool
+    accept_prob, energy_error, u, step_size : float
+        ``energy_error`` is the change of H (minus the log ratio for a random
+        walk); ``step_size`` is the one used (after jitter), or the walk's scale.
+    """
+
+    draw: int
+    start: np.ndarray
+    proposal: np.ndarray
+    trajectory: object
+    accepted: bool
+    divergent: bool
+    accept_prob: float
+    energy_error: float
+    u: float
+    step_size: float
+
+    def __repr__(self):
+        verdict = "accepted" if self.accepted else ("divergent" if self.divergent else "rejected")
+        return (f"NextTransition(draw {self.draw}: {verdict}, accept_prob={number(self.accept_prob)}, "
+                f"energy_error={number(self.energy_error)}, u={number(self.u)})")
+
+
+def peek_next_transition(sampler):
+    """Chain 0's next transition, computed on copies: nothing advances, nothing is consumed.
+
+    The kernel's own transition runs on a deep copy of the sampler's state
+    and random streams, so the result is exactly what the next
+    ``sampler.step()`` will do with the same knobs (same momentum, same
+    jitter, same ``u``), and the real run's random numbers are untouched. The
+    target's evaluation counts are restored: a preview is not the user's work.
+
+    Parameters
+    ----------
+    sampler : Sampler
+
+    Returns
+    -------
+    NextTransition
+    """
+    target, kernel = sampler.target, sampler.kernel
+    state = sampler.state.copy()
+    streams = copy.deepcopy(sampler.streams)
+    counts = (target.n_density, target.n_grad)
+    try:
+        with np.errstate(all="ignore"):
+            proposal = None
+            if isinstance(kernel, RandomWalk):
+                # the walk keeps no trajectory: its first draw is the step, read from a second copy
+                look = copy.deepcopy(streams)
+                proposal = state.position[0] + kernel.scale * kernel.metric.spread_from_normal(
+                    look.normal(target.dim))[0]
+            start = state.position[0].copy()
+            info = kernel.transition(target, state, streams, record=True)
+    finally:
+        target.n_density, target.n_grad = counts
+    traj = info.get("trajectory")
+    if traj is not None:
+        traj = one_chain(traj, 0)
+        last = traj.divergence_step - 1 if traj.divergent else traj.n_steps
+        proposal = traj.positions[last].copy()
+    return NextTransition(
+        draw=sampler.n_draws, start=start, proposal=np.asarray(proposal, dtype=float),
+        trajectory=traj, accepted=bool(info["accepted"][0]), divergent=bool(info["divergent"][0]),
+        accept_prob=float(info["accept_prob"][0]), energy_error=float(info["energy_error"][0]),
+        u=float(info["u"][0]), step_size=float(info["step_size"][0]))
+
+
+def describe_kernel(kernel):
+    """The kernel in words, e.g. ``"HMC with partial momentum refresh: step size 0.04, 1 step, ..."``."""
+    u = kernel.uniform
+    if isinstance(u, DriftingUniform):
+        extra = f", jitter {number(u.jitter)}" if u.jitter else ""
+        uniform = f"drifting u (drift {number(u.drift)}{extra})"
+    else:
+        uniform = "fresh u"
+    metric = _METRIC_WORDS.get(kernel.metric.kind, f"{kernel.metric.kind} mass matrix")
+    if isinstance(kernel, RandomWalk):
+        return f"random-walk Metropolis: scale {number(kernel.scale)}, {uniform}, {metric}"
+    parts = [f"step size {number(kernel.step_size)}", plural(kernel.n_steps, "step")]
+    if isinstance(kernel, PartialRefreshHMC):
+        name = "HMC with partial momentum refresh"
+        parts.append(f"persistence {number(kernel.persistence)}")
+    else:
+        name = "HMC"
+        if getattr(kernel, "jitter", 0):
+            parts[0] += f" (jittered by \u00b1{number(100 * kernel.jitter)} %)"
+    return f"{name}: {', '.join(parts + [uniform, metric])}"
+
+
+# --------------------------------------------------------------------- view
 
 class ChainView(View):
     """Run a kernel one transition at a time: draws, latest trajectory, trace, u sequence.
@@ -38,10 +160,16 @@ class ChainView(View):
     divergences, gradient evaluations and ESS per gradient so far (with the
     caution that diagnostics never prove convergence).
 
-    Knobs ``step_size``, ``n_steps``, ``persistence`` and ``drift`` act live on
-    the next transition. Changing ``kernel_name`` or ``uniform`` starts a new
-    record from the chains' current positions; changing ``seed`` or
-    ``n_chains`` (or Reset) starts over from the initial points.
+    Knobs ``step_size``, ``n_steps``, ``persistence`` and ``drift`` act on the
+    next transition, and show it at once: chain 0's next transition from its
+    current state is drawn as a preview (dashed path, diamond at the proposal,
+    a diamond at the ``u`` it would draw) and ``preview`` holds its numbers.
+    The preview runs on copies of the chains' state and random streams, so it
+    is exactly what the next step does and it never changes the run; fresh
+    chains (a new view, Reset, another kernel) show it too. Changing
+    ``kernel_name`` or ``uniform`` starts a new record from the chains'
+    current positions; changing ``seed`` or ``n_chains`` (or Reset) starts over
+    from the initial points.
 
     Parameters
     ----------
@@ -59,12 +187,18 @@ class ChainView(View):
         Draws kept (a ring buffer), so live play runs in bounded memory.
     steps_per_tick : int
         Transitions per Play tick.
+    xlim, ylim : (float, float), optional
+        Region of the left panel; default from the target's (shared) pilot run.
+    initial : array_like, optional
+        Starts on the user's scale (see ``Sampler``).
 
     Attributes
     ----------
     sampler : Sampler
     run : Run
         Everything recorded so far (draws (chain, draw, dim), accepted, u, ...).
+    preview : NextTransition or None
+        The previewed next transition of chain 0 (None after a step, until a knob moves).
     """
 
     kernel_name = traitlets.Enum(tuple(KERNELS), "hmc", help="Transition kernel.").tag(setting=True)
@@ -86,8 +220,9 @@ class ChainView(View):
         check_target(target, min_dim=2)
         self.target = target
         self.capacity = int(capacity)
-        super().__init__(figsize=(8.6, 4.6))
+        super().__init__(figsize=(7.6, 4.9))
         self._ready = False
+        self.preview = None
         coords = resolve_coords(coords, target.names, target.dim)
         # a kernel passed in (e.g. tuned by pg.sample) keeps its mass matrix for every kernel built here
         self._metric = None
@@ -98,9 +233,6 @@ class ChainView(View):
             n_steps = knobs.get("n_steps", n_steps)
             persistence = knobs.get("persistence", persistence)
             drift = knobs.get("drift", drift)
-        px, py, start = pilot_region(target, coords, seed=seed)
-        self.xlim = tuple(xlim) if xlim is not None else px
-        self.ylim = tuple(ylim) if ylim is not None else py
         self._initial = initial
         with self.hold_trait_notifications():
             self.kernel_name = kernel_name
@@ -114,10 +246,21 @@ class ChainView(View):
             self.coords = coords
             self.steps_per_tick = steps_per_tick
         self._new_sampler(keep_positions=False)
+        # the target's shared pilot run gives the region and the step-size slider's range
+        self._pilot = pilot(target)
+        start = self.sampler.state.position[0]
+        region = self._pilot.region(coords, start=start)
+        self.xlim = tuple(xlim) if xlim is not None else region[0]
+        self.ylim = tuple(ylim) if ylim is not None else region[1]
+        self._grids = GridCache(target, n=80)
         self._build_controls()
         self._build_figure()
         self._ready = True
         self._refresh()
+        if not self._pilot.ok:
+            err = self._pilot.error
+            self.status = (f"the pilot run failed ({type(err).__name__}: {err}); the region and "
+                           "slider ranges are guesses around chain 0's start")
 
     # ------------------------------------------------------------ validation
     _RANGES = {"step_size": (0.0, None, "(]"), "n_steps": (1, None, "[]"),
@@ -153,6 +296,15 @@ class ChainView(View):
         self.sampler = Sampler(self.target, self._make_kernel(), initial, n_chains=self.n_chains,
                                seed=self.seed, capacity=self.capacity)
         self._last_accepted = None
+        self.preview = self._peek()  # fresh chains: show where chain 0 would go first
+
+    def _peek(self):
+        """The next transition of chain 0, or None (reported in the status line) if it fails."""
+        try:
+            return peek_next_transition(self.sampler)
+        except Exception as exc:  # user code can raise anything: the view keeps working
+            self.report_error("preview", exc)
+            return None
 
     @property
     def run(self):
@@ -160,22 +312,34 @@ class ChainView(View):
         return self.sampler.run
 
     # -------------------------------------------------------------- controls
+    def _step_range(self):
+        """Step-size slider range from the pilot run (the random walk's scale for "walk")."""
+        if self.kernel_name == "walk":
+            sd = self._pilot.sd[np.isfinite(self._pilot.sd) & (self._pilot.sd > 0)]
+            typical = float(np.exp(np.mean(np.log(sd)))) if sd.size else 1.0
+            return step_size_range(_WALK_SCALE * typical / np.sqrt(self.target.dim))
+        return step_size_range(self._pilot.step_size)
+
     def _build_controls(self):
         self._kernel_pick = widgets.Dropdown(options=[(v, k) for k, v in KERNELS.items()],
-                                             description="kernel", layout=widgets.Layout(width="330px"))
+                                             value=self.kernel_name,
+                                             layout=widgets.Layout(width="300px"))
         self._kernel_pick.add_class("pg-kernel")
-        self._uniform_pick = widgets.ToggleButtons(options=[("fresh u", "fresh"), ("drifting u", "drifting")])
+        self._uniform_pick = widgets.ToggleButtons(options=[("fresh u", "fresh"),
+                                                            ("drifting u", "drifting")],
+                                                   value=self.uniform,
+                                                   style={"button_width": "96px"})
         self._uniform_pick.add_class("pg-uniform")
-        self._step_slider = widgets.FloatLogSlider(base=10, min=-3, max=0.5, step=0.02,
-                                                   description="step size", readout_format=".3g")
-        self._step_slider.add_class("pg-step-size")
-        self._steps_slider = widgets.IntSlider(min=1, max=200, description="steps")
-        self._steps_slider.add_class("pg-n-steps")
-        self._persist_slider = widgets.FloatSlider(min=0.0, max=0.99, step=0.01, description="persistence")
-        self._persist_slider.add_class("pg-persistence")
-        self._drift_slider = widgets.FloatLogSlider(base=10, min=-3, max=-0.3, step=0.05,
-                                                    description="drift", readout_format=".3g")
-        self._drift_slider.add_class("pg-drift")
+        low, high = self._step_range()
+        self._step_knob = KnobControl(self, "step_size", low=low, high=high, log=True,
+                                      label="step size", css_class="pg-step-size")
+        self._step_knob.slider.add_class("pg-primary")
+        self._steps_knob = KnobControl(self, "n_steps", low=1, high=_MAX_STEPS_SLIDER, integer=True,
+                                       label="steps", css_class="pg-n-steps")
+        self._persist_knob = KnobControl(self, "persistence", low=0.0, high=0.99,
+                                         label="persistence", css_class="pg-persistence")
+        self._drift_knob = KnobControl(self, "drift", low=1e-3, high=0.5, log=True, label="drift",
+                                       css_class="pg-drift")
         self._play = widgets.Play(value=0, min=0, max=10**9, step=1, interval=150, show_repeat=False)
         self._play.add_class("pg-play")
         self._step_button = widgets.Button(description="step", icon="step-forward")
@@ -185,8 +349,6 @@ class ChainView(View):
         self._seed_box = widgets.BoundedIntText(min=0, max=2**31 - 1, description="seed",
                                                 layout=widgets.Layout(width="160px"))
         for control, trait in ((self._kernel_pick, "kernel_name"), (self._uniform_pick, "uniform"),
-                               (self._step_slider, "step_size"), (self._steps_slider, "n_steps"),
-                               (self._persist_slider, "persistence"), (self._drift_slider, "drift"),
                                (self._seed_box, "seed")):
             traitlets.link((self, trait), (control, "value"))
         self._play.observe(self._on_tick, "value")
@@ -194,12 +356,25 @@ class ChainView(View):
         self._reset_button.on_click(lambda _: self.reset())
         self._readout = widgets.HTML()
         self._readout.add_class("pg-chain-readout")
+        self._sync_controls()
+        wrap = widgets.Layout(flex_flow="row wrap", align_items="center")
         self.children = [
-            widgets.HBox([self._kernel_pick, self._uniform_pick]),
-            widgets.HBox([self._step_slider, self._steps_slider, self._persist_slider, self._drift_slider]),
-            widgets.HBox([self._play, self._step_button, self._reset_button, self._seed_box]),
+            widgets.HBox([widgets.Label("kernel"), self._kernel_pick, self._uniform_pick], layout=wrap),
+            widgets.HBox([self._step_knob, self._steps_knob, self._persist_knob, self._drift_knob],
+                         layout=wrap),
+            widgets.HBox([self._play, self._step_button, self._reset_button, self._seed_box],
+                         layout=wrap),
             self.figure.canvas, self._readout, self._status_html,
         ]
+
+    def _sync_controls(self):
+        """Label and range of the step knob for this kernel; knobs it ignores are disabled."""
+        walk = self.kernel_name == "walk"
+        self._step_knob.label.value = "scale" if walk else "step size"
+        _set_range(self._step_knob, *self._step_range())
+        self._steps_knob.disabled = walk
+        self._persist_knob.disabled = self.kernel_name != "partial"
+        self._drift_knob.disabled = self.uniform != "drifting"
 
     # ---------------------------------------------------------------- figure
     def _build_figure(self):
@@ -208,28 +383,39 @@ class ChainView(View):
         self._ax = fig.add_subplot(grid[:, 0])
         self._ax_trace = fig.add_subplot(grid[0, 1])
         self._ax_u = fig.add_subplot(grid[1, 1])
-        i, j = self.coords
+        i, _ = self.coords
         through = self.sampler.state.position[0]
-        self._density = draw_log_density(self._ax, log_density_grid(
-            self.target, self.coords, through, self.xlim, self.ylim, n=80))
+        names = self._axis_names()
+        self._density = draw_log_density(self._ax, self._grids.get(self.coords, through, self.xlim,
+                                                                   self.ylim))
         run = self.run
-        self._pairs = draw_pair(self._ax, run.unconstrained, self.coords, names=self._axis_names(),
+        self._pairs = draw_pair(self._ax, run.unconstrained, self.coords, names=names,
                                 divergent=run.divergent, markersize=3.0)
         self._pairs.autoscale = False
         self._traj = None
+        self._next = draw_next_transition(self._ax, coords=self.coords)
+        self._next.autoscale = False
         self._traces = draw_traces(self._ax_trace, run.unconstrained, i, names=self.target.names,
                                    divergent=run.divergent)
         self._useq = draw_uniform_sequence(self._ax_u, run.u[0], run.accepted[0], run.accept_prob[0])
+        self._useq.autoscale = False  # the view leaves room for the next iteration's preview
+        self._next_u = draw_next_decision(self._ax_u)
+        self._next_u.autoscale = False
         self._ax.set_xlim(self.xlim)
         self._ax.set_ylim(self.ylim)
-        self._ax.set_title("draws (sampler's scale) and chain 0's latest trajectory", loc="left",
-                           fontsize=9)
-        self._ax_trace.set_title(f"trace of {self.target.names[i]}, every chain", loc="left", fontsize=9)
-        self._ax_u.set_title("chain 0: accept/reject variable u per iteration", loc="left", fontsize=9)
-        handles = key_handles("start", "path", "accepted", "rejected", "divergent")
-        legend(self._ax, loc="upper center", bbox_to_anchor=(0.5, -0.12), ncol=3, handles=handles,
+        self._ax.set_title("draws and chain 0's latest trajectory", loc="left", fontsize=9)
+        self._ax_trace.set_title(f"trace of {self.target.names[i]}, every chain", loc="left",
+                                 fontsize=9)
+        self._ax_trace.set_xlabel("")
+        self._ax_u.set_ylabel("u of chain 0")
+        for ax in (self._ax_trace, self._ax_u):  # iterations are whole numbers
+            ax.xaxis.set_major_locator(MaxNLocator(nbins=6, integer=True))
+        handles = key_handles("start", "path", "accepted", "rejected", "divergent") + [self._next.path]
+        legend(self._ax, loc="upper center", bbox_to_anchor=(0.5, -0.11), ncol=3, handles=handles,
                labels=[h.get_label() for h in handles], fontsize=7)
-        legend(self._ax_u, loc="upper left", fontsize=7)
+        # below the panel, never over the points near u = 1
+        legend(self._ax_u, loc="upper center", bbox_to_anchor=(0.5, -0.3), ncol=2, fontsize=7)
+        self.set_dynamic(self._next.artists + self._next_u.artists)
 
     def _axis_names(self):
         suffix = " (sampler's scale)" if self.target.bounded else ""
@@ -260,6 +446,7 @@ class ChainView(View):
     @guarded("step")
     def _step(self, n):
         info = None
+        self.preview = None  # the previewed transition is taken (or replaced): drop it
         for _ in range(int(n)):
             info = self.sampler.step(record=True)
         if info is not None:
@@ -300,11 +487,31 @@ class ChainView(View):
         except Exception as exc:
             self.report_error("setting change", exc)
             return
-        self._refresh(redraw=False)
+        self._show_preview()
+
+    @guarded("preview")
+    def _show_preview(self):
+        """Chain 0's next transition with the new knobs, drawn at once (only the preview repaints)."""
+        self.status = ""
+        self.preview = self._peek()
+        self._draw_preview()
+        self._readout.value = self._readout_html(self.run)
+        self.redraw()
+
+    def _draw_preview(self):
+        p = self.preview
+        if p is None:
+            self._next.update(None)
+            self._next_u.update(None)
+            return
+        moved = p.trajectory if p.trajectory is not None else np.stack([p.start, p.proposal])
+        self._next.update(moved, p.accepted)
+        self._next_u.update(p.draw, min(max(p.u, 0.0), 1.0), p.accepted, p.accept_prob)
 
     @traitlets.observe("kernel_name", "uniform")
     def _on_kernel(self, change):
         if self._ready:
+            self._sync_controls()
             self._safe_new_sampler(True)
 
     @traitlets.observe("seed", "n_chains")
@@ -323,37 +530,78 @@ class ChainView(View):
 
     # --------------------------------------------------------------- drawing
     @guarded("redraw")
-    def _refresh(self, redraw=True):
+    def _refresh(self):
         run = self.run
         z = run.unconstrained
         self._pairs.update(z, run.divergent)
         traj = self.sampler.last_trajectory
         self._ensure_trajectory(traj, self._last_accepted)
         self._traces.update(z, run.divergent, first=run.first_draw)
+        if run.n_draws == 0:  # nothing to scale to yet: the range of the left panel's x
+            self._ax_trace.set_xlim(run.first_draw - 0.5, run.first_draw + 10)
+            self._ax_trace.set_ylim(self.xlim)
         self._useq.update(run.u[0], run.accepted[0], run.accept_prob[0], first=run.first_draw)
+        # a free slot at the right: where the next iteration's preview goes
+        last = run.first_draw + run.n_draws
+        room = max(1.0, 0.03 * run.n_draws) if run.n_draws else 10.0
+        self._ax_u.set_xlim(run.first_draw - 0.5, last + room)
+        self._draw_preview()
         self._readout.value = self._readout_html(run)
-        if redraw:
-            self.redraw(full=True)
+        self.redraw(full=True)
 
     def _readout_html(self, run):
         n = run.n_draws
+        kernel = self.sampler.kernel
         if n == 0:
             body = "no transitions yet: press step or play"
         else:
             acc = float(np.mean(run.accepted))
-            grads = run.total_grad
-            evals = grads if self.sampler.kernel.uses_gradient else n * run.n_chains
-            unit = "gradient" if self.sampler.kernel.uses_gradient else "log-density evaluation"
-            per = "n/a (fewer than 20 draws)"
+            rejections = int(np.size(run.accepted) - np.count_nonzero(run.accepted))
+            unit = "gradient evaluation" if kernel.uses_gradient else "log-density evaluation"
+            evals = run.total_grad if kernel.uses_gradient else n * run.n_chains
+            per = f"n/a (fewer than {_MIN_ESS_DRAWS} draws)"
             if n >= _MIN_ESS_DRAWS:
                 e = np.nanmin(ess(run.unconstrained, method="bulk"))
-                per = f"{e / max(evals, 1):.3g}" if np.isfinite(e) else "n/a"
-            body = (f"{run.first_draw + n} transitions x {run.n_chains} chains | acceptance {acc:.3f} | "
-                    f"{run.n_divergent} divergent | {evals} {unit}s | min bulk ESS per {unit}: {per}")
-        return (f"<span style='font-family:monospace'>{self.sampler.kernel!r}<br>{body}</span>"
-                f"<br><small><i>{CAUTION}</i></small>")
+                per = number(e / max(evals, 1), 3) if np.isfinite(e) else "n/a"
+            body = (f"{plural(run.first_draw + n, 'transition')} \u00d7 {plural(run.n_chains, 'chain')}"
+                    f" | acceptance rate {number(acc, 3)} ({plural(rejections, 'rejection')})"
+                    f" | {plural(run.n_divergent, 'divergent transition')}"
+                    f" | {plural(evals, unit)} | min bulk ESS per {unit}: {per}")
+        lines = [describe_kernel(kernel), body]
+        if self.preview is not None:
+            lines.append(self._preview_text(self.preview))
+        text = "<br>".join(html.escape(s) for s in lines)
+        return (f"<span style='font-family:monospace'>{text}</span>"
+                f"<br><small><i>{html.escape(CAUTION)}</i></small>")
+
+    def _preview_text(self, p):
+        if p.divergent:
+            where = p.trajectory.divergence_step if p.trajectory is not None else "?"
+            verdict = (f"diverge at leapfrog step {where} (|\u0394H| > "
+                       f"{number(self.sampler.kernel.max_energy_error)}) and be rejected")
+        else:
+            what = "accepted" if p.accepted else "rejected"
+            change = (f"\u0394H = {p.energy_error:+.3g}" if p.trajectory is not None else
+                      f"log density ratio {-p.energy_error:+.3g}")
+            verdict = (f"be {what}: {change}, acceptance probability {number(p.accept_prob, 3)}, "
+                       f"u = {number(p.u, 3)}")
+        if p.trajectory is None:
+            i, j = self.coords
+            what = f"proposal ({number(p.proposal[i], 3)}, {number(p.proposal[j], 3)})"
+        else:
+            what = "transition"
+            if not np.isclose(p.step_size, self.step_size, rtol=1e-12, atol=0):
+                what += f" (step size {number(p.step_size)} after jitter)"
+        return (f"preview (press step to take it): chain 0's next {what} would {verdict}")
 
     # ------------------------------------------------------------- exporting
+    def save_png(self, path, dpi=120):
+        """Write the current figure (with any preview) to ``path`` as PNG."""
+        try:
+            return super().save_png(path, dpi=dpi)
+        finally:
+            self._background = None  # captured at the file's dpi: the next repaint draws in full
+
     def save_gif(self, path, n_transitions=12, frames_per_transition=3, **kwargs):
         """Write a GIF of chain 0 continuing from its current state with the current kernel.
 
@@ -376,6 +624,25 @@ class ChainView(View):
         if "coords" in known:
             known["coords"] = tuple(known["coords"])
         return cls(target, **known)
+
+
+def _set_range(knob, low, high):
+    """Move a KnobControl's slider range to [low, high] without touching the knob's value."""
+    s = knob.slider
+    lo, hi = (np.log10(low), np.log10(high)) if knob.logscale else (low, high)
+    knob._quiet = True  # clamping echoes of the old value must not reach the knob
+    try:
+        if lo > s.max:
+            s.max = hi
+            s.min = lo
+        else:
+            s.min = lo
+            s.max = hi
+        if not knob.integer_knob:
+            s.step = (hi - lo) / 200
+    finally:
+        knob._quiet = False
+    knob.show(getattr(knob.owner, knob.trait))
 
 
 def _knobs_of(kernel):
