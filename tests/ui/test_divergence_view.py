@@ -137,7 +137,7 @@ def test_replay_controls_are_disabled_until_there_is_a_divergence():
                               warmup=0, chunk=100, seed=1)
         before = [view._play.disabled, view._step_button.disabled, view._step_slider.disabled,
                   view._replay_knob.box.disabled]
-        primary_before = "pg-primary" in view._x_pick._dom_classes
+        primary_before = "pg-primary" in view._y_pick._dom_classes
         await view.wait()
         return view, before, primary_before
 
@@ -147,7 +147,7 @@ def test_replay_controls_are_disabled_until_there_is_a_divergence():
     assert not (view._play.disabled or view._step_button.disabled or view._step_slider.disabled)
     # the control a browser test moves is now the replay slider (and only it)
     assert "pg-primary" in view._step_slider._dom_classes
-    assert "pg-primary" not in view._x_pick._dom_classes
+    assert "pg-primary" not in view._y_pick._dom_classes
 
 
 def test_moving_the_primary_control_changes_the_pixels_at_once(view, blank_fraction):
@@ -190,11 +190,11 @@ def test_a_run_without_divergences_says_so(tmp_path):
     assert "never prove convergence" in view._readout.value
     assert view._play.disabled and view._step_button.disabled and view._step_slider.disabled
     # with nothing to replay, the coordinate picker is the control that changes the figure
-    assert "pg-primary" in view._x_pick._dom_classes
+    assert "pg-primary" in view._y_pick._dom_classes
     assert "pg-primary" not in view._step_slider._dom_classes
     before = view.render()
-    view._x_pick.value = 2
-    assert view.coords == (2, 1)
+    view._y_pick.value = 2  # the next choice, as a browser test picks it
+    assert view.coords == (0, 2)
     assert np.any(view.render() != before)
     view.step()
     assert "no divergence" in view.status

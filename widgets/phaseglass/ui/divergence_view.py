@@ -239,7 +239,8 @@ class DivergenceView(View):
     def _build_controls(self):
         lay = widgets.Layout
         self._pick_list = widgets.Dropdown(options=[("no divergences", -1)], value=-1,
-                                           description="divergence", layout=lay(width="340px"))
+                                           description="divergence", layout=lay(width="340px"),
+                                           style={"description_width": "initial"})
         self._pick_list.add_class("pg-divergence-pick")
         self._pick_list.observe(self._on_list, "value")
         self._coordinate_pickers(self.names)
@@ -267,15 +268,15 @@ class DivergenceView(View):
         """Replay controls work only when there is a divergence to replay.
 
         The control marked ``pg-primary`` (the one a browser test moves) is the
-        replay slider then, and the x coordinate picker otherwise: either
+        replay slider then, and the y coordinate picker otherwise: either
         changes the figure at once.
         """
         idle = self.trajectory is None
         self._play.disabled = self._step_button.disabled = idle
         self._replay_knob.disabled = idle
         self._step_slider.remove_class("pg-primary")
-        self._x_pick.remove_class("pg-primary")
-        (self._x_pick if idle else self._step_slider).add_class("pg-primary")
+        self._y_pick.remove_class("pg-primary")
+        (self._y_pick if idle else self._step_slider).add_class("pg-primary")
 
     def _on_list(self, change):
         if self._syncing or change["new"] == self.selected:
@@ -416,7 +417,7 @@ class DivergenceView(View):
 
     def _label(self, i):
         c, t, tr = self.divergences[i]
-        return f"{i + 1}: chain {c}, draw {t} (step {tr.divergence_step} of {tr.n_steps})"
+        return f"{i + 1}: chain {c}, draw {t}, step {tr.divergence_step}"  # short: never cut
 
     @contextmanager
     def _sync(self):

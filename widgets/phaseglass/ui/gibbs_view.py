@@ -232,13 +232,9 @@ class ShiftGibbsView(View):
     def conditionals(self, fn):
         self.kernel.conditionals = fn  # validated by the kernel
 
-    def _kernel_shift(self):
-        if self.ordinary:
-            return None
-        return "random" if self.random_shift else float(self.shift)
-
     def _sync_kernel(self):
-        self.kernel.shift = self._kernel_shift()
+        self.kernel.shift = (None if self.ordinary else
+                             "random" if self.random_shift else float(self.shift))
 
     def _pilot_draws(self):
         """Draws (m, dim) of a short ordinary-Gibbs pilot (independent streams), sampler's scale."""
