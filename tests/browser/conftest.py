@@ -25,6 +25,14 @@ if _NAME not in sys.modules:
     _spec.loader.exec_module(_mod)
 harness = sys.modules[_NAME]
 
+# the example notebooks' scenarios, shared by several test modules
+_SCEN = "phaseglass_browser_scenarios"
+if _SCEN not in sys.modules:
+    _spec = importlib.util.spec_from_file_location(_SCEN, _HERE / "scenarios.py")
+    _mod = importlib.util.module_from_spec(_spec)
+    sys.modules[_SCEN] = _mod
+    _spec.loader.exec_module(_mod)
+
 
 def pytest_configure(config):
     config.addinivalue_line("markers", "browser: drives a real Chromium against a JupyterLab server")
@@ -82,19 +90,40 @@ def jupyter_servers():
         srv.stop()
 
 
+@pytest.fixture(scope="session")
+def _browser_results():
+    """(scenario name, ui) -> RunResult or the exception of that run, for the whole session."""
+    return {}
+
+
 @pytest.fixture
-def browser_run(jupyter_servers, browser_artefacts_dir):
+def browser_run(jupyter_servers, browser_artefacts_dir, _browser_results):
     """``browser_run(scenario, ui, timeout_s=150, retries=1) -> RunResult``.
 
     ``ui`` is ``"lab"`` or ``"notebook"`` (Notebook 7 on the same server). Checks the
-    prerequisites first (fail under PHASEGLASS_BROWSER_TESTS=1, else skip).
+    prerequisites first (fail under PHASEGLASS_BROWSER_TESTS=1, else skip). A scenario runs
+    once per session and ui (keyed by its name): a second test asking for it gets the same
+    result (or the same failure), so two test modules can check one run of a notebook.
     """
 
     def run(scenario, ui: str, *, timeout_s: float = 150.0, retries: int = 1):
         require_browser_prerequisites(ui)
+        key = (scenario.name, ui)
+        if key in _browser_results:
+            done = _browser_results[key]
+            if isinstance(done, BaseException):
+                pytest.fail(f"earlier run of {scenario.name}/{ui} in this session failed: {done}",
+                            pytrace=False)
+            return done
         server = jupyter_servers(scenario)
-        return harness.run_scenario_with_retry(
-            server, scenario, ui, retries=retries, timeout_s=timeout_s,
-            artefacts_dir=browser_artefacts_dir)
+        try:
+            res = harness.run_scenario_with_retry(
+                server, scenario, ui, retries=retries, timeout_s=timeout_s,
+                artefacts_dir=browser_artefacts_dir)
+        except Exception as e:
+            _browser_results[key] = e
+            raise
+        _browser_results[key] = res
+        return res
 
     return run

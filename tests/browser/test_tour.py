@@ -5,38 +5,18 @@ step-size slider (the canvas image and the readout must change after every input
 the trajectory panel twice (the start point must move, and the canvas repaint), presses the
 chain view's step button twice (one more transition each time, canvas repainted), and prints
 the latency from input to repainted canvas (a benchmark figure, not an assertion).
-Screenshots land in test-artefacts/browser/.
+Screenshots land in test-artefacts/browser/. The per-view checks of the same run (canvas,
+fit in the column, errors, primary control) are asserted in test_notebooks_in_browser.py.
 """
 
 from __future__ import annotations
 
 import re
-from pathlib import Path
 
 import pytest
 
-from phaseglass_browser_harness import (ButtonClick, CanvasClick, Scenario,  # loaded by conftest.py
-                                        SliderStep)
-
-REPO = Path(__file__).resolve().parents[2]
-
-# The trajectory view is the first view in the tour, so index 0 of each class is its control.
-# Click points are fractions of the whole canvas: both fall in the left (trajectory) panel.
-TOUR = Scenario(
-    name="tour",
-    notebook=REPO / "example_notebooks" / "tour.ipynb",
-    steps=(
-        SliderStep(slider_class="pg-step-size", canvas_class="pg-canvas",
-                   text_classes=("pg-readout",), label="slider", index=0),
-        CanvasClick(canvas_class="pg-canvas", points=((0.2, 0.3), (0.35, 0.6)),
-                    text_classes=("pg-click-readout", "pg-readout"), label="click", index=0),
-        # the chain view (second canvas): its step button advances every chain by one transition
-        ButtonClick(button_class="pg-step", canvas_class="pg-canvas", canvas_index=1,
-                    text_classes=("pg-chain-readout",), clicks=2, label="chain-step"),
-    ),
-    copy_whole_folder=False,
-    run_timeout_s=150.0,
-)
+# loaded by conftest.py; the same run of the tour also serves test_notebooks_in_browser.py
+from phaseglass_browser_scenarios import TOUR, run_budget_s
 
 _NUMBER = r"-?\d+(?:\.\d+)?(?:e[-+]?\d+)?"
 
@@ -44,7 +24,7 @@ _NUMBER = r"-?\d+(?:\.\d+)?(?:e[-+]?\d+)?"
 @pytest.mark.browser
 @pytest.mark.parametrize("ui", ["lab", "notebook"])
 def test_tour_notebook(browser_run, ui):
-    res = browser_run(TOUR, ui, timeout_s=240)
+    res = browser_run(TOUR, ui, timeout_s=run_budget_s(TOUR))
 
     slider = res.step_inputs("slider")
     assert len(slider) == 2
