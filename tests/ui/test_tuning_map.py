@@ -312,3 +312,117 @@ def test_shares_are_coloured_on_a_fixed_scale(gaussian):
         assert m._drawing.image.get_clim() == (ess.min(), ess.max())
     finally:
         m.quantity = "acceptance"
+
+
+def test_autorun_leaves_a_loadable_image_for_the_front_end(gaussian):
+    # Regression: a canvas drawn before the front end is initialised (here by the
+    # background thread while the cell still runs) stored a bare base64 string as
+    # `_data_url`; the front end loaded it as a broken image and the canvas stayed
+    # 0x0 ("Failed to execute 'drawImage'", matplotlib/ipympl issue #472).
+    import base64
+    import io
+
+    draws = []
+
+    def lock_is_held():
+        """Whether some thread holds the map's lock (asked from a fresh thread)."""
+        answer = []
+
+        def probe():
+            free = m._lock.acquire(blocking=False)
+            if free:
+                m._lock.release()
+            answer.append(not free)
+
+        t = threading.Thread(target=probe)
+        t.start()
+        t.join()
+        return answer[0]
+
+    def on_draw(event):
+        draws.append((threading.current_thread().name, lock_is_held()))
+
+    m = TuningMap(gaussian, **{**SMALL, "autorun": False})
+    m.figure.canvas.mpl_connect("draw_event", on_draw)
+    m.autorun = True
+    m.compute()  # what autorun does on construction: a background pass
+    assert m.wait(60) and m.n_done == 9
+    worker = [held for name, held in draws if name == "phaseglass-tuning-map"]
+    assert worker and all(worker)  # the worker drew, always under the lock
+    url = m.figure.canvas._data_url
+    assert url is None or url.startswith("data:image/png;base64,")
+    if worker:
+        assert url is not None  # the worker's frame is what a late front end loads
+        png = Image.open(io.BytesIO(base64.b64decode(url.split(",", 1)[1])))
+        assert png.format == "PNG"
+        w, h = m.figure.get_size_inches() * m.figure.dpi
+        assert png.size == (round(w), round(h))
+
+
+def test_a_map_built_with_autorun_has_a_valid_image_url(gaussian):
+    import base64
+    import io
+
+    m = TuningMap(gaussian, **SMALL)  # autorun: the thread starts inside the constructor
+    assert m.autorun
+    assert m.wait(60)
+    url = m.figure.canvas._data_url
+    assert url is None or url.startswith("data:image/png;base64,")
+    if url is not None:
+        png = Image.open(io.BytesIO(base64.b64decode(url.split(",", 1)[1])))
+        assert png.size == tuple(round(v) for v in m.figure.get_size_inches() * m.figure.dpi)
+
+
+def test_the_quantity_toggle_is_primary_and_recolours_at_once(computed):
+    assert "pg-primary" in computed._quantity_pick._dom_classes
+    before = computed.render()
+    try:
+        computed._quantity_pick.value = "ESS per gradient"  # what a click on the toggle does
+        after = computed.render()
+    finally:
+        computed.quantity = "acceptance"
+    assert not np.array_equal(before, after)
+    assert computed.n_done == 9  # recoloured, not recomputed
+
+
+def test_cells_start_from_the_shared_pilot(gaussian, monkeypatch):
+    from phaseglass.ui._shared import pilot
+
+    seen = []
+    real = tuning_map.measure_cell
+
+    def spy(target, kernel, **kw):
+        seen.append(kw["initial"])
+        return real(target, kernel, **kw)
+
+    monkeypatch.setattr(tuning_map, "measure_cell", spy)
+    m = small_map(gaussian, step_sizes=[0.3], n_steps=[1, 5])
+    m.compute(background=False)
+    shared = pilot(gaussian, seed=SMALL["seed"], n_chains=SMALL["n_chains"])
+    assert m._pilot() is shared
+    assert len(seen) == 2 and all(np.array_equal(s, shared.initial) for s in seen)
+    assert shared.initial.shape == (SMALL["n_chains"], gaussian.dim)
+
+
+def test_readouts_use_words_and_short_numbers(gaussian):
+    m = small_map(gaussian, step_sizes=[0.123456, 0.3], n_steps=[1], n_chains=1)
+    m.compute(background=False)
+    text = m._readout.value
+    assert "1 step" in text and "1 steps" not in text
+    assert "1 chain &times;" in text and "1 chains" not in text
+    assert "0.123456" not in text  # at most 3 significant digits
+    assert "1 chain \u00d7 60 draws per cell" in m._ax.get_title(loc="left")
+    view = m.open_cell(0, 0)
+    assert "step size 0.123, 1 step" in m._slot.children[0].value
+    assert view.step_size == 0.123456  # the cell's exact knob, whatever is shown
+
+
+def test_the_map_fits_the_column_and_nothing_is_cut(computed):
+    from phaseglass.ui._base import COLUMN_WIDTH_IN
+
+    width, height = computed.figure.get_size_inches()
+    assert width <= COLUMN_WIDTH_IN
+    computed.render()
+    drawn = computed.figure.get_tightbbox(computed.figure.canvas.get_renderer())
+    assert drawn.x0 >= -0.01 and drawn.y0 >= -0.01
+    assert drawn.x1 <= width + 0.01 and drawn.y1 <= height + 0.01

@@ -12,10 +12,10 @@ import traitlets
 from ..core.diagnostics import ess
 from ..core.kernels import HMC, PartialRefreshHMC, RandomWalk
 from ..core.run import CAUTION
-from ..core.sampling import Sampler, sample
-from ..core.slices import choose_limits
+from ..core.sampling import Sampler
 from ..draw import draw_knob_grid
-from ._base import View, check_range, check_target, guarded
+from ._base import View, check_range, check_target, guarded, number, plural
+from ._shared import pilot
 
 __all__ = ["TuningMap", "measure_cell", "make_cell_kernel", "QUANTITIES"]
 
@@ -285,8 +285,6 @@ class TuningMap(View):
         self.opened = None
         self._built = False
         self._lock = threading.RLock()  # artists and result arrays: worker vs. main thread
-        self._pilot_lock = threading.Lock()
-        self._pilot_cache = None
         self._job = None
         self._config_key = None
         super().__init__(figsize=(7.0, 4.4))
@@ -359,36 +357,27 @@ class TuningMap(View):
 
     # ----------------------------------------------------------- the pilot
     def _pilot(self):
-        """Starts (and a scale) from a short tuned HMC run; cached per (seed, n_chains).
+        """The shared pilot run of the target (one start per chain), or None when it failed.
 
-        Returns None when the pilot fails (the error goes to the status line and
-        cells start from random points instead); failures are not cached, so a
-        fixed log-density gets its pilot next time.
+        Every cell starts from its chains' last draws, so cells differ by their knobs,
+        not by their starts. A failure goes to the status line and cells start from
+        random points instead (failures are not cached: a fixed model gets its pilot).
         """
-        key = (self.seed, self.n_chains)
-        with self._pilot_lock:
-            if self._pilot_cache is not None and self._pilot_cache[0] == key:
-                return self._pilot_cache[1]
-            try:
-                run = sample(self.target, HMC(0.1, 10), n_draws=50, n_chains=self.n_chains,
-                             warmup=150, seed=self.seed, metric_adaptation=None)
-            except Exception as exc:  # user code: report, fall back to random starts
-                self.report_error("pilot run (cells start from random points)", exc)
-                return None
-            z = run.unconstrained
-            found = {"step_size": float(run.kernel.step_size), "initial": run.draws[:, -1].copy(),
-                     "unconstrained": z, "sd": float(np.median(np.std(z, axis=(0, 1))))}
-            self._pilot_cache = (key, found)
-            return found
+        found = pilot(self.target, seed=self.seed, n_chains=self.n_chains)
+        if not found.ok:
+            self.report_error("pilot run (cells start from random points)", found.error)
+            return None
+        return found
 
     def _default_step_sizes(self):
         pilot = self._pilot()
         if pilot is None:
             return _round3(np.geomspace(0.01, 1.0, 6))
         if self.kernel == "walk":
-            centre = 2.38 * max(pilot["sd"], 1e-8) / np.sqrt(self.target.dim)
+            sd = float(np.median(pilot.sd))
+            centre = 2.38 * max(sd, 1e-8) / np.sqrt(self.target.dim)
         else:
-            centre = pilot["step_size"]
+            centre = pilot.step_size
         return _round3(centre * 2.0 ** np.arange(-3, 3))
 
     # ------------------------------------------------------------- controls
@@ -396,6 +385,7 @@ class TuningMap(View):
         self._quantity_pick = widgets.ToggleButtons(options=list(QUANTITIES), value=self.quantity,
                                                     style={"button_width": "auto"})
         self._quantity_pick.add_class("pg-quantity")
+        self._quantity_pick.add_class("pg-primary")  # the browser test moves it: a recolour
         traitlets.link((self._quantity_pick, "value"), (self, "quantity"))
         self._slice_pick = widgets.Dropdown(description="persistence",
                                             layout=widgets.Layout(width="220px"))
@@ -417,15 +407,16 @@ class TuningMap(View):
         self._readout.add_class("pg-tuning-readout")
         self._slot = widgets.VBox()
         self._slot.add_class("pg-tuning-opened")
+        wrap = widgets.Layout(flex_flow="row wrap", align_items="center")  # never past 800 px
         self.children = [
-            widgets.HBox([self._quantity_pick, self._slice_pick]),
-            widgets.HBox([self._run_button, self._stop_button, self._progress]),
+            widgets.HBox([self._quantity_pick, self._slice_pick], layout=wrap),
+            widgets.HBox([self._run_button, self._stop_button, self._progress], layout=wrap),
             self.figure.canvas, self._readout, self._status_html, self._slot,
         ]
 
     def _sync_slice_options(self):
         if self.kernel == "partial" and self.persistence:
-            self._slice_pick.options = [(f"{a:g}", k) for k, a in enumerate(self.persistence)]
+            self._slice_pick.options = [(number(a), k) for k, a in enumerate(self.persistence)]
             self._slice_pick.value = min(self.persistence_index, len(self.persistence) - 1)
             self._slice_pick.layout.display = None
         else:
@@ -555,7 +546,7 @@ class TuningMap(View):
         last_draw = time.perf_counter()
         try:
             pilot = self._pilot()
-            initial = None if pilot is None else pilot["initial"]
+            initial = None if pilot is None else pilot.initial
             for k, i, j in job.cells:
                 if job.stop.is_set() or job.abort.is_set():
                     break
@@ -600,9 +591,9 @@ class TuningMap(View):
 
     @staticmethod
     def _cell_name(c, k, i, j):
-        name = f"step size {c['step_sizes'][j]:.3g}, {c['n_steps'][i]} steps"
+        name = f"step size {number(c['step_sizes'][j], 3)}, {plural(c['n_steps'][i], 'step')}"
         if c["slices"][k] is not None:
-            name += f", persistence {c['slices'][k]:g}"
+            name += f", persistence {number(c['slices'][k])}"
         return name
 
     # -------------------------------------------------------------- settings
@@ -726,7 +717,7 @@ class TuningMap(View):
         if q == "ESS per gradient":
             return "highest"
         if q == "acceptance":
-            return f"closest to {_TARGET_ACCEPT[self.kernel]:g}"
+            return f"closest to {number(_TARGET_ACCEPT[self.kernel])}"
         return "lowest"
 
     def _refresh(self, draw=False, finished=False):
@@ -776,11 +767,11 @@ class TuningMap(View):
             d.colorbar.update_normal(d.image)
 
     def _title(self):
-        title = (f"{_KERNEL_TITLES[self.kernel]}: {self.n_chains} chains \u00d7 {self.n_draws} "
-                 f"draws per cell")
+        title = (f"{_KERNEL_TITLES[self.kernel]}: {plural(self.n_chains, 'chain')} \u00d7 "
+                 f"{plural(self.n_draws, 'draw')} per cell")
         a = self._slices()[min(self.persistence_index, len(self._slices()) - 1)]
         if a is not None:
-            title += f", persistence {a:g}"
+            title += f", persistence {number(a)}"
         return title
 
     def _readout_html(self, best, running):
@@ -796,13 +787,14 @@ class TuningMap(View):
         else:
             i, j, value = best
             a = self._slices()[min(self.persistence_index, len(self._slices()) - 1)]
-            where = f"step size {self.step_sizes[j]:.3g}, {self.n_steps[i]} steps"
+            where = f"step size {number(self.step_sizes[j], 3)}, {plural(self.n_steps[i], 'step')}"
             if a is not None:
-                where += f", persistence {a:g}"
+                where += f", persistence {number(a)}"
             found = (f"best for {html.escape(q)} ({self._rule(q)}): {where} "
-                     f"&rarr; {_FORMATS[q].format(value)}")
-        caution = (f"Each cell is a short run ({self.n_chains} chains &times; {self.n_draws} draws "
-                   f"after {self.burn_in} discarded, fixed knobs, no tuning), so its numbers are "
+                     f"&rarr; {number(value, 3)}")
+        caution = (f"Each cell is a short run ({plural(self.n_chains, 'chain')} &times; "
+                   f"{plural(self.n_draws, 'draw')} after {self.burn_in} discarded, fixed knobs, "
+                   f"no tuning), so its numbers are "
                    f"noisy: click a cell to look closer, then confirm with a longer run. "
                    f"{html.escape(CAUTION)}")
         return (f"<div style='font-family:monospace'>{done} | {found}<br>"
@@ -831,8 +823,7 @@ class TuningMap(View):
         pilot = self._pilot()
         region = {}
         if pilot is not None:  # the cells' own region and starts: no second pilot run
-            z = pilot["unconstrained"]
-            xlim, ylim = choose_limits(z, coords=(0, 1), quantiles=(0.005, 0.995), pad=0.15)
+            xlim, ylim = pilot.region((0, 1))
             region = {"xlim": xlim, "ylim": ylim}
         if self.opens == "chain" or self.kernel == "walk":
             from .chain_view import ChainView
@@ -842,13 +833,13 @@ class TuningMap(View):
             if a is not None:
                 kwargs["persistence"] = a
             if pilot is not None:
-                kwargs["initial"] = pilot["initial"]
+                kwargs["initial"] = pilot.initial
             view = ChainView(self.target, **kwargs, **region)
         else:
             from .trajectory_view import TrajectoryView
 
             if pilot is not None:
-                region["start"] = pilot["unconstrained"][0, -1]
+                region["start"] = pilot.start()
             view = TrajectoryView(self.target, step_size=eps, n_steps=n_steps,
                                   persistence=a or 0.0, seed=self.seed, **region)
         shown = {"step_sizes": self.step_sizes, "n_steps": self.n_steps, "slices": self._slices()}
