@@ -4,7 +4,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ._validate import as_points, check_int, check_positive
+from ._validate import MAX_STEPS, as_points, check_finite, check_int, check_positive
 from .metric import as_metric
 
 __all__ = ["leapfrog", "leapfrog_step", "Trajectory", "DEFAULT_MAX_ENERGY_ERROR"]
@@ -299,12 +299,14 @@ def leapfrog(target, position, momentum, step_size, n_steps, *, metric=None,
         raise TypeError(f"`target` must be a phaseglass Target, got {type(target).__name__}")
     q, single = as_points("position", position, target.dim)
     p, single_p = as_points("momentum", momentum, target.dim)
+    check_finite("position", q)
+    check_finite("momentum", p)
     if q.shape != p.shape:
         raise ValueError(f"`momentum` must have the shape of `position` {q.shape}, got {p.shape}")
     step_size = check_positive("step_size", step_size, allow_array=True)
     if np.ndim(step_size) > 0 and np.shape(step_size) != (q.shape[0],):
         raise ValueError(f"`step_size` must be a scalar or shape ({q.shape[0]},), got {np.shape(step_size)}")
-    n_steps = check_int("n_steps", n_steps, minimum=1)
+    n_steps = check_int("n_steps", n_steps, minimum=1, maximum=MAX_STEPS)
     max_energy_error = check_positive("max_energy_error", max_energy_error)
     metric = as_metric(metric, target.dim)
     with np.errstate(all="ignore"):

@@ -53,6 +53,9 @@ class Run:
     names : tuple of str
     first_draw : int
         Index of the first kept draw (non-zero when a ring buffer dropped old ones).
+    stopped : str or None
+        Why the run ended before its planned length (an interrupt or an error in
+        the user's code), or None for a complete run.
     """
 
     def __init__(self, draws, unconstrained, records, extras, *, target=None, kernel=None,
@@ -71,6 +74,7 @@ class Run:
         self.names = tuple(names) if names is not None else tuple(f"x[{i}]" for i in range(draws.shape[-1]))
         self.n_warmup = 0
         self.warmup_history = None
+        self.stopped = None  # why a run ended early ("interrupted", an error), else None
 
     @classmethod
     def from_records(cls, fields, *, target, kernel, seed, trajectories, divergences, first_draw,
@@ -114,7 +118,8 @@ class Run:
         kname = type(self.kernel).__name__ if self.kernel is not None else "?"
         return (f"Run({kname}: {self.n_chains} chains x {self.n_draws} draws, dim={self.dim}, "
                 f"acceptance {np.mean(self.accepted) if self.n_draws else float('nan'):.2f}, "
-                f"{self.n_divergent} divergent, {self.total_grad} gradient evaluations)")
+                f"{self.n_divergent} divergent, {self.total_grad} gradient evaluations"
+                f"{'; stopped early: ' + self.stopped if self.stopped else ''})")
 
     # ------------------------------------------------------------ digest
     def summary(self, probs=(0.05, 0.95)):

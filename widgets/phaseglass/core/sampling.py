@@ -5,6 +5,7 @@ Both share one code path: ``sample`` only loops over ``Sampler.step``.
 
 import sys
 import time
+import warnings
 from collections import deque
 
 import numpy as np
@@ -142,10 +143,14 @@ class Sampler:
                 logp, grad = target.log_density(position), None
         if kernel.uses_gradient and not np.all(np.isfinite(grad)):
             bad = int(np.flatnonzero(~np.isfinite(grad).all(axis=1))[0])
+            where = target.to_user(position[bad])
+            if initial is not None:
+                raise ValueError(f"`initial` gives a non-finite gradient for chain {bad} at "
+                                 f"{where}; choose another start")
             raise ValueError(
-                f"`initial` gives a non-finite gradient for chain {bad} at "
-                f"{target.to_user(position[bad])}; choose another start"
-            )
+                f"the gradient is not finite at the random start of chain {bad} ({where}) although "
+                f"the log-density is: check the gradient function there "
+                f"(target.check_gradient(x) compares it with finite differences)")
         self.state = ChainState(position, logp, grad)
         self.state.extra = kernel.init_extra(target, self.state, self.streams)
         self.initial = target.to_user(position)
@@ -286,6 +291,7 @@ class Sampler:
         """
         n = check_int("warmup", n, minimum=0)
         check_in("metric", metric, ("diagonal", "dense", None))
+        self.warmup_done = 0
         knob = self.kernel.tuned_knob
         history = np.full(n, np.nan)
         if n == 0:
@@ -302,6 +308,7 @@ class Sampler:
         started = time.perf_counter()
         for i in range(n):
             info = self._one(False)
+            self.warmup_done = i + 1
             if da is not None:
                 setattr(self.kernel, knob, da.update(np.mean(info["accept_prob"])))
                 history[i] = getattr(self.kernel, knob)
@@ -405,18 +412,73 @@ def sample(target, kernel, initial=None, n_draws=1000, *, n_chains=4, warmup=0, 
         )
     n_draws = check_int("n_draws", n_draws, minimum=1)
     warmup = check_int("warmup", warmup, minimum=0)
+    check_in("metric_adaptation", metric_adaptation, ("diagonal", "dense", None))
+    if target_accept is not None:  # checked even without warm-up: a typo is still a typo
+        target_accept = check_fraction("target_accept", target_accept)
+        if not 0 < target_accept < 1:
+            raise ValueError(f"`target_accept` must lie in (0, 1), got {target_accept}")
     kernel = kernel.copy()
     sampler = Sampler(target, kernel, initial, n_chains=n_chains, seed=seed)
-    history = sampler.warm_up(warmup, target_accept=target_accept, metric=metric_adaptation,
-                              progress=progress)
-    sampler.keep_trajectories = bool(keep_trajectories)
-    sampler.reset_records()
-    started = time.perf_counter()
-    for i in range(n_draws):
-        sampler.step()
-        if progress and (i % max(n_draws // 50, 1) == 0 or i + 1 == n_draws):
-            _progress(i + 1, n_draws, started, "sampling")
+    if keep_trajectories:
+        _warn_trajectory_memory(target, kernel, n_draws, sampler.n_chains)
+    history = None
+    try:
+        history = sampler.warm_up(warmup, target_accept=target_accept, metric=metric_adaptation,
+                                  progress=progress)
+        sampler.keep_trajectories = bool(keep_trajectories)
+        sampler.reset_records()
+        started = time.perf_counter()
+        for i in range(n_draws):
+            sampler.step()
+            if progress and (i % max(n_draws // 50, 1) == 0 or i + 1 == n_draws):
+                _progress(i + 1, n_draws, started, "sampling")
+    except KeyboardInterrupt:
+        run = _partial_run(sampler, warmup, history, n_draws, "interrupted")
+        warnings.warn(_stopped_message(run, sampler, warmup, history, n_draws, "interrupted"),
+                      UserWarning, stacklevel=2)
+        return run
+    except Exception as exc:  # user code failed: keep what is finished and say where
+        run = _partial_run(sampler, warmup, history, n_draws,
+                           f"{type(exc).__name__} in the user's code")
+        exc.partial_run = run
+        note = _stopped_message(run, sampler, warmup, history, n_draws, "stopped by this error")
+        if hasattr(exc, "add_note"):
+            exc.add_note("phaseglass: " + note + "; they are in `exc.partial_run`")
+        raise
     run = sampler.run
     run.n_warmup = warmup
     run.warmup_history = history
     return run
+
+
+#: Above this, ``keep_trajectories=True`` warns with its memory estimate.
+TRAJECTORY_MEMORY_WARNING = 1 << 30
+
+
+def _warn_trajectory_memory(target, kernel, n_draws, n_chains):
+    steps = getattr(kernel, "n_steps", 1)
+    # positions and momenta (dim each) plus four energies per leapfrog state, float64
+    per = n_chains * (steps + 1) * (2 * target.dim + 4) * 8 + 512
+    total = per * n_draws
+    if total > TRAJECTORY_MEMORY_WARNING:
+        warnings.warn(f"keep_trajectories=True will hold about {total / 2**30:.1f} GiB "
+                      f"({per / 1024:.1f} KiB per transition x {n_draws} draws); keep fewer draws "
+                      f"or leave it off (divergent transitions keep their replays anyway)",
+                      UserWarning, stacklevel=3)
+
+
+def _partial_run(sampler, warmup, history, n_draws, why):
+    run = sampler.run
+    run.n_warmup = warmup if history is not None else getattr(sampler, "warmup_done", 0)
+    run.warmup_history = history
+    run.stopped = why
+    return run
+
+
+def _stopped_message(run, sampler, warmup, history, n_draws, how):
+    if history is None and warmup:
+        done = getattr(sampler, "warmup_done", 0)
+        return (f"sampling {how} during warm-up (transition {done} of {warmup}); no draws are "
+                f"kept (warm-up draws are not included), so the returned Run is empty")
+    return (f"sampling {how} after {run.n_draws} of {n_draws} draws per chain; the Run holds "
+            f"those {run.n_draws} finished draws (warm-up draws are not included)")

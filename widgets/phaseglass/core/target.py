@@ -5,7 +5,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ._validate import as_points, check_callable, check_int
+from ._validate import as_points, check_callable, check_int, real_values
 
 __all__ = ["Target", "GradientCheck"]
 
@@ -15,6 +15,21 @@ _FD_WARNING = (
     "grad=f (f(x) returns shape (dim,)) or value_and_grad=f (returns (logp, grad)) "
     "to Target for speed and accuracy."
 )
+
+
+def _add_note(exc, note):
+    if hasattr(exc, "add_note"):  # Python >= 3.11
+        exc.add_note(note)
+
+
+def _pair(out):
+    """``(value, grad)`` from a ``value_and_grad`` result, or a clear error."""
+    try:
+        v, g = out
+    except (TypeError, ValueError):
+        raise TypeError(f"`value_and_grad` must return a pair (log_density, grad), got "
+                        f"{type(out).__name__} {out!r:.60}") from None
+    return v, g
 
 
 def _sigmoid(z):
@@ -220,6 +235,7 @@ class Target:
         self._bounds = None if bounds is None else _Bounds(bounds, self.dim)
         if self._bounds is not None and not self._bounds.any:
             self._bounds = None
+        self._checked = set()  # vectorized functions whose first batch was checked
         self.has_gradient = self._user_grad is not None or self._user_vg is not None
         if not self.has_gradient:
             warnings.warn(_FD_WARNING, UserWarning, stacklevel=2)
@@ -255,12 +271,69 @@ class Target:
         return x.copy() if self._bounds is None else self._bounds.from_user(x)
 
     # ------------------------------------------------------------ raw calls
+    def _batch(self, which, fn, x):
+        """Call a vectorized user function on a batch; the first batch is checked once.
+
+        A function written for one point but declared ``vectorized=True`` reads
+        ``x[0]`` as the first *point*, not the first coordinate. When the number
+        of points happens to equal ``dim`` the shapes fit and the sampler would
+        draw from the wrong distribution without any error, so the first batch
+        of two or more points is compared with the same points passed one at a
+        time (as batches of one row).
+        """
+        try:
+            out = fn(x)
+        except Exception as exc:
+            if which not in self._checked:
+                _add_note(exc, f"phaseglass: with vectorized=True, `{which}` receives a batch of "
+                               f"shape (n, {self.dim}); if it was written for one point of shape "
+                               f"({self.dim},), pass vectorized=False to Target")
+            raise
+        if which not in self._checked and x.shape[0] >= 2:
+            self._checked.add(which)
+            self._compare_rows(which, fn, x, out)
+        return out
+
+    def _compare_rows(self, which, fn, x, out):
+        n = x.shape[0]
+        want = {"log_density": [(n,)], "grad": [(n, self.dim)],
+                "value_and_grad": [(n,), (n, self.dim)]}[which]
+        parts = tuple(out) if which == "value_and_grad" and isinstance(out, (tuple, list)) else (out,)
+        if [np.shape(p) for p in parts] != want:
+            return  # a wrong shape: the caller's shape check names it
+        hint = (f"pass vectorized=False if `{which}` was written for one point of shape "
+                f"({self.dim},)")
+        rows = range(min(x.shape[0], 3))
+        for k in rows:
+            # counted like any evaluation (every call of the user's function is counted)
+            if which != "grad":
+                self.n_density += 1
+            if which != "log_density":
+                self.n_grad += 1
+            try:
+                alone = fn(x[k:k + 1])
+            except Exception as exc:
+                raise ValueError(f"vectorized=True, but `{which}` fails on a batch of one point "
+                                 f"({type(exc).__name__}: {exc}); {hint}") from exc
+            pairs = zip(alone, out) if which == "value_and_grad" else [(alone, out)]
+            for a, b in pairs:
+                a = np.asarray(a, dtype=complex).reshape(-1)
+                b = np.asarray(b, dtype=complex)
+                b = b[k] if b.ndim else b
+                b = np.reshape(b, -1)
+                if a.shape != b.shape or not np.allclose(a, b, rtol=1e-9, atol=1e-12,
+                                                         equal_nan=True):
+                    raise ValueError(
+                        f"vectorized=True, but `{which}` gives different results for point {k} "
+                        f"of a batch of {x.shape[0]} ({np.round(b.real, 6).tolist()}) and for the "
+                        f"same point alone ({np.round(a.real, 6).tolist()}); {hint}")
+
     def _call_logp(self, x):
         """User log-density on user-scale points (n, dim) -> (n,)."""
         n = x.shape[0]
         self.n_density += n
         if self.vectorized:
-            out = np.asarray(self._user_logp(x), dtype=float)
+            out = real_values("log_density", self._batch("log_density", self._user_logp, x))
             if out.shape != (n,):
                 out = out.reshape(-1) if out.size == n else out
                 if out.shape != (n,):
@@ -271,7 +344,7 @@ class Target:
             return out
         out = np.empty(n)
         for k in range(n):
-            v = np.asarray(self._user_logp(x[k]), dtype=float)
+            v = real_values("log_density", self._user_logp(x[k]))
             if v.size != 1:
                 raise ValueError(
                     f"`log_density` must return a scalar for input of shape ({self.dim},), "
@@ -292,12 +365,12 @@ class Target:
         self.n_grad += n
         if self._user_grad is not None:
             if self.vectorized:
-                g = np.asarray(self._user_grad(x), dtype=float)
+                g = real_values("grad", self._batch("grad", self._user_grad, x))
                 self._check_grad_shape(g, n, False)
                 return g
             rows = []
             for k in range(n):
-                g = np.asarray(self._user_grad(x[k]), dtype=float)
+                g = real_values("grad", self._user_grad(x[k]))
                 self._check_grad_shape(g, 1, True)
                 rows.append(g)
             return np.stack(rows)
@@ -312,9 +385,9 @@ class Target:
         self.n_density += n
         self.n_grad += n
         if self.vectorized:
-            v, g = self._user_vg(x)
-            v = np.asarray(v, dtype=float).reshape(-1)
-            g = np.asarray(g, dtype=float)
+            v, g = _pair(self._batch("value_and_grad", self._user_vg, x))
+            v = real_values("value_and_grad", v).reshape(-1)
+            g = real_values("value_and_grad", g)
             if v.shape != (n,):
                 raise ValueError(f"`value_and_grad` must return values of shape ({n},), got {v.shape}")
             if g.shape != (n, self.dim):  # inline test: this is the integrators' hot path
@@ -323,9 +396,14 @@ class Target:
         vals = np.empty(n)
         grads = np.empty((n, self.dim))
         for k in range(n):
-            v, g = self._user_vg(x[k])
-            vals[k] = float(np.asarray(v).reshape(()))
-            g = np.asarray(g, dtype=float)
+            v, g = _pair(self._user_vg(x[k]))
+            v = real_values("value_and_grad", v)
+            if v.size != 1:
+                raise ValueError(
+                    f"`value_and_grad` must return a scalar log-density for input of shape "
+                    f"({self.dim},), got shape {v.shape}; pass vectorized=True if it takes a batch")
+            vals[k] = v.reshape(())
+            g = real_values("value_and_grad", g)
             self._check_grad_shape(g, 1, True)
             grads[k] = g
         return vals, grads
