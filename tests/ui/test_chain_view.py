@@ -185,6 +185,8 @@ def test_a_tuned_kernel_keeps_its_mass_matrix(glaze):
     view = make(glaze, kernel=tuned)
     assert view.kernel.metric.kind == "diagonal"
     assert np.allclose(view.kernel.metric.inverse_mass, [0.2, 0.5])
+    assert 10 ** view._step_knob.slider.min == pytest.approx(0.3 / 30)  # range around its step
+    assert 10 ** view._step_knob.slider.max == pytest.approx(3.0)
     view.kernel_name = "partial"
     assert np.allclose(view.kernel.metric.inverse_mass, [0.2, 0.5])
 

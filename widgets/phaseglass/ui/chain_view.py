@@ -226,9 +226,11 @@ class ChainView(View):
         coords = resolve_coords(coords, target.names, target.dim)
         # a kernel passed in (e.g. tuned by pg.sample) keeps its mass matrix for every kernel built here
         self._metric = None
+        self._given_step = {}  # a passed (tuned) kernel's own step centres its slider range
         if kernel is not None:
             self._metric = kernel.metric
             kernel_name, uniform, knobs = _knobs_of(kernel)
+            self._given_step[kernel_name] = knobs["step_size"]
             step_size = knobs.get("step_size", step_size)
             n_steps = knobs.get("n_steps", n_steps)
             persistence = knobs.get("persistence", persistence)
@@ -314,6 +316,8 @@ class ChainView(View):
     # -------------------------------------------------------------- controls
     def _step_range(self):
         """Step-size slider range from the pilot run (the random walk's scale for "walk")."""
+        if self.kernel_name in self._given_step:
+            return step_size_range(self._given_step[self.kernel_name])
         if self.kernel_name == "walk":
             sd = self._pilot.sd[np.isfinite(self._pilot.sd) & (self._pilot.sd > 0)]
             typical = float(np.exp(np.mean(np.log(sd)))) if sd.size else 1.0
