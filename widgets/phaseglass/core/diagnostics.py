@@ -28,6 +28,8 @@ from __future__ import annotations
 
 import numbers
 
+import warnings
+
 import numpy as np
 import scipy.fft
 import scipy.special
@@ -41,6 +43,7 @@ __all__ = [
     "autocorrelation",
     "ebfmi",
     "ess",
+    "ess_upper_bound",
     "mcse",
     "rhat",
 ]
@@ -77,6 +80,11 @@ def _as_chains(name, value, *, min_draws):
     if arr.ndim == 1:
         arr = arr[None, :, None]
     elif arr.ndim == 2:
+        if arr.shape[0] > arr.shape[1]:
+            warnings.warn(
+                f"`{name}` of shape {arr.shape} is read as (chains, draws): {arr.shape[0]} chains of "
+                f"{arr.shape[1]} draws. If it is one chain shaped (draws, dim), pass "
+                f"{name}[None] (shape (1, draws, dim)) instead", UserWarning, stacklevel=3)
         arr = arr[:, :, None]
     elif arr.ndim != 3:
         raise ValueError(
@@ -94,6 +102,16 @@ def _as_chains(name, value, *, min_draws):
     if arr.shape[2] < 1:
         raise ValueError(f"`{name}` must have dim >= 1, got shape {np.shape(value)}")
     return np.moveaxis(arr, 1, 2), scalar
+
+
+def ess_upper_bound(n_chains, n_draws):
+    """The largest ESS the estimators report: ``S log10 S`` for ``S`` draws in all.
+
+    An estimate at this bound was capped by the safeguard against strongly
+    antithetic chains: it is a bound, not a measured value.
+    """
+    total = int(n_chains) * int(n_draws)
+    return total * np.log10(total) if total > 1 else np.nan
 
 
 def _finish(result, scalar):

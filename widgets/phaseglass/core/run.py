@@ -215,6 +215,16 @@ class Digest:
                 f"ESS below {limit} ({ESS_PER_CHAIN_LIMIT} per chain) for {', '.join(low_ess)}: "
                 "estimates are noisy; run longer or improve the sampler's settings."
             )
+        cap = dg.ess_upper_bound(run.n_chains, 2 * (run.n_draws // 2))
+        capped = [n for n, e in zip(run.names, table["ess_centre"])
+                  if np.isfinite(e) and np.isfinite(cap) and e >= 0.999 * cap]
+        info["ess_at_upper_bound"] = capped
+        if capped:
+            warnings.append(
+                f"bulk ESS of {', '.join(capped)} sits at the estimator's upper bound "
+                f"(S log10 S = {cap:.0f} for S = {run.n_chains * run.n_draws} draws): the chains are "
+                "strongly antithetic there and the number is a cap, not a measured value."
+            )
         return cls(run.names, table, info, warnings)
 
     def as_dict(self):

@@ -10,6 +10,8 @@ NaN gradient, bad settings) land in the status line and the view keeps working.
 import functools
 import html
 import json
+import os
+import tempfile
 import traceback
 
 import ipywidgets as widgets
@@ -19,7 +21,8 @@ from matplotlib.figure import Figure
 
 from ..core.slices import resolve_coords
 
-__all__ = ["View", "guarded", "make_canvas_figure", "check_range", "check_target", "number",
+__all__ = ["View", "guarded", "make_canvas_figure", "check_range", "check_settings", "check_target",
+           "number",
            "plural", "COLUMN_WIDTH_IN"]
 
 #: Widest figure a view may have, in inches at 100 dpi: a notebook's output column is
@@ -135,6 +138,17 @@ def check_target(target, *, min_dim=1):
     if target.dim < min_dim:
         raise ValueError(f"`target` must have dim >= {min_dim} for a {min_dim}-D view, got dim={target.dim}")
     return target
+
+
+def check_settings(settings):
+    """``settings`` as a new dict, or a clear error (a JSON string, a path or None are not)."""
+    if isinstance(settings, (str, bytes)):
+        raise TypeError("`settings` must be a dict such as view.settings; to load a saved file use "
+                        "json.load(open(path)) first")
+    if not isinstance(settings, dict):
+        raise TypeError(f"`settings` must be a dict such as view.settings, got "
+                        f"{type(settings).__name__}")
+    return dict(settings)
 
 
 def check_range(proposal, ranges):
@@ -254,7 +268,7 @@ class View(widgets.VBox):
                 value = list(value)
             out[name] = value
         out.update(self._extra_settings())
-        json.dumps(out)  # fail loudly here rather than in the user's save step
+        json.dumps(out, allow_nan=False)  # fail loudly here rather than in the user's save step
         return out
 
     def _extra_settings(self):
@@ -262,7 +276,7 @@ class View(widgets.VBox):
 
     def apply_settings(self, settings):
         """Set every known knob from ``settings`` in one batch of notifications."""
-        settings = dict(settings)
+        settings = check_settings(settings)
         view = settings.pop("view", type(self).__name__)
         if view != type(self).__name__:
             raise ValueError(f"`settings` are for a {view}, not a {type(self).__name__}")
@@ -284,9 +298,18 @@ class View(widgets.VBox):
         return ()
 
     def save_settings(self, path):
-        """Write ``settings`` as JSON to ``path``."""
-        with open(path, "w", encoding="utf-8") as fh:
-            json.dump(self.settings, fh, indent=2)
+        """Write ``settings`` as JSON to ``path`` (UTF-8, strict JSON, written atomically)."""
+        text = json.dumps(self.settings, indent=2, allow_nan=False)
+        folder = os.path.dirname(os.path.abspath(path))
+        fd, tmp = tempfile.mkstemp(prefix=".settings-", suffix=".tmp", dir=folder)
+        try:
+            with os.fdopen(fd, "w", encoding="utf-8") as fh:
+                fh.write(text)
+            os.replace(tmp, path)
+        except BaseException:
+            if os.path.exists(tmp):
+                os.unlink(tmp)
+            raise
         return path
 
     # ---------------------------------------------------------------- output
