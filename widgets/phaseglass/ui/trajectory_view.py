@@ -15,21 +15,10 @@ from ._base import View, check_range, check_target, guarded, number
 from ._controls import KnobControl
 from ._shared import GridCache, pilot, step_size_range
 
-__all__ = ["TrajectoryView", "pilot_region"]
+__all__ = ["TrajectoryView"]
 
 _DRAG_RADIUS_PX = 12  # a press this close to the start point drags the momentum
 _MASS_RANGE = (0.01, 100.0)
-
-
-def pilot_region(target, coords, *, seed=0, start=None):
-    """``(xlim, ylim, start)`` from the shared pilot run (sampler's scale).
-
-    Kept for modules that still import it; new code calls ``_shared.pilot``.
-    """
-    run = pilot(target, seed=seed)
-    start = run.start() if start is None else np.asarray(start, dtype=float)
-    xlim, ylim = run.region(coords, start)
-    return xlim, ylim, start
 
 
 class TrajectoryView(View):
