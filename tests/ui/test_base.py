@@ -92,6 +92,25 @@ def test_out_of_range_values_widen_the_slider(knobs):
     assert c["n_steps"].slider.max >= 500
 
 
+def test_set_range_keeps_the_knob(knobs):
+    view, c = knobs
+    c["step_size"].set_range(0.1, 1.0)  # 0.05 lies below: the range widens for it
+    s = c["step_size"].slider
+    assert view.step_size == 0.05 and s.min <= math.log10(0.05) and s.max == 0.0
+    c["persistence"].set_range(0.5, 0.9)
+    assert view.persistence == 0.9 and c["persistence"].slider.max == 0.9
+
+
+def test_save_png_drops_the_background_it_captured_at_another_size(tmp_path):
+    view = _Knobs(figsize=(4, 3))
+    line, = view.figure.add_subplot().plot([0, 1], [0, 1])
+    view.set_dynamic([line])
+    view.render()
+    assert view._background is not None
+    view.save_png(tmp_path / "a.png", dpi=150)
+    assert view._background is None  # the next repaint is a full one at the canvas's size
+
+
 def test_controls_keep_css_classes_and_help(knobs):
     _, c = knobs
     k = c["step_size"]

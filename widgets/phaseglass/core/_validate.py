@@ -17,6 +17,7 @@ __all__ = [
     "check_callable",
     "as_points",
     "check_finite",
+    "user_stacklevel",
     "real_values",
     "MAX_STEPS",
 ]
@@ -85,6 +86,18 @@ def check_callable(name, value):
     if not callable(value):
         raise TypeError(f"`{name}` must be callable, got {type(value).__name__} {value!r}")
     return value
+
+
+def user_stacklevel():
+    """``stacklevel`` for ``warnings.warn`` that points at the first caller outside phaseglass."""
+    import os
+    import sys
+
+    package = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
+    frame, level = sys._getframe(1), 1
+    while frame is not None and os.path.abspath(frame.f_code.co_filename).startswith(package):
+        frame, level = frame.f_back, level + 1
+    return level
 
 
 def check_finite(name, x):

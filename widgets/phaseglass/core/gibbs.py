@@ -19,7 +19,7 @@ import warnings
 
 import numpy as np
 
-from ._validate import check_int
+from ._validate import check_int, user_stacklevel
 from .kernels import Kernel, _Knob
 
 __all__ = ["Gibbs"]
@@ -71,6 +71,16 @@ def _check_flag(name, value):
     if not isinstance(value, (bool, np.bool_)):
         raise TypeError(f"`{name}` must be True or False, got {type(value).__name__} {value!r}")
     return bool(value)
+
+
+def _conditional_logpdf(dist, v):
+    """Log-density of a user's conditional at ``v``: logpdf, pdf, or a difference of its cdf."""
+    if callable(getattr(dist, "logpdf", None)):
+        return np.array([float(dist.logpdf(t)) for t in v])
+    if callable(getattr(dist, "pdf", None)):
+        return np.log([float(dist.pdf(t)) for t in v])
+    h = 1e-5 * max(float(np.ptp(v)), 1e-12)
+    return np.log([(float(dist.cdf(t + h)) - float(dist.cdf(t - h))) / (2 * h) for t in v])
 
 
 # --------------------------------------------------------------------- numeric conditionals
@@ -498,7 +508,67 @@ class Gibbs(Kernel):
 
     def init_extra(self, target, state, streams):
         """The driving uniforms ``u``, shape (n_chains, dim), drawn from the stream."""
+        if self.conditionals is not None:
+            problems = self.check_conditionals(target, target.to_user(state.position[0]))
+            if problems:
+                warnings.warn("the Gibbs `conditionals` do not match the target: " + problems[0]
+                              + (f" (and {len(problems) - 1} more)" if len(problems) > 1 else "")
+                              + "; the chains would sample another distribution",
+                              UserWarning, stacklevel=user_stacklevel())
         return {"u": streams.uniform(state.position.shape[1])}
+
+    def check_conditionals(self, target, x, *, probs=(0.2, 0.5, 0.8), tol=1e-3):
+        """Compare the user's ``conditionals`` with the target's log-density at ``x``.
+
+        For each coordinate ``i``, the conditional's log-density differences between
+        three of its own quantiles must equal the target's log-density differences
+        along coordinate ``i`` (the normalising constant cancels in a difference).
+        A cheap check (three points per coordinate), run once when a Sampler is
+        created; call it at other points to look harder.
+
+        Parameters
+        ----------
+        target : Target
+        x : array_like, shape (dim,)
+            A point on the user's scale inside the support.
+
+        Returns
+        -------
+        list of str
+            One sentence per mismatched coordinate (empty when they agree).
+        """
+        if self.conditionals is None:
+            return []
+        x = np.asarray(x, dtype=float)
+        problems = []
+        counts = (target.n_density, target.n_grad)
+        try:
+            for i in range(target.dim):
+                try:
+                    dist = self._user_conditional(i, 0, x)
+                    with np.errstate(all="ignore"):
+                        v = np.array([float(dist.ppf(p)) for p in probs])
+                        if not np.all(np.isfinite(v)) or np.ptp(v) == 0:
+                            continue
+                        cond = _conditional_logpdf(dist, v)
+                        pts = np.repeat(x[None, :], len(v), axis=0)
+                        pts[:, i] = v
+                        full = target._call_logp(pts)
+                except Exception:  # the sweep itself reports user-code errors with context
+                    continue
+                with np.errstate(all="ignore"):
+                    d_cond, d_full = cond - cond[1], full - full[1]
+                    gap = np.abs(d_cond - d_full)
+                    off = np.any(gap > tol * (1.0 + np.abs(d_full)))
+                if not np.all(np.isfinite(gap)) or off:
+                    problems.append(
+                        f"along {target.names[i]} at x = {np.round(x, 4).tolist()}, log-density "
+                        f"differences between the conditional's {probs[0]:g}, {probs[1]:g} and "
+                        f"{probs[2]:g} quantiles are {np.round(d_cond, 3).tolist()} under "
+                        f"`conditionals` but {np.round(d_full, 3).tolist()} under the target")
+        finally:
+            target.n_density, target.n_grad = counts  # a check is not sampling work
+        return problems
 
     # ----------------------------------------------------------- transition
     def _transition(self, target, state, streams, record):

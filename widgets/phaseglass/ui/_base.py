@@ -316,6 +316,9 @@ class View(widgets.VBox):
     def save_png(self, path, dpi=120):
         """Write the current figure to ``path`` as PNG."""
         self.figure.savefig(path, dpi=dpi, format="png")
+        # savefig draws at its own dpi and fires draw_event: the background captured then has
+        # the file's size, not the canvas's. Drop it so the next repaint is a full one.
+        self._background = None
         return path
 
     # -------------------------------------------------------------- redraws

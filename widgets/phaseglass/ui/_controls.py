@@ -132,6 +132,28 @@ class KnobControl(widgets.HBox):
         finally:
             self._quiet = False
 
+    def set_range(self, low, high):
+        """Give the slider a new range (the knob's value is kept; the range widens for it)."""
+        self._quiet = True
+        try:
+            s = self.slider
+            if self.logscale:
+                lo, hi = math.log10(low), math.log10(high)
+            else:
+                lo, hi = float(low), float(high)
+            if self.integer_knob:
+                lo, hi = int(lo), int(hi)
+            # order matters: never let min exceed max on the way
+            if lo > s.max:
+                s.max, s.min = hi, lo
+            else:
+                s.min, s.max = lo, hi
+            if not self.integer_knob:
+                s.step = (hi - lo) / _STEPS_PER_TRACK
+        finally:
+            self._quiet = False
+        self.show(getattr(self.owner, self.trait))
+
     # -------------------------------------------------------------- bindings
     def _from_owner(self, change):
         self.show(change["new"])
