@@ -375,7 +375,7 @@ class ChainView(View):
         """Label and range of the step knob for this kernel; knobs it ignores are disabled."""
         walk = self.kernel_name == "walk"
         self._step_knob.label.value = "scale" if walk else "step size"
-        _set_range(self._step_knob, *self._step_range())
+        self._step_knob.set_range(*self._step_range())
         self._steps_knob.disabled = walk
         self._persist_knob.disabled = self.kernel_name != "partial"
         self._drift_knob.disabled = self.uniform != "drifting"
@@ -599,13 +599,6 @@ class ChainView(View):
         return (f"preview (press step to take it): chain 0's next {what} would {verdict}")
 
     # ------------------------------------------------------------- exporting
-    def save_png(self, path, dpi=120):
-        """Write the current figure (with any preview) to ``path`` as PNG."""
-        try:
-            return super().save_png(path, dpi=dpi)
-        finally:
-            self._background = None  # captured at the file's dpi: the next repaint draws in full
-
     def save_gif(self, path, n_transitions=12, frames_per_transition=3, **kwargs):
         """Write a GIF of chain 0 continuing from its current state with the current kernel.
 
@@ -628,25 +621,6 @@ class ChainView(View):
         if "coords" in known:
             known["coords"] = tuple(known["coords"])
         return cls(target, **known)
-
-
-def _set_range(knob, low, high):
-    """Move a KnobControl's slider range to [low, high] without touching the knob's value."""
-    s = knob.slider
-    lo, hi = (np.log10(low), np.log10(high)) if knob.logscale else (low, high)
-    knob._quiet = True  # clamping echoes of the old value must not reach the knob
-    try:
-        if lo > s.max:
-            s.max = hi
-            s.min = lo
-        else:
-            s.min = lo
-            s.max = hi
-        if not knob.integer_knob:
-            s.step = (hi - lo) / 200
-    finally:
-        knob._quiet = False
-    knob.show(getattr(knob.owner, knob.trait))
 
 
 def _knobs_of(kernel):
