@@ -468,6 +468,8 @@ def _warn_trajectory_memory(target, kernel, n_draws, n_chains):
 
 
 def _partial_run(sampler, warmup, history, n_draws, why):
+    if history is None:  # stopped during warm-up: its draws are not samples; keep none
+        sampler.reset_records()
     run = sampler.run
     run.n_warmup = warmup if history is not None else getattr(sampler, "warmup_done", 0)
     run.warmup_history = history
