@@ -67,7 +67,8 @@ def _check_limits(name, lim):
     return lo, hi
 
 
-def log_density_grid(target, coords, through=None, xlim=(-3.0, 3.0), ylim=(-3.0, 3.0), n=80):
+def log_density_grid(target, coords, through=None, xlim=(-3.0, 3.0), ylim=(-3.0, 3.0), n=80, *,
+                     errors=None):
     """Evaluate the log-density on a grid over two coordinates, holding the others fixed.
 
     Works on the sampler's (unconstrained) scale, where trajectories live, with
@@ -86,6 +87,11 @@ def log_density_grid(target, coords, through=None, xlim=(-3.0, 3.0), ylim=(-3.0,
         Ranges of the first and second coordinate.
     n : int >= 2
         Grid points per axis.
+    errors : list, optional
+        Where the user's log-density raises at some grid points (``math.log`` of a
+        negative number, a solver that fails): without ``errors`` the exception
+        propagates; with a list, the grid is evaluated point by point, those
+        points are NaN, and ``(n_failed, first_exception)`` is appended to it.
 
     Returns
     -------
@@ -127,10 +133,30 @@ def log_density_grid(target, coords, through=None, xlim=(-3.0, 3.0), ylim=(-3.0,
     counts = (target.n_density, target.n_grad)
     try:
         with np.errstate(all="ignore"):
-            Z = np.asarray(target.log_density(pts), dtype=float).reshape(n, n)
+            try:
+                Z = np.asarray(target.log_density(pts), dtype=float).reshape(n, n)
+            except Exception:
+                if errors is None:
+                    raise
+                Z, failed, first = _pointwise(target, pts)
+                Z = Z.reshape(n, n)
+                errors.append((failed, first))
     finally:
         target.n_density, target.n_grad = counts  # a view is not sampling work
     return X, Y, Z
+
+
+def _pointwise(target, pts):
+    """Log-density row by row; rows where the user's code raises are NaN."""
+    out = np.full(len(pts), np.nan)
+    failed, first = 0, None
+    for k, p in enumerate(pts):
+        try:
+            out[k] = target.log_density(p)
+        except Exception as exc:  # user code: count it, keep going
+            failed += 1
+            first = first or exc
+    return out, failed, first
 
 
 def _points_of(source, dim):

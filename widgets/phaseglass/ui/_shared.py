@@ -125,6 +125,7 @@ class GridCache:
         self.key = None
         self.grid = None
         self.evaluations = 0
+        self.problem = None  # a sentence when the log-density raised at some grid points
 
     def get(self, coords, through, xlim, ylim):
         through = np.asarray(through, dtype=float)
@@ -134,11 +135,17 @@ class GridCache:
                tuple(rest) if self.target.dim > 2 else None)
         if key != self.key:
             counts = (self.target.n_density, self.target.n_grad)
+            errors = []
             try:
                 self.grid = log_density_grid(self.target, tuple(coords), through, xlim, ylim,
-                                             n=self.n)
+                                             n=self.n, errors=errors)
             finally:
                 self.target.n_density, self.target.n_grad = counts
+            self.problem = None
+            if errors:
+                failed, exc = errors[0]
+                self.problem = (f"the log-density raised {type(exc).__name__} ({exc}) at {failed} "
+                                f"of {self.n * self.n} contour grid points; they are left blank")
             self.key = key
             self.evaluations += 1
         return self.grid
