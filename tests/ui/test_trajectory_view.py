@@ -302,6 +302,10 @@ def test_a_step_size_set_from_code_is_the_step_size_used(gaussian):
     assert np.array_equal(view.trajectory.energy_error, ref.energy_error)
     assert np.allclose(view._energy.error.get_ydata(), ref.energy_error)
     assert view._step_knob.box.value == 0.05  # the exact number is on show too
+    from phaseglass.ui._base import number
+
+    d = float(view.trajectory.energy_error[-1])  # the readout's energy error is this one's
+    assert f"&Delta;H = {'+' if d >= 0 else ''}{number(d)} " in view._readout.value
 
 
 def test_a_slider_drag_changes_the_step_size_and_the_trajectory(gaussian):
@@ -358,7 +362,7 @@ def test_the_figure_fits_the_column_and_nothing_is_cut(gaussian):
     view = make(gaussian)
     width, height = view.figure.get_size_inches()
     assert width <= COLUMN_WIDTH_IN
-    view.step_size = 2.0  # a divergence: the longest verdict
+    view.step_size = 2.0  # a divergence: its X and dashed step reach the frame
     view.render()
     fig = view.figure
     renderer = fig.canvas.get_renderer()
