@@ -191,3 +191,224 @@ def test_console_script_is_installed():
     proc = subprocess.run([str(script), "report", "--model", "nope"], capture_output=True, text=True)
     assert proc.returncode == 2
     assert len(proc.stderr.strip().splitlines()) == 1
+
+
+# ------------------------------------------------------------------ the --out folder is the user's
+
+FAST = ["--draws", "12", "--warmup", "0", "--chains", "1", "--seed", "4", "--no-grid", "--dpi", "20",
+        "--quiet"]
+
+
+def snapshot(folder):
+    """{relative path: bytes} of every file under ``folder``."""
+    return {str(p.relative_to(folder)): p.read_bytes() for p in sorted(Path(folder).rglob("*"))
+            if p.is_file()}
+
+
+def user_folder(path):
+    """A folder of the user's holding, among other things, files named like report files."""
+    path.mkdir()
+    (path / "notes.txt").write_text("my notes\n")
+    (path / "summary.json").write_text('{"mine": true}\n')
+    (path / "report.html").write_text("<p>my own page</p>\n")
+    (path / "traces.png").write_bytes(b"my traces")
+    (path / "gibbs.png").write_bytes(b"not a figure this run makes")
+    (path / "sub").mkdir()
+    (path / "sub" / "data.csv").write_text("a,b\n1,2\n")
+    return snapshot(path)
+
+
+def test_a_folder_without_a_report_is_refused_and_left_alone(tmp_path, capsys):
+    before = user_folder(tmp_path / "mine")
+    assert main(["report", *FAST, "--out", str(tmp_path / "mine")]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1
+    assert err[0].startswith("phaseglass report: error: --out ")
+    assert "holds no earlier phaseglass report" in err[0] and "--replace" in err[0]
+    assert snapshot(tmp_path / "mine") == before
+
+
+@pytest.mark.parametrize("out", [".", ""])
+def test_dot_and_empty_out_are_refused(out, tmp_path, monkeypatch, capsys):
+    before = user_folder(tmp_path / "cwd")
+    monkeypatch.chdir(tmp_path / "cwd")
+    assert main(["report", *FAST, "--out", out]) == 2
+    err = capsys.readouterr().err
+    assert f"--out {out!r}" in err or "--out must name a folder" in err
+    assert snapshot(tmp_path / "cwd") == before
+
+
+def test_replace_writes_only_the_reports_own_files(tmp_path, capsys):
+    out = tmp_path / "mine"
+    before = user_folder(out)
+    assert main(["report", *FAST, "--kernel", "walk", "--out", str(out), "--replace"]) == 0
+    after = snapshot(out)
+    summary = json.loads((out / "summary.json").read_text(encoding="utf-8"))
+    assert summary["written_by"] == "phaseglass report" and summary["complete"] is True
+    own = set(summary["files"])
+    assert {"summary.json", "report.html", "traces.png"} <= own and "gibbs.png" not in own
+    for name, data in before.items():  # every file of the user's not named like ours: untouched
+        if name not in own:
+            assert after[name] == data, name
+    assert set(after) == set(before) | own  # nothing of the user's removed, no temp files left
+
+
+def test_a_later_report_replaces_and_removes_only_the_earlier_reports_files(tmp_path, capsys):
+    out = tmp_path / "rep"
+    assert main(["report", *FAST, "--out", str(out)]) == 0  # HMC: trajectory, energy, ...
+    first = set(json.loads((out / "summary.json").read_text())["files"])
+    assert {"trajectory.png", "energy.png"} <= first
+    (out / "notes.txt").write_text("mine\n")
+    assert main(["report", *FAST, "--kernel", "walk", "--out", str(out)]) == 0  # no --replace needed
+    second = set(json.loads((out / "summary.json").read_text())["files"])
+    assert "trajectory.png" not in second and not (out / "trajectory.png").exists()  # stale: removed
+    assert {p.name for p in out.iterdir()} == second | {"notes.txt"}
+    assert (out / "notes.txt").read_text() == "mine\n"
+
+    # a file named like a report file that the earlier report did not write: refused, untouched
+    (out / "trajectory.png").write_bytes(b"the user's own picture")
+    before = snapshot(out)
+    assert main(["report", *FAST, "--out", str(out)]) == 2
+    err = capsys.readouterr().err
+    assert "trajectory.png" in err and "--replace" in err and "--out" in err
+    assert snapshot(out) == before
+
+
+def test_a_crash_midway_leaves_whole_files_and_a_folder_the_next_run_accepts(tmp_path, monkeypatch,
+                                                                            capsys):
+    from phaseglass import report
+
+    out = tmp_path / "rep"
+    assert main(["report", *FAST, "--kernel", "walk", "--out", str(out)]) == 0
+    html_before = (out / "report.html").read_bytes()
+
+    def broken(*a, **k):
+        raise RuntimeError("the drawing code fell over")
+
+    monkeypatch.setattr(report, "_figure_energy", broken)  # HMC draws it after several new figures
+    with pytest.raises(RuntimeError, match="fell over"):
+        main(["report", *FAST, "--out", str(out)])
+    assert (out / "report.html").read_bytes() == html_before  # the old page, whole
+    stub = json.loads((out / "summary.json").read_text(encoding="utf-8"))  # valid JSON
+    assert stub["written_by"] == "phaseglass report" and stub["complete"] is False
+    assert {p.name for p in out.iterdir()} <= set(stub["files"])  # every file is claimed, no temps
+    assert "trajectory.png" in stub["files"]  # written by the crashed run, so it is listed
+    monkeypatch.undo()
+    assert main(["report", *FAST, "--kernel", "walk", "--out", str(out)]) == 0  # still our folder
+    assert not (out / "trajectory.png").exists()
+
+
+def test_atomic_write_leaves_the_old_file_when_writing_fails(tmp_path, monkeypatch):
+    from phaseglass import report
+
+    target = tmp_path / "summary.json"
+    target.write_text('{"old": 1}')
+
+    def fail_fsync(fd):
+        raise OSError(28, "No space left on device")
+
+    monkeypatch.setattr(report.os, "fsync", fail_fsync)  # fails after the data went to the temp file
+    with pytest.raises(OSError, match="No space left"):
+        report.atomic_write(target, '{"new": "\u26a0"}')
+    assert target.read_text() == '{"old": 1}'
+    assert [p.name for p in tmp_path.iterdir()] == ["summary.json"]  # the temp file is gone
+    monkeypatch.undo()
+
+    def fail_replace(src, dst):
+        raise KeyboardInterrupt  # even Ctrl-C at the last moment
+
+    monkeypatch.setattr(report.os, "replace", fail_replace)
+    with pytest.raises(KeyboardInterrupt):
+        report.atomic_write(target, b"new bytes")
+    assert target.read_text() == '{"old": 1}'
+    assert [p.name for p in tmp_path.iterdir()] == ["summary.json"]
+    monkeypatch.undo()
+    report.atomic_write(target, "caf\u00e9 \u26a0")
+    assert target.read_bytes() == "caf\u00e9 \u26a0".encode("utf-8")
+
+
+UNICODE_MODEL = textwrap.dedent('''
+    import numpy as np
+    import phaseglass as pg
+
+
+    def build():
+        return pg.Target(lambda x: -0.5 * np.sum(x * x, axis=-1), lambda x: -x, dim=2,
+                         vectorized=True, names=["\u03bc", "\u03c3_\u00fc"])
+''')
+
+
+def test_report_under_a_non_utf8_locale_writes_utf8(tmp_path):
+    (tmp_path / "model.py").write_text(UNICODE_MODEL, encoding="utf-8")
+    env = {k: v for k, v in os.environ.items() if not k.startswith(("LC_", "PYTHONIOENCODING"))}
+    # a C locale without Python's UTF-8 mode or locale coercion: the preferred encoding is ASCII,
+    # as on a default Windows install it is cp1252 (PEP 538/540 would otherwise switch to UTF-8)
+    env.update(LC_ALL="C", LANG="C", PYTHONUTF8="0", PYTHONCOERCECLOCALE="0", MPLBACKEND="Agg")
+    probe = subprocess.run([sys.executable, "-c", "import locale; print(locale.getpreferredencoding(False))"],
+                           env=env, capture_output=True, text=True, timeout=60)
+    assert "utf" not in probe.stdout.lower(), probe.stdout  # else this test could not fail
+    out = "rapport-\u00e9"
+    proc = subprocess.run([sys.executable, "-m", "phaseglass", "report", "--model", "./model.py:build",
+                           *FAST[:-1], "--out", out], cwd=tmp_path, env=env, capture_output=True,
+                          timeout=300)
+    assert proc.returncode == 0, proc.stderr.decode("utf-8", "replace")
+    page = (tmp_path / out / "report.html").read_bytes().decode("utf-8")  # strict: valid UTF-8
+    assert "\u03c3_\u00fc" in page and ("\u26a0" in page or "\u2713" in page)
+    summary = json.loads((tmp_path / out / "summary.json").read_bytes().decode("utf-8"))
+    assert summary["model"]["names"] == ["\u03bc", "\u03c3_\u00fc"]
+
+
+# ------------------------------------------------------------------ messages
+
+@pytest.mark.parametrize("dpi", ["1e6", "601", "5", "0", "nan", "inf"])
+def test_dpi_out_of_range_is_one_clear_line(dpi, capsys):
+    assert main(["report", "--dpi", dpi, "--out", "never-written"]) == 2
+    err = capsys.readouterr().err
+    assert f"argument --dpi: expected a number from 10 to 600 (screen: 90, print: 300), got {dpi!r}" in err
+    assert "Traceback" not in err and not Path("never-written").exists()
+
+
+def test_model_given_as_a_file_path(tmp_path, monkeypatch, capsys):
+    sub = tmp_path / "models"
+    sub.mkdir()
+    (sub / "helper_for_pg.py").write_text("SCALE = 2.0\n")
+    (sub / "my model.py").write_text(textwrap.dedent('''
+        import numpy as np
+        import phaseglass as pg
+        from helper_for_pg import SCALE   # a neighbour of the file imports fine
+
+
+        def build():
+            return pg.Target(lambda x: -0.5 * np.sum(x * x, axis=-1) / SCALE, lambda x: -x / SCALE,
+                             dim=2, vectorized=True, names=["near", "far"])
+    '''))
+    monkeypatch.chdir(tmp_path)
+    assert load_model("./models/my model.py:build").names == ("near", "far")
+    assert load_model(str(sub / "my model.py") + ":build").names == ("near", "far")
+    assert str(sub) not in sys.path  # the folder was on the path only while the file loaded
+    assert main(["report", "--model", "models/my model.py:build", *FAST, "--out", "r"]) == 0
+    assert json.loads((tmp_path / "r" / "summary.json").read_text())["model"]["names"] == ["near", "far"]
+
+
+@pytest.mark.parametrize("spec, message", [
+    ("./nowhere.py:build", "the file './nowhere.py' does not exist"),
+    ("models:build", None),  # a folder given as a module is a module-path error, below
+    ("./models:build", "the file './models' is a folder"),
+    ("./data.txt:build", "'./data.txt' is not a .py file"),
+    ("model.py", "name the function that builds the Target: model.py:build"),
+    (".relative:build", "a relative module name cannot be imported"),
+    ("./broken.py:build", "importing './broken.py' for --model './broken.py:build' raised "
+                          "SyntaxError"),
+])
+def test_model_file_mistakes_are_one_line(spec, message, tmp_path, monkeypatch, capsys):
+    (tmp_path / "models").mkdir()
+    (tmp_path / "data.txt").write_text("x")
+    (tmp_path / "broken.py").write_text("def build(:\n")
+    monkeypatch.chdir(tmp_path)
+    assert main(["report", "--model", spec, "--out", "never"]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and err[0].startswith("phaseglass report: error: ")
+    assert f"--model {spec!r}" in err[0] or f"unknown --model {spec!r}" in err[0]
+    if message:
+        assert message in err[0]
+    assert not (tmp_path / "never").exists()

@@ -2,6 +2,7 @@
 
 import json
 import os
+import signal
 import socket
 import subprocess
 import sys
@@ -71,24 +72,70 @@ def _free_port():
         return s.getsockname()[1]
 
 
-def test_demo_starts_a_server_that_serves_the_tour(tmp_path):
-    pytest.importorskip("jupyterlab", reason="the lab extra is not installed")
-    port = _free_port()
+def _alive(pid):
+    """True while ``pid`` is a running (not zombie) process."""
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    try:
+        with open(f"/proc/{pid}/stat") as f:
+            return f.read().rsplit(")", 1)[1].split()[0] != "Z"
+    except OSError:
+        return True
+
+
+def _server_pids(runtime_dir):
+    """Pids of the Jupyter servers that wrote their runtime file (jpserver-<pid>.json) here."""
+    pids = set()
+    for f in runtime_dir.glob("jpserver-*.json"):
+        try:
+            pids.add(int(json.loads(f.read_text())["pid"]))
+        except (ValueError, KeyError, OSError):
+            pids.add(int(f.stem.split("-")[1]))
+    return pids
+
+
+def _isolated_env(tmp_path):
     env = dict(os.environ)
-    home = tmp_path / "home"
-    home.mkdir()
     for var, sub in (("HOME", "home"), ("JUPYTER_CONFIG_DIR", "cfg"), ("JUPYTER_RUNTIME_DIR", "rt"),
                      ("IPYTHONDIR", "ipy"), ("JUPYTERLAB_SETTINGS_DIR", "settings"),
                      ("JUPYTERLAB_WORKSPACES_DIR", "ws")):
         (tmp_path / sub).mkdir(exist_ok=True)
         env[var] = str(tmp_path / sub)
+    return env
+
+
+def test_demo_serves_the_tour_on_the_port_it_names_and_sigterm_stops_the_server(tmp_path):
+    """The port asked for is busy: the terminal names the port actually used, the tour is served
+    there, and SIGTERM to `phaseglass demo` stops JupyterLab too (its pid is gone afterwards)."""
+    pytest.importorskip("jupyterlab", reason="the lab extra is not installed")
+    env = _isolated_env(tmp_path)
+    runtime = tmp_path / "rt"
+    busy = socket.socket()
+    busy.bind(("127.0.0.1", 0))
+    busy.listen()
+    taken = busy.getsockname()[1]
+    log = tmp_path / "demo.log"
     cmd = [sys.executable, "-m", "phaseglass", "demo", "--dir", str(tmp_path / "work"), "--no-browser",
-           "--port", str(port), "--", "--ServerApp.token=demo-test", "--ServerApp.ip=127.0.0.1"]
-    proc = subprocess.Popen(cmd, cwd=home, env=env, stdout=subprocess.PIPE, stderr=subprocess.STDOUT,
-                            text=True)
+           "--port", str(taken), "--", "--ServerApp.token=demo-test", "--ServerApp.ip=127.0.0.1"]
+    with open(log, "w") as out:
+        proc = subprocess.Popen(cmd, cwd=tmp_path / "home", env=env, stdout=out,
+                                stderr=subprocess.STDOUT, text=True)
+    servers = set()
     try:
+        deadline = time.monotonic() + 90
+        port = None
+        while port is None and time.monotonic() < deadline:
+            for line in log.read_text().splitlines():
+                if line.startswith(f"port {taken} is in use, so JupyterLab will use port "):
+                    port = int(line.rsplit("port ", 1)[1].split()[0])
+            if proc.poll() is not None:
+                pytest.fail(f"phaseglass demo exited early: {log.read_text()}")
+            time.sleep(0.2)
+        assert port is not None and port != taken, log.read_text()
+        assert f"JupyterLab will be at http://localhost:{port}/lab" in log.read_text()
         url = f"http://127.0.0.1:{port}/api/contents/{launch.TOUR}?token=demo-test&content=0"
-        deadline = time.monotonic() + 60
         last = None
         while time.monotonic() < deadline:
             try:
@@ -98,14 +145,145 @@ def test_demo_starts_a_server_that_serves_the_tour(tmp_path):
             except Exception as exc:  # server not up yet
                 last = exc
                 if proc.poll() is not None:
-                    pytest.fail(f"phaseglass demo exited early: {proc.stdout.read()}")
+                    pytest.fail(f"phaseglass demo exited early: {log.read_text()}")
                 time.sleep(0.5)
         else:
-            pytest.fail(f"JupyterLab did not answer within 60 s: {last}")
+            pytest.fail(f"JupyterLab did not answer within 90 s: {last}\n{log.read_text()}")
         assert info["name"] == launch.TOUR and info["type"] == "notebook"
+        servers = _server_pids(runtime)
+        assert len(servers) == 1 and proc.pid not in servers
+        (server,) = servers
+        assert _alive(server)
+
+        proc.terminate()  # SIGTERM to phaseglass only, as a process manager or `kill` sends it
+        assert proc.wait(timeout=60) == 128 + 15
+        gone = time.monotonic() + 10
+        while _alive(server) and time.monotonic() < gone:  # normally gone already: we waited for it
+            time.sleep(0.1)
+        assert not _alive(server), "JupyterLab outlived phaseglass demo"
+        assert "stopping JupyterLab" in log.read_text()
+        assert not list(runtime.glob("jpserver-*.json"))  # it shut down cleanly, not killed
+    except AssertionError as exc:
+        raise AssertionError(f"{exc}\n--- phaseglass demo output ---\n{log.read_text()}") from None
     finally:
-        proc.terminate()
-        try:
-            proc.wait(timeout=20)
-        except subprocess.TimeoutExpired:
+        busy.close()
+        if proc.poll() is None:
             proc.kill()
+            proc.wait()
+        for pid in servers | _server_pids(runtime):  # never leave a server behind, even on failure
+            if _alive(pid):
+                os.kill(pid, 9)
+
+
+FAKE_SERVER = """
+import signal, sys, time
+mode, marker = sys.argv[1], sys.argv[2]
+def on_term(signum, frame):
+    open(marker, "a").write(signal.Signals(signum).name + "\\n")
+    if mode == "polite":
+        sys.exit(0)
+signal.signal(signal.SIGTERM, on_term)
+signal.signal(signal.SIGHUP, on_term)
+open(marker + ".pid", "w").write(str(__import__("os").getpid()))
+while True:
+    time.sleep(0.05)
+"""
+
+RUN_SERVE = """
+import sys
+from phaseglass import launch
+fake, mode, marker, grace = sys.argv[1:5]
+sys.exit(launch.serve([sys.executable, fake, mode, marker], grace=float(grace)))
+"""
+
+
+def _serve_fake(tmp_path, mode, grace):
+    """`launch.serve` in a subprocess, watching a stand-in server; returns (proc, marker, server pid)."""
+    fake = tmp_path / "fake_server.py"
+    fake.write_text(FAKE_SERVER)
+    marker = tmp_path / "signals.txt"
+    proc = subprocess.Popen([sys.executable, "-c", RUN_SERVE, str(fake), mode, str(marker), str(grace)],
+                            stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True)
+    pid_file = tmp_path / "signals.txt.pid"
+    deadline = time.monotonic() + 30
+    while not (pid_file.exists() and pid_file.read_text()) and time.monotonic() < deadline:
+        time.sleep(0.05)
+    return proc, marker, int(pid_file.read_text())
+
+
+@pytest.mark.parametrize("sig", [signal.SIGTERM, signal.SIGHUP, signal.SIGINT])
+def test_a_stop_signal_is_passed_on_as_sigterm_and_waited_for(tmp_path, sig):
+    proc, marker, server = _serve_fake(tmp_path, "polite", grace=20)
+    try:
+        proc.send_signal(sig)
+        out, _ = proc.communicate(timeout=30)
+        assert proc.returncode == (0 if sig == signal.SIGINT else 128 + sig)
+        assert marker.read_text().split() == ["SIGTERM"]  # JupyterLab stops its kernels on this
+        assert f"stopping JupyterLab (pid {server}) after {sig.name}" in out
+        assert not _alive(server)
+    finally:
+        if _alive(server):
+            os.kill(server, 9)
+
+
+def test_a_server_that_ignores_sigterm_is_killed_after_the_grace(tmp_path):
+    proc, marker, server = _serve_fake(tmp_path, "stubborn", grace=1)
+    try:
+        proc.send_signal(signal.SIGTERM)
+        out, _ = proc.communicate(timeout=30)
+        assert proc.returncode == 128 + signal.SIGTERM
+        assert marker.read_text().split() == ["SIGTERM"]
+        assert "did not stop within 1 s; killing it" in out
+        assert not _alive(server)
+    finally:
+        if _alive(server):
+            os.kill(server, 9)
+
+
+def test_port_in_use_moves_to_a_free_one_and_says_so(monkeypatch):
+    with socket.socket() as busy:
+        busy.bind(("127.0.0.1", 0))
+        busy.listen()
+        taken = busy.getsockname()[1]
+        assert not launch.port_is_free(taken)
+        port, message = launch.choose_port(taken)
+        assert port != taken and launch.port_is_free(port)
+        assert message == f"port {taken} is in use, so JupyterLab will use port {port} instead"
+    free = _free_port()
+    assert launch.choose_port(free) == (free, None)
+
+
+def test_demo_prints_the_port_it_uses_and_keeps_jupyterlab_on_it(tmp_path, monkeypatch, capsys):
+    monkeypatch.setattr(launch, "_lab_available", lambda: True)
+    seen = {}
+    monkeypatch.setattr(launch, "serve", lambda cmd, **kw: seen.setdefault("cmd", cmd) and 0)
+    with socket.socket() as busy:
+        busy.bind(("127.0.0.1", 0))
+        busy.listen()
+        taken = busy.getsockname()[1]
+        assert cli.main(["demo", "--dir", str(tmp_path / "w"), "--no-browser",
+                         "--port", str(taken)]) == 0
+    out = capsys.readouterr().out
+    port = int(next(a for a in seen["cmd"] if a.startswith("--port=")).split("=")[1])
+    assert port != taken
+    assert f"port {taken} is in use, so JupyterLab will use port {port} instead." in out
+    assert f"http://localhost:{port}/lab" in out
+    assert "--ServerApp.port_retries=0" in seen["cmd"]  # it may not move again silently
+
+
+def test_unwritable_dir_is_one_line_exit_2(tmp_path, monkeypatch, capsys):
+    blocker = tmp_path / "file"
+    blocker.write_text("x")
+    assert cli.main(["demo", "--dir", str(blocker / "sub"), "--copy-only"]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and err[0].startswith("phaseglass demo: error: --dir ")
+    assert "cannot" in err[0] and "Traceback" not in err[0]
+
+    def refuse(folder, **kw):
+        raise PermissionError(13, "Permission denied", str(folder))
+
+    monkeypatch.setattr(launch, "copy_notebooks", refuse)
+    assert cli.main(["demo", "--dir", str(tmp_path / "locked"), "--copy-only"]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert err == [f"phaseglass demo: error: --dir {str(tmp_path / 'locked')!r}: cannot write the "
+                   "notebooks there (Permission denied); name a folder you can write to"]

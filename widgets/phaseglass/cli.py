@@ -17,6 +17,7 @@ import argparse
 import importlib
 import os
 import sys
+import warnings
 
 __all__ = ["main", "build_parser", "load_model", "UsageError", "SUBCOMMANDS"]
 
@@ -29,6 +30,10 @@ class UsageError(Exception):
 
 class RunError(Exception):
     """The run itself failed (the model raised while sampling, ...): one line, exit code 1."""
+
+
+class Interrupted(Exception):
+    """Ctrl-C while running: one line saying what was finished, exit code 130."""
 
 
 def _one_line(exc):
@@ -182,8 +187,11 @@ _dpi = _number(float, lambda v: DPI_RANGE[0] <= v <= DPI_RANGE[1],
                f"a number from {DPI_RANGE[0]} to {DPI_RANGE[1]} (screen: 90, print: 300)")
 
 
-def _count(minimum):
-    return _number(int, lambda v: v >= minimum, f"a whole number >= {minimum}")
+def _count(minimum, maximum=None):
+    if maximum is None:
+        return _number(int, lambda v: v >= minimum, f"a whole number >= {minimum}")
+    return _number(int, lambda v: minimum <= v <= maximum,
+                   f"a whole number from {minimum} to {maximum}")
 
 
 def _coord_pair(text):
@@ -205,6 +213,7 @@ KERNEL_DEFAULTS = {
 
 def _add_report_arguments(p):
     from .core import demos
+    from .core._validate import MAX_STEPS
 
     model = p.add_argument_group("model")
     model.add_argument("--model", default="gaussian", metavar="NAME|MODULE:CALLABLE",
@@ -221,7 +230,7 @@ def _add_report_arguments(p):
     knobs.add_argument("--step-size", type=_positive_float, default=None, metavar="EPS",
                        help="leapfrog step size (walk: proposal scale); the starting value when "
                             "--warmup > 0 (default: 0.25 hmc, 0.15 partial, 0.5 walk)")
-    knobs.add_argument("--steps", type=_count(1), default=None, metavar="N",
+    knobs.add_argument("--steps", type=_count(1, MAX_STEPS), default=None, metavar="N",
                        help="leapfrog steps per transition (default: 10 hmc, 1 partial)")
     knobs.add_argument("--persistence", type=_fraction, default=None, metavar="A",
                        help="momentum persistence in [0, 1) for --kernel partial (default: 0.9)")
@@ -309,7 +318,7 @@ def _run_report(args):
             raise UsageError(f"--coords: {str(exc).splitlines()[0]}") from None
     elif target.dim < 2:
         coords = None
-    from .report import ReportFolderError, check_report_folder, write_report
+    from .report import ReportFolderError, check_report_folder, readable, write_report
 
     def check_folder():  # before sampling, so a refused folder costs nothing
         try:
@@ -323,11 +332,17 @@ def _run_report(args):
         f"{args.draws} draws after {args.warmup} warm-up")
     started = time.perf_counter()
     try:
-        with np.errstate(all="ignore"):
+        with np.errstate(all="ignore"), warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
             run = sample(target, kernel, None, args.draws, n_chains=args.chains,
                          warmup=args.warmup, seed=args.seed)
     except Exception as exc:  # the model's own code raised, or it has no finite start
         raise RunError(f"sampling {args.model!r} failed: {_one_line(exc)}") from None
+    if getattr(run, "stopped", None) == "interrupted":  # Ctrl-C: sample() kept the finished draws
+        raise Interrupted(f"interrupted after {run.n_draws} of {args.draws} draws per chain"
+                          f"{' (in warm-up)' if run.n_draws == 0 else ''}; no report written")
+    for w in caught:  # what the sampler had to say, in the usual format
+        warnings.showwarning(w.message, w.category, w.filename, w.lineno)
     sampled = time.perf_counter() - started
     settings = {
         "model": args.model, "kernel": args.kernel,
@@ -340,9 +355,11 @@ def _run_report(args):
         "seed given": args.seed is not None,
     }
     settings = {k: v for k, v in settings.items() if v is not None}
-    command = " ".join([PROG] + list(args._argv))
+    command = readable(" ".join([PROG] + list(args._argv)))
+    settings["model"] = readable(settings["model"])
     try:
-        files = write_report(args.out, run, settings=settings, title=args.model, coords=coords,
+        files = write_report(args.out, run, settings=settings, title=readable(args.model),
+                             coords=coords,
                              grid=not args.no_grid, animation=args.gif, dpi=args.dpi,
                              command=command, replace=args.replace)
     except ReportFolderError as exc:  # the folder changed while sampling
@@ -430,6 +447,10 @@ def main(argv=None):
     except RunError as exc:
         print(f"{prefix}: error: {exc}", file=sys.stderr)
         return 1
+    except Interrupted as exc:
+        print(f"{prefix}: {exc}", file=sys.stderr)
+        return 130
     except KeyboardInterrupt:
-        print(f"{prefix}: interrupted", file=sys.stderr)
+        print(f"{prefix}: interrupted; no report written" if args.command == "report"
+              else f"{prefix}: interrupted", file=sys.stderr)
         return 130

@@ -35,8 +35,8 @@ import numpy as np
 
 from .core.run import CAUTION, EBFMI_LIMIT, ESS_PER_CHAIN_LIMIT, RHAT_LIMIT
 
-__all__ = ["write_report", "check_report_folder", "atomic_write", "ReportFiles", "ReportFolderError",
-           "knob_grid", "FIGURE_NAMES", "WRITTEN_BY"]
+__all__ = ["write_report", "check_report_folder", "atomic_write", "readable", "ReportFiles",
+           "ReportFolderError", "knob_grid", "FIGURE_NAMES", "WRITTEN_BY"]
 
 #: PNG files a report may contain, in the order shown (views that do not apply are skipped).
 FIGURE_NAMES = ("trajectory", "divergence", "uniforms", "traces", "autocorrelation",
@@ -144,6 +144,24 @@ def _temp_beside(path, suffix):
         except FileExistsError:
             continue
     raise FileExistsError(f"cannot create a temporary file beside {path}")
+
+
+def readable(text):
+    """``text`` made encodable as UTF-8.
+
+    Under a non-UTF-8 locale Python hands non-ASCII command-line arguments and
+    file names over as lone surrogates (PEP 383); they are turned back into the
+    characters they were typed as (almost always UTF-8), else into U+FFFD.
+    """
+    try:
+        text.encode("utf-8")
+        return text
+    except UnicodeEncodeError:
+        pass
+    try:
+        return text.encode("utf-8", "surrogateescape").decode("utf-8", "replace")
+    except UnicodeEncodeError:
+        return text.encode("utf-8", "replace").decode("utf-8")
 
 
 def _earlier_report(folder):
@@ -634,7 +652,7 @@ def write_report(out_dir, run, *, settings=None, title=None, coords=None, grid=T
     summary = _summary(run, digest, settings, title, files, grid_info, command)
     page = _html(run, digest, summary, images, captions, files)
     atomic_write(files.summary, json.dumps(summary, indent=2, allow_nan=False))
-    atomic_write(files.html, page)
+    atomic_write(files.html, readable(page))
     files.seconds = time.perf_counter() - started
     return files
 
