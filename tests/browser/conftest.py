@@ -69,12 +69,14 @@ def browser_artefacts_dir() -> Path:
 
 @pytest.fixture(scope="session")
 def jupyter_servers():
-    """Factory ``(scenario) -> JupyterServer``; one server per notebook folder + env, per session."""
+    """Factory ``(scenario) -> JupyterServer``, per session: one server per notebook folder + env
+    for scenarios that copy the whole folder; one per notebook for those that copy only it."""
     servers: dict = {}
 
     def get(scenario):
-        key = (str(Path(scenario.notebook).resolve().parent),
-               tuple(sorted(scenario.extra_env.items())), scenario.copy_whole_folder)
+        nb = Path(scenario.notebook).resolve()
+        key = (str(nb.parent), tuple(sorted(scenario.extra_env.items())), scenario.copy_whole_folder,
+               None if scenario.copy_whole_folder else nb.name)
         srv = servers.get(key)
         if srv is None or srv.proc is None or srv.proc.poll() is not None:
             srv = harness.JupyterServer(

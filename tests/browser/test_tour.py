@@ -54,9 +54,9 @@ def test_tour_notebook(browser_run, ui):
 
     steps = res.step_inputs("chain-step")
     assert len(steps) == 2
-    counts = [int(re.search(r"(\d+) transitions x", r.texts_after["pg-chain-readout"]).group(1))
+    counts = [int(re.search(r"(\d+) transitions [x×]", r.texts_after["pg-chain-readout"]).group(1))
               for r in steps]
-    first = int(re.search(r"(\d+) transitions x", steps[0].texts_before["pg-chain-readout"]).group(1))
+    first = int(re.search(r"(\d+) transitions [x×]", steps[0].texts_before["pg-chain-readout"]).group(1))
     assert counts == [first + 1, first + 2], (first, counts)
     assert all(r.canvas_latency_ms is not None for r in steps)
 
