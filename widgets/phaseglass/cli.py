@@ -292,8 +292,22 @@ def _build_kernel(args):
         else:
             kernel = RandomWalk(eps, uniform=uniform)
     except (TypeError, ValueError) as exc:
-        raise UsageError(str(exc).splitlines()[0]) from None
+        raise UsageError(_with_flag(str(exc).splitlines()[0])) from None
     return kernel, notes
+
+
+#: The core's argument names and the options that set them.
+_FLAGS = {"step_size": "--step-size", "scale": "--step-size", "n_steps": "--steps",
+          "persistence": "--persistence", "drift": "--drift"}
+
+
+def _with_flag(message):
+    """Prefix a core error naming `step_size` (say) with the option the user typed: --step-size."""
+    import re
+
+    found = re.search(r"`(\w+)`", message)
+    flag = _FLAGS.get(found.group(1)) if found else None
+    return f"{flag}: {message}" if flag else message
 
 
 def _run_report(args):
