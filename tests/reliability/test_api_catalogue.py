@@ -280,3 +280,48 @@ def test_ctrl_c_returns_the_finished_draws(tmp_path, warmup):
         assert draws == 0 and "during warm-up" in out and "not included" in out
     else:
         assert draws > 0 and f"after {draws} of 100000 draws per chain" in out
+
+
+# ------------------------------------------------------------------ views
+def log_of_first():
+    """A model written with math.log: it raises (not -inf) left of x0 = 0."""
+    import math
+
+    return pg.Target(lambda x: math.log(x[0]) - x[0] - 0.5 * x[1] ** 2,
+                     lambda x: np.array([1.0 / x[0] - 1.0, -x[1]]), dim=2)
+
+
+def test_a_log_density_that_raises_in_part_of_the_region_still_opens_the_view():
+    # start at x0 = 1 and the default region reaches x0 < 0, where math.log raises: the view
+    # opens, the failing part of the contour grid is blank, and the status line says so
+    view = pg.TrajectoryView(log_of_first(), start=[1.0, 0.0], xlim=(-2.0, 3.0), ylim=(-2, 2))
+    _, _, z = view._grids.grid
+    assert np.isnan(z).any() and np.isfinite(z).any()
+    assert "raised ValueError (math domain error)" in view.status and "left blank" in view.status
+
+
+@pytest.mark.parametrize("make", [
+    lambda t: pg.ChainView(t, initial=[1.0, 0.0]),
+    lambda t: pg.ShiftGibbsView(t),
+    lambda t: pg.DivergenceView(t, n_draws=20, warmup=10, background=False),
+    lambda t: pg.TuningMap(t, autorun=False),
+], ids=["ChainView", "ShiftGibbsView", "DivergenceView", "TuningMap"])
+def test_views_open_on_a_model_that_raises_and_say_why(make):
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        view = make(log_of_first())
+    assert "math domain error" in view.status
+
+
+@pytest.mark.parametrize("view_type", ["TrajectoryView", "ChainView", "TuningMap"])
+def test_from_settings_refuses_a_json_string_or_none(view_type):
+    cls = getattr(pg, view_type)
+    for bad in ('{"step_size": 0.1}', None):
+        with pytest.raises(TypeError, match=r"`settings` must be a dict"):
+            cls.from_settings(gauss(), bad)
+
+
+def test_unknown_settings_keys_are_refused_by_every_view():
+    view = pg.ChainView(gauss(), initial=[0.1, 0.2], xlim=(-3, 3), ylim=(-3, 3))
+    with pytest.raises(ValueError, match=r"unknown keys \['setp_size'\]"):
+        view.apply_settings({"setp_size": 0.1})

@@ -91,7 +91,8 @@ def log_density_grid(target, coords, through=None, xlim=(-3.0, 3.0), ylim=(-3.0,
         Where the user's log-density raises at some grid points (``math.log`` of a
         negative number, a solver that fails): without ``errors`` the exception
         propagates; with a list, the grid is evaluated point by point, those
-        points are NaN, and ``(n_failed, first_exception)`` is appended to it.
+        points are NaN, and ``(n_failed, first_exception)`` is appended to it
+        (when it raises everywhere, the first exception propagates).
 
     Returns
     -------
@@ -139,6 +140,8 @@ def log_density_grid(target, coords, through=None, xlim=(-3.0, 3.0), ylim=(-3.0,
                 if errors is None:
                     raise
                 Z, failed, first = _pointwise(target, pts)
+                if failed == len(pts):
+                    raise first  # nowhere evaluable: an error, not a partial picture
                 Z = Z.reshape(n, n)
                 errors.append((failed, first))
     finally:

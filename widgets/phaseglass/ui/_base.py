@@ -244,6 +244,15 @@ class View(widgets.VBox):
         colour = "#a33" if text.startswith("error") else "#333"
         self._status_html.value = f'<span style="font-family:monospace;color:{colour}">{text}</span>'
 
+    def clear_status(self):
+        """Clear the status line after a good update, keeping a standing problem.
+
+        A contour grid on which the user's log-density raised at some points
+        (``GridCache.problem``) stays reported until the region changes.
+        """
+        grids = getattr(self, "_grids", None)
+        self.status = (getattr(grids, "problem", None) or "") if grids is not None else ""
+
     def report_error(self, what, exc):
         """Show ``exc`` in the status line (used by ``guarded``)."""
         self.last_error = exc
@@ -274,16 +283,29 @@ class View(widgets.VBox):
     def _extra_settings(self):
         return {}
 
-    def apply_settings(self, settings):
-        """Set every known knob from ``settings`` in one batch of notifications."""
+    #: Keys a view's settings may hold besides its knobs (e.g. how its run was sampled).
+    EXTRA_SETTINGS = ()
+
+    @classmethod
+    def checked_settings(cls, settings):
+        """``settings`` as a new dict without its ``view`` key, or a clear error.
+
+        Refuses a JSON string or None, settings saved from another view, and keys
+        this view does not know (a typo is never silently ignored).
+        """
         settings = check_settings(settings)
-        view = settings.pop("view", type(self).__name__)
-        if view != type(self).__name__:
-            raise ValueError(f"`settings` are for a {view}, not a {type(self).__name__}")
-        known = set(self.setting_names())
-        unknown = sorted(k for k in settings if k not in known and k not in self._extra_setting_names())
+        view = settings.pop("view", cls.__name__)
+        if view != cls.__name__:
+            raise ValueError(f"`settings` are for a {view}, not a {cls.__name__}")
+        known = set(cls.setting_names()) | set(cls.EXTRA_SETTINGS)
+        unknown = sorted(k for k in settings if k not in known)
         if unknown:
             raise ValueError(f"`settings` has unknown keys {unknown}; known: {sorted(known)}")
+        return settings
+
+    def apply_settings(self, settings):
+        """Set every known knob from ``settings`` in one batch of notifications."""
+        settings = self.checked_settings(settings)
         with self.hold_trait_notifications():
             for k in self.setting_names():
                 if k in settings:
@@ -293,9 +315,6 @@ class View(widgets.VBox):
                         value = tuple(value)
                     setattr(self, k, value)
         return self
-
-    def _extra_setting_names(self):
-        return ()
 
     def save_settings(self, path):
         """Write ``settings`` as JSON to ``path`` (UTF-8, strict JSON, written atomically)."""

@@ -455,7 +455,7 @@ class ChainView(View):
             info = self.sampler.step(record=True)
         if info is not None:
             self._last_accepted = bool(info["accepted"][0])
-        self.status = ""
+        self.clear_status()
         return info
 
     def _on_tick(self, change):
@@ -496,7 +496,7 @@ class ChainView(View):
     @guarded("preview")
     def _show_preview(self):
         """Chain 0's next transition with the new knobs, drawn at once (only the preview repaints)."""
-        self.status = ""
+        self.clear_status()
         self.preview = self._peek()
         self._draw_preview()
         self._readout.value = self._readout_html(self.run)
@@ -615,9 +615,7 @@ class ChainView(View):
     @classmethod
     def from_settings(cls, target, settings):
         """Build a view on ``target`` with saved ``settings`` (from ``view.settings``)."""
-        s = dict(settings)
-        s.pop("view", None)
-        known = {k: s[k] for k in cls.setting_names() if k in s}
+        known = cls.checked_settings(settings)
         if "coords" in known:
             known["coords"] = tuple(known["coords"])
         return cls(target, **known)

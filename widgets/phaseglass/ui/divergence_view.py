@@ -194,7 +194,7 @@ class DivergenceView(View):
         self._sampler = Sampler(target, kernel, n_chains=n_chains, seed=seed)
         self._history = self._sampler.warm_up(warmup)
         self._warmup = int(warmup)
-        self.status = ""
+        self.clear_status()
         return True
 
     async def _sample_in_chunks(self):
@@ -474,7 +474,7 @@ class DivergenceView(View):
             self._draw_replay()
         self._place_ring()
         self._write_readout()
-        self.status = ""
+        self.clear_status()
         self.redraw(full=True)
 
     def _place_ring(self):
@@ -600,12 +600,11 @@ class DivergenceView(View):
     def _extra_settings(self):
         return {} if self._sampling_settings is None else {"sampling": self._sampling_settings}
 
-    def _extra_setting_names(self):
-        return ("sampling",)
+    EXTRA_SETTINGS = ("sampling",)
 
     def apply_settings(self, settings):
         """Restore coordinates, the divergence shown and the replay position."""
-        s = dict(settings)
+        s = self.checked_settings(settings)
         s.pop("sampling", None)  # used by from_settings; a built view keeps its draws
         replay = s.pop("replay_step", None)
         super().apply_settings(s)
@@ -620,7 +619,7 @@ class DivergenceView(View):
         For a Target, the saved sampling settings (draws, chains, warm-up, seed,
         kernel) are used, so the same draws are made again (at once).
         """
-        s = dict(settings)
+        s = cls.checked_settings(settings)
         kw = {"coords": tuple(s.get("coords", (0, 1)))}
         sampling = s.get("sampling")
         if isinstance(run_or_target, Target) and sampling is not None:

@@ -449,7 +449,7 @@ class ShiftGibbsView(View):
         self._run = None
         self._replayed = None
         self._refresh()
-        self.status = ""
+        self.clear_status()
 
     def _on_tick(self, change):
         if self._syncing or change["new"] <= change["old"]:
@@ -529,7 +529,7 @@ class ShiftGibbsView(View):
         sweeps = self._replay_length()
         self._replayed = (knob, sweeps)
         self._restart(sweeps)
-        self.status = ""
+        self.clear_status()
 
     @traitlets.observe("coords")
     def _on_coords(self, change):
@@ -687,12 +687,11 @@ class ShiftGibbsView(View):
     def _extra_settings(self):
         return {"capacity": self.capacity, "grid_size": self.kernel.grid_size}
 
-    def _extra_setting_names(self):
-        return ("capacity", "grid_size")
+    EXTRA_SETTINGS = ("capacity", "grid_size")
 
     def apply_settings(self, settings):
         """Set knobs from ``settings``; ``capacity`` and ``grid_size`` must match this view's."""
-        s = dict(settings)
+        s = self.checked_settings(settings)
         for k, have in (("capacity", self.capacity), ("grid_size", self.kernel.grid_size)):
             if k in s and s.pop(k) != have:
                 raise ValueError(f"`{k}` cannot change on a built view (have {have}); use "
@@ -705,6 +704,7 @@ class ShiftGibbsView(View):
 
         ``conditionals`` cannot be stored in settings: pass them again.
         """
-        fixed = {k: settings[k] for k in ("capacity", "grid_size") if k in settings}
+        s = cls.checked_settings(settings)
+        fixed = {k: s[k] for k in ("capacity", "grid_size") if k in s}
         view = cls(target, conditionals, **fixed)
         return view.apply_settings(settings)

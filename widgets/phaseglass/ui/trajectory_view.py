@@ -342,7 +342,7 @@ class TrajectoryView(View):
         self._ax.set_xlabel(names[0])
         self._ax.set_ylabel(names[1])
         self._readout.value = self._readout_html(tr)
-        self.status = ""
+        self.clear_status()
         self.redraw(full=full)
 
     def _readout_html(self, tr):
@@ -408,8 +408,7 @@ class TrajectoryView(View):
     @classmethod
     def from_settings(cls, target, settings):
         """Build a view on ``target`` with saved ``settings`` (from ``view.settings``)."""
-        s = dict(settings)
-        s.pop("view", None)
+        s = cls.checked_settings(settings)
         view = cls(target, start=s.get("start"), coords=tuple(s.get("coords", (0, 1))),
                    xlim=s.get("xlim"), ylim=s.get("ylim"))
         return view.apply_settings(settings)

@@ -509,7 +509,7 @@ class TuningMap(View):
         with self._lock:
             self._job = job
             self._state[self._pending()] = 0
-        self.status = ""
+        self.clear_status()
         if background:
             job.thread = threading.Thread(target=self._work, args=(job, True), daemon=True,
                                           name="phaseglass-tuning-map")
@@ -642,14 +642,7 @@ class TuningMap(View):
     @classmethod
     def from_settings(cls, target, settings, *, autorun=True):
         """Build a map on ``target`` with saved ``settings`` (from ``map.settings``)."""
-        s = dict(settings)
-        view = s.pop("view", cls.__name__)
-        if view != cls.__name__:
-            raise ValueError(f"`settings` are for a {view}, not a {cls.__name__}")
-        known = set(cls.setting_names())
-        unknown = sorted(set(s) - known)
-        if unknown:
-            raise ValueError(f"`settings` has unknown keys {unknown}; known: {sorted(known)}")
+        s = cls.checked_settings(settings)
         if s.get("kernel", "hmc") != "partial":
             s.pop("persistence", None)
         return cls(target, autorun=autorun, **s)
