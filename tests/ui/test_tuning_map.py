@@ -426,3 +426,21 @@ def test_the_map_fits_the_column_and_nothing_is_cut(computed):
     drawn = computed.figure.get_tightbbox(computed.figure.canvas.get_renderer())
     assert drawn.x0 >= -0.01 and drawn.y0 >= -0.01
     assert drawn.x1 <= width + 0.01 and drawn.y1 <= height + 0.01
+
+
+def test_stop_acts_within_one_transition_inside_a_long_cell():
+    import time
+
+    def slow(x):
+        time.sleep(0.005)
+        return -0.5 * float(x @ x)
+
+    target = pg.Target(slow, lambda x: -x, dim=2)
+    m = pg.TuningMap(target, step_sizes=[0.3], n_steps=[2], n_draws=100000, n_chains=1,
+                     burn_in=0, autorun=False)
+    m._pilot = lambda: None  # no pilot: the cell itself is what runs long
+    m.compute()
+    time.sleep(0.5)  # well inside the one cell (100000 transitions of ~15 ms)
+    m.stop()
+    assert m.wait(timeout=5.0), "stop() was not honoured inside the cell"
+    assert np.isnan(m.values["acceptance"][0, 0])  # the unfinished cell stays blank

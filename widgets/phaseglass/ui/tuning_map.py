@@ -37,7 +37,7 @@ _KERNEL_TITLES = {"hmc": "HMC", "partial": "HMC with partial momentum refresh",
                   "walk": "random-walk Metropolis"}
 _DEFAULT_N_STEPS = (1, 2, 4, 8, 16, 32)
 _DEFAULT_PERSISTENCE = (0.0, 0.8, 0.95)
-_CHUNK = 10  # transitions between checks of the abort flag inside a cell
+_CHUNK = 1  # transitions between checks of the stop/abort flags: a stop acts within one
 _DRAW_EVERY = 0.5  # seconds between canvas updates from the background thread
 
 
@@ -186,7 +186,7 @@ class TuningMap(View):
 
     The cells are computed one by one in a background thread, so the notebook
     stays usable; a progress bar counts them and a Stop button (``stop()``)
-    ends the pass after the current cell. ``compute(background=False)`` runs
+    ends the pass within one transition (the cell being computed stays blank). ``compute(background=False)`` runs
     in the calling thread (scripts, tests). Changing a setting discards the
     results and, with ``autorun`` (the default), starts a new pass.
 
@@ -397,7 +397,7 @@ class TuningMap(View):
         self._run_button.add_class("pg-run")
         self._run_button.on_click(lambda _: self._run_clicked())
         self._stop_button = widgets.Button(description="stop", icon="stop", disabled=True,
-                                           tooltip="stop after the current cell")
+                                           tooltip="stop now (the cell being computed stays blank)")
         self._stop_button.add_class("pg-stop")
         self._stop_button.on_click(lambda _: self.stop())
         self._progress = widgets.IntProgress(value=0, min=0, max=1, description="cells",
@@ -521,7 +521,7 @@ class TuningMap(View):
         return self
 
     def stop(self):
-        """Stop the background pass after the cell being computed; the rest stay NaN."""
+        """Stop the background pass within one transition; unfinished cells stay NaN."""
         job = self._job
         if job is not None:
             job.stop.set()
@@ -572,7 +572,7 @@ class TuningMap(View):
         try:
             out = measure_cell(self.target, kernel, n_draws=c["n_draws"], n_chains=c["n_chains"],
                                burn_in=c["burn_in"], seed=c["seed"], initial=initial,
-                               should_abort=job.abort.is_set)
+                               should_abort=lambda: job.abort.is_set() or job.stop.is_set())
             error = None
         except _Aborted:
             return
