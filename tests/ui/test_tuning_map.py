@@ -89,7 +89,7 @@ def test_autorun_starts_in_the_background(gaussian, computed):
     assert same(m.values, computed.values)
 
 
-def test_stop_after_the_current_cell_leaves_the_rest_blank(gaussian, computed):
+def test_stop_abandons_the_current_cell_and_leaves_every_cell_blank(gaussian, computed):
     gate, inside = threading.Event(), threading.Event()
     blocking = {"on": False}
 
@@ -111,10 +111,11 @@ def test_stop_after_the_current_cell_leaves_the_rest_blank(gaussian, computed):
     blocking["on"] = False
     gate.set()
     assert m.wait(60) and not m.running
+    # the stop is honoured at the next transition: cell (0, 0) is abandoned, none is done
     done = np.isfinite(m.values["acceptance"])
-    assert done.sum() == 1 and done[0, 0]
-    assert m.n_done == 1 and m._progress.value == 1
-    assert "1/9" in m._readout.value
+    assert done.sum() == 0
+    assert m.n_done == 0 and m._progress.value == 0
+    assert "0/9" in m._readout.value
     # resuming computes only the missing cells and gives the same map as one pass
     m.compute(background=False, resume=True)
     assert same(m.values, computed.values)
