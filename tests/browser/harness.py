@@ -257,7 +257,7 @@ class ViewRecord:
       past the right edge of its output area (or cell); neither the view nor the output area
       scrolls horizontally;
     * ``no_widget_error``: no "Error displaying widget" in the view's output area;
-    * ``labels``: no label, button or dropdown in the view shows truncated text;
+    * ``labels``: no label, button, dropdown or number box in the view shows truncated text;
     * ``control``: one input on the view's ``pg-primary`` control (fallback: its first slider,
       toggle buttons or dropdown) changes the view's canvas within CONTROL_CHANGE_CAP_S.
     """
@@ -713,15 +713,18 @@ INIT_JS = r"""
     for (const el of view.querySelectorAll('*')) {
       if (!pg.visible(el)) continue;
       const cs = getComputedStyle(el);
-      if (el.tagName === 'SELECT') {
-        const opt = el.options[el.selectedIndex];
-        if (!opt) continue;
+      const isSelect = el.tagName === 'SELECT';
+      const isBox = el.tagName === 'INPUT' && /^(text|number|)$/.test(el.type || '');
+      if (isSelect || isBox) {
+        // the shown text (the chosen option, or a number box's value) against the box's room
+        const shown = isSelect ? (el.options[el.selectedIndex] || {}).text : el.value;
+        if (!shown) continue;
         const ctx = (pg._measure = pg._measure || document.createElement('canvas').getContext('2d'));
         ctx.font = `${cs.fontWeight} ${cs.fontSize} ${cs.fontFamily}`;
         const pad = parseFloat(cs.paddingLeft) + parseFloat(cs.paddingRight);
         const room = el.clientWidth - pad;
-        const need = ctx.measureText(opt.text).width;
-        if (need > room + 1) cut.push({what: pg.describe(el) + ` [${opt.text}]`, need: Math.round(need), room: Math.round(room)});
+        const need = ctx.measureText(shown).width;
+        if (need > room + 1) cut.push({what: `${el.tagName.toLowerCase()} [${shown}]`, need: Math.round(need), room: Math.round(room)});
       } else if (cs.textOverflow === 'ellipsis' && el.scrollWidth > el.clientWidth + 1 &&
                  (el.innerText || '').trim()) {
         cut.push({what: pg.describe(el), need: el.scrollWidth, room: el.clientWidth});

@@ -48,10 +48,11 @@ def test_view_checks_catch_defects(browser_run):
     assert failed(views["flat"]) == {"canvas", "control"}, views["flat"].checks
     assert "one colour" in views["flat"].checks["canvas"]["detail"]
 
-    # 70 px toggle buttons and a 90 px dropdown with long labels; the toggle buttons work
+    # 70 px toggle buttons, a 90 px dropdown and a 70 px number box with long text;
+    # the toggle buttons work
     assert failed(views["truncated"]) == {"labels"}, views["truncated"].checks
     labels = views["truncated"].checks["labels"]["detail"]
-    assert "toggle" in labels and "select" in labels, labels
+    assert "toggle" in labels and "select" in labels and "input [28.6163" in labels, labels
     assert views["truncated"].control.startswith("toggle buttons")
 
     assert failed(views["dropdown"]) == set(), views["dropdown"].checks
