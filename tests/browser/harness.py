@@ -28,6 +28,15 @@ Pointing it at another notebook (in a test module next to conftest.py)::
         res = browser_run(TOUR, ui)                   # RunResult; raises on any failure
         assert res.final_text("pg-readout") != "..."
 
+Checking every view of a notebook (``Scenario(check_views=True, view_names=(...))``): after
+run-all, every top-level ``.pg-view`` is checked for a painted, non-flat canvas of a sensible
+size, nothing past its output area's right edge, no widget error, no truncated text, and one
+input on its ``pg-primary`` control repainting the canvas (:class:`ViewRecord`); screenshots
+``<name>-<ui>-viewN-<view>-loaded.png`` / ``-moved.png``. The results are data in
+``RunResult.views`` (never raised), so one run reports every view; console errors
+(``RunResult.console_errors``, IGNORED_CONSOLE_ERRORS aside) and page errors are data too.
+See test_notebooks_in_browser.py, and test_view_checks.py for a notebook of deliberate defects.
+
 Facts this relies on:
 * Playwright's own browser download cannot work on these machines; Debian's
   ``/usr/bin/chromium`` (a shell wrapper that ``exec``s ``/usr/lib/chromium/chromium``
