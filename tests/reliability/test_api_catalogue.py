@@ -325,3 +325,15 @@ def test_unknown_settings_keys_are_refused_by_every_view():
     view = pg.ChainView(gauss(), initial=[0.1, 0.2], xlim=(-3, 3), ylim=(-3, 3))
     with pytest.raises(ValueError, match=r"unknown keys \['setp_size'\]"):
         view.apply_settings({"setp_size": 0.1})
+
+
+@pytest.mark.parametrize("view_type, settings", [
+    ("TrajectoryView", {"n_steps": 10**9}),
+    ("ChainView", {"n_steps": 10**9}),
+    ("TuningMap", {"n_steps": [1, 10**9]}),
+])
+def test_a_settings_file_with_a_billion_steps_is_refused(view_type, settings):
+    cls = getattr(pg, view_type)
+    kwargs = {"autorun": False} if view_type == "TuningMap" else {}
+    with pytest.raises(Exception, match=r"`n_steps` must"):
+        cls.from_settings(gauss(), dict(settings, view=view_type), **kwargs)

@@ -9,6 +9,7 @@ import numpy as np
 import traitlets
 from matplotlib.ticker import MaxNLocator
 
+from ..core._validate import MAX_STEPS
 from ..core.diagnostics import ess
 from ..core.kernels import HMC, PartialRefreshHMC, RandomWalk
 from ..core.run import CAUTION
@@ -265,7 +266,7 @@ class ChainView(View):
                            "slider ranges are guesses around chain 0's start")
 
     # ------------------------------------------------------------ validation
-    _RANGES = {"step_size": (0.0, None, "(]"), "n_steps": (1, None, "[]"),
+    _RANGES = {"step_size": (0.0, None, "(]"), "n_steps": (1, MAX_STEPS, "[]"),
                "n_chains": (1, None, "[]"), "steps_per_tick": (1, None, "[]"),
                "persistence": (0.0, 1.0, "[)"), "drift": (0.0, 2.0, "()")}
 

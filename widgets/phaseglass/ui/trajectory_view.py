@@ -5,6 +5,7 @@ import numpy as np
 import traitlets
 from matplotlib.ticker import MaxNLocator
 
+from ..core._validate import MAX_STEPS
 from ..core.leapfrog import leapfrog
 from ..core.metric import Metric
 from ..core.slices import resolve_coords
@@ -128,7 +129,7 @@ class TrajectoryView(View):
         return self._grids.evaluations
 
     # ------------------------------------------------------------ validation
-    _RANGES = {"step_size": (0.0, None, "(]"), "n_steps": (1, None, "[]"),
+    _RANGES = {"step_size": (0.0, None, "(]"), "n_steps": (1, MAX_STEPS, "[]"),
                "persistence": (0.0, 1.0, "[)"), "mass_x": (0.0, None, "(]"),
                "mass_y": (0.0, None, "(]")}
 

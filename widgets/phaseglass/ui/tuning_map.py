@@ -9,6 +9,7 @@ import ipywidgets as widgets
 import numpy as np
 import traitlets
 
+from ..core._validate import MAX_STEPS
 from ..core.diagnostics import ess
 from ..core.kernels import HMC, PartialRefreshHMC, RandomWalk
 from ..core.run import CAUTION
@@ -327,9 +328,9 @@ class TuningMap(View):
     @traitlets.validate("n_steps")
     def _check_n_steps(self, proposal):
         v = list(proposal["value"])
-        if not v or not all(int(x) >= 1 for x in v):
+        if not v or not all(1 <= int(x) <= MAX_STEPS for x in v):
             raise traitlets.TraitError(
-                f"`n_steps` must be a non-empty list of integers >= 1, got {v}")
+                f"`n_steps` must be a non-empty list of integers in [1, {MAX_STEPS}], got {v}")
         return [int(x) for x in v]
 
     @traitlets.validate("persistence")
