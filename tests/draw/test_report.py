@@ -106,15 +106,26 @@ def test_random_walk_report_leaves_out_leapfrog_views(tmp_path):
     assert "No problem detected" in html or "\u26a0" in html
 
 
-def test_rewriting_a_folder_drops_stale_figures(tmp_path):
+def test_rewriting_a_folder_drops_only_the_earlier_reports_stale_figures(tmp_path):
+    hmc = pg.sample(pg.demos.correlated_gaussian(), pg.HMC(0.3, 4), n_draws=20, n_chains=2, seed=1)
+    walk = pg.sample(pg.demos.correlated_gaussian(), pg.RandomWalk(1.0), n_draws=20, n_chains=2,
+                     seed=1)
+    write_report(tmp_path, hmc, grid=False, dpi=20)
+    assert (tmp_path / "trajectory.png").exists()
+    (tmp_path / "notes.txt").write_text("not ours")
+    write_report(tmp_path, walk, dpi=20)
+    assert not (tmp_path / "trajectory.png").exists()  # the earlier report's, not made this time
+    assert (tmp_path / "notes.txt").read_text() == "not ours"  # files the report did not write stay
+
+
+def test_a_folder_without_an_earlier_report_is_refused(tmp_path):
     run = pg.sample(pg.demos.correlated_gaussian(), pg.RandomWalk(1.0), n_draws=20, n_chains=2,
                     seed=1)
-    (tmp_path / "tuning.png").write_bytes(b"from an earlier run")
-    (tmp_path / "chain.gif").write_bytes(b"from an earlier run")
-    (tmp_path / "notes.txt").write_text("not ours")
-    write_report(tmp_path, run, dpi=20)
-    assert not (tmp_path / "tuning.png").exists() and not (tmp_path / "chain.gif").exists()
-    assert (tmp_path / "notes.txt").exists()  # files the report did not write are left alone
+    (tmp_path / "tuning.png").write_bytes(b"from somewhere else")
+    with pytest.raises(ValueError, match="`out_dir`.*no earlier phaseglass report.*replace=True"):
+        write_report(tmp_path, run, dpi=20)
+    assert [p.name for p in tmp_path.iterdir()] == ["tuning.png"]
+    assert (tmp_path / "tuning.png").read_bytes() == b"from somewhere else"
 
 
 def test_report_needs_target_and_kernel(tmp_path):
