@@ -82,6 +82,13 @@ def test_typed_values_are_exact_and_refused_ones_reported(knobs):
     assert c["step_size"].box.value == 0.0123456  # the box returns to the knob's value
 
 
+def test_the_box_shows_six_digits_of_a_long_float(knobs):
+    view, c = knobs
+    view.step_size = 0.08734020764124649  # e.g. a tuned step size
+    assert c["step_size"].box.value == 0.0873402
+    assert view.step_size == 0.08734020764124649  # the knob keeps every digit
+
+
 def test_out_of_range_values_widen_the_slider(knobs):
     view, c = knobs
     view.step_size = 20.0

@@ -8,7 +8,8 @@ figure, the readout and ``view.trajectory`` end up describing different numbers.
 * a value set from code (or typed) is kept exactly, and the slider only shows
   the nearest position it can reach (its echo from the front end is ignored);
 * a drag sets the knob to the slider's position, rounded to three significant
-  digits so readouts stay short;
+  digits so readouts stay short; the box shows at most six significant digits
+  (a 17-digit float would be cut off in it);
 * a value outside the slider's range widens the range instead of being clipped;
 * a refused value (the view's validator raises) lands in the view's status line
   and the controls return to the knob's value.
@@ -128,7 +129,8 @@ class KnobControl(widgets.HBox):
                 if pos > s.max:
                     s.max = math.ceil(pos) if self.logscale else pos
             s.value = int(value) if self.integer_knob else float(value)
-            self.box.value = int(value) if self.integer_knob else float(value)
+            # six significant digits fit the box; a value typed there is used exactly
+            self.box.value = int(value) if self.integer_knob else _round_sig(float(value), 6)
         finally:
             self._quiet = False
 
