@@ -118,6 +118,14 @@ IGNORED_CONSOLE_ERRORS: tuple[tuple[str, re.Pattern, re.Pattern], ...] = (
      re.compile(r"/static/notebook/[0-9a-f]+\.woff2(\?|$)")),
 )
 
+#: ipympl's console error when a frame it received is not an image, and what it has meant here
+BROKEN_FRAME_ERROR = "The HTMLImageElement provided is in the 'broken' state"
+BROKEN_FRAME_HINT = (
+    "the console shows \"drawImage ... 'broken' state\": a frame sent before the front end was "
+    "ready was not a PNG (ipympl 0.10's Canvas.send_binary, while it syncs _data_url, rebinds "
+    "`data` to the raw RGBA buffer and sends that; a canvas drawn by a background thread during "
+    "the cell hits it, and the canvas stays 0x0)")
+
 #: Thresholds of the per-view checks (check_views).
 MIN_CANVAS_CSS = (200, 150)      # canvas at least this wide x high, in CSS px
 MAX_FLAT_SHARE = 0.95            # the most common colour covers less than this share of pixels
@@ -1246,6 +1254,8 @@ class _Run:
                 problems.append(f"{c['flat_share']:.1%} of its pixels are one colour")
             if not painted:
                 problems.append(f"never painted (< 200 inked pixels after {PAINT_CAP_S:.0f} s)")
+            if c["css_w"] == 0 and any(BROKEN_FRAME_ERROR in e for e in self.result.console_errors):
+                problems.append(BROKEN_FRAME_HINT)
             rec.set("canvas", not problems, "; ".join(problems) or
                     f"{c['css_w']}x{c['css_h']} px, most common colour {c['flat_share']:.1%}")
 
