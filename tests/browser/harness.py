@@ -1058,7 +1058,7 @@ class _Run:
 
     def wait_stable(self, canvas, quiet_s: float = 0.4, cap_s: float = 10.0):
         """Wait until the canvas image (a locator or an element handle) has not changed for
-        ``quiet_s``."""
+        ``quiet_s``; False if it still changed after ``cap_s``."""
         h = canvas.element_handle() if hasattr(canvas, "element_handle") else canvas
         last = h.evaluate("c => c.toDataURL()")
         since = time.monotonic()
@@ -1069,8 +1069,9 @@ class _Run:
             if cur != last:
                 last, since = cur, time.monotonic()
             elif time.monotonic() - since >= quiet_s:
-                return
+                return True
         log(f"{self.ui}: canvas still changing after {cap_s}s (continuing)")
+        return False
 
     def one_input(self, step_label: str, what: str, canvas, texts: dict[str, Any],
                   do_input: Callable[[], None], expect_canvas: bool, cap_s: float = 20.0):
@@ -1390,6 +1391,10 @@ class _Run:
             rec.set("control", False, f"control is disabled: {desc}")
             return
 
+        # a canvas still changing on its own (a background run, a timer) cannot show the input's effect
+        if not self.wait_stable(canvas):
+            rec.set("control", False, f"canvas kept changing without input; {what} not judged")
+            return
         self.page.evaluate("([cs, ts]) => window.__pg.arm(cs, ts)", [[canvas], []])
         action()
         changed = self._wait_true("() => window.__pg.poll()", cap_s=CONTROL_CHANGE_CAP_S)
