@@ -30,9 +30,9 @@ from phaseglass_browser_scenarios import (ALL, DIVERGENCES, TOUR,  # loaded by c
 #: The output column of issue 9's setup (1280 px window, file browser open): about 800 px.
 LAB_OUTPUT_WIDTH_PX = (740, 900)
 
-#: Every view is to mark the control the test moves with ``pg-primary``. While False, a view
-#: without it is checked with its first slider / toggle buttons / dropdown and only noted.
-REQUIRE_PG_PRIMARY = False
+#: Every view marks the control the test moves with ``pg-primary`` (DEVELOPERS.md). A view
+#: without it is still checked with its first slider / toggle buttons / dropdown, and fails.
+REQUIRE_PG_PRIMARY = True
 
 CASES = [pytest.param(s, "lab", id=f"{s.name}-lab") for s in ALL] + [
     pytest.param(s, "notebook", id=f"{s.name}-notebook7") for s in (TOUR, DIVERGENCES)]
