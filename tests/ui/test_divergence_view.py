@@ -282,3 +282,14 @@ def test_bad_input_is_rejected(funnel_run):
         view.selected = 99
     with pytest.raises(ValueError, match="different coordinates"):
         view.coords = (1, 1)
+
+
+def test_the_readout_gives_the_replayed_steps_energy_error(view):
+    from phaseglass.ui._base import number
+
+    view.replay_step = 1
+    tr = view.trajectory
+    d = float(tr.energy_error[1])
+    assert f"replay at step 1 of {tr.divergence_step}: &Delta;H = {'+' if d > 0 else ''}{number(d)}" \
+        in view._readout.value
+    assert not view._energy.verdict.get_visible()  # said once, in the readout

@@ -68,9 +68,38 @@ def _canvas_type():
     """
     global _canvas_class
     if _canvas_class is None:
+        import io
+
         from ipympl.backend_nbagg import Canvas
+        from PIL import Image
 
         class ColumnCanvas(Canvas):
+            def get_diff_image(self):
+                """matplotlib's diff frame, PNG-encoded with fast compression.
+
+                A live view sends a frame on every knob move; zlib level 1 encodes the
+                (mostly empty) diff image about a third faster than the default level 6
+                for a few percent more bytes over a local websocket.
+                """
+                if not self._png_is_old:
+                    return None
+                pixels = np.asarray(self.get_renderer().buffer_rgba())
+                buff = pixels.view(np.uint32).squeeze(2)  # one uint32 per pixel: one comparison
+                if (self._force_full or buff.shape != self._last_buff.shape
+                        or (pixels[:, :, 3] != 255).any()):  # transparency needs a full frame
+                    self.set_image_mode("full")
+                    output = buff
+                else:
+                    self.set_image_mode("diff")
+                    output = np.where(buff != self._last_buff, buff, 0)
+                self._last_buff = buff.copy()
+                self._force_full = False
+                self._png_is_old = False
+                with io.BytesIO() as png:
+                    Image.fromarray(output.view(np.uint8).reshape((*output.shape, 4))).save(
+                        png, format="png", compress_level=1)
+                    return png.getvalue()
+
             @traitlets.validate("_data_url")
             def _complete_data_url(self, proposal):
                 url = proposal["value"]

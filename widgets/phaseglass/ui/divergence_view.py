@@ -338,8 +338,11 @@ class DivergenceView(View):
                labels=[h.get_label() for h in handles], fontsize=7)
         self._ax_err.legend(loc="center left", bbox_to_anchor=(1.01, 0.5), fontsize=7)
         e = self._energy
+        # The readout gives the replayed step's energy error; the panel's own verdict title
+        # would repeat it at a second rounding and is the costliest artist of a replay frame.
+        e.verdict.set_visible(False)
         self.set_dynamic([p.path, p.start, p.end, p.divergent, p.momentum, e.error, e.divergence,
-                          e.verdict, self._offview])
+                          self._offview])
 
     def _axis_names_all(self):
         bounded = self.target is not None and self.target.bounded
@@ -535,6 +538,7 @@ class DivergenceView(View):
                 text = (f"the diverging step leaves the view,\n"
                         f"to ({number(tip[0], 3)}, {number(tip[1], 3)})")
         self._offview.set_text(text)
+        self._offview.set_visible(bool(text))  # an empty text still costs a layout per frame
 
     # ------------------------------------------------------------ coordinates
     @traitlets.observe("coords")
@@ -593,7 +597,10 @@ class DivergenceView(View):
             parts.append(f"diverged at leapfrog step {k} of {tr.n_steps} "
                          f"(step size {number(tr.step_size, 3)}), {dh_text} "
                          f"(threshold &plusmn;{number(tr.max_energy_error)})")
-            parts.append(f"replay at step {self.replay_step} of {k}")
+            now = float(tr.energy_error[self.replay_step])
+            now_text = (f"{'+' if now > 0 else ''}{number(now)}" if np.isfinite(now)
+                        else "not finite")
+            parts.append(f"replay at step {self.replay_step} of {k}: &Delta;H = {now_text}")
         self._readout.value = mono.format(" | ".join(parts)) + caution
 
     # ---------------------------------------------------------------- settings
