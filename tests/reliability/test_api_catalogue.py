@@ -16,6 +16,7 @@ import warnings
 
 import numpy as np
 import pytest
+import traitlets
 import scipy.stats as st
 
 import phaseglass as pg
@@ -337,3 +338,17 @@ def test_a_settings_file_with_a_billion_steps_is_refused(view_type, settings):
     kwargs = {"autorun": False} if view_type == "TuningMap" else {}
     with pytest.raises(Exception, match=r"`n_steps` must"):
         cls.from_settings(gauss(), dict(settings, view=view_type), **kwargs)
+
+
+def test_a_nan_start_is_refused_by_the_trajectory_view():
+    with pytest.raises(traitlets.TraitError, match=r"`start` must be finite"):
+        pg.TrajectoryView(gauss(), start=[np.nan, np.nan], xlim=(-3, 3), ylim=(-3, 3))
+
+
+def test_keeping_every_trajectory_of_a_long_run_warns_with_its_memory(monkeypatch):
+    from phaseglass.core import sampling
+
+    monkeypatch.setattr(sampling, "TRAJECTORY_MEMORY_WARNING", 1 << 20)  # 1 MiB for the test
+    with pytest.warns(UserWarning, match=r"keep_trajectories=True will hold about .* GiB"):
+        pg.sample(gauss(), pg.HMC(0.2, 10), n_draws=2000, n_chains=4, keep_trajectories=True,
+                  seed=1)

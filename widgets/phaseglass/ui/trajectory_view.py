@@ -151,6 +151,8 @@ class TrajectoryView(View):
         name = proposal["trait"].name
         if v.shape != (self.target.dim,):
             raise traitlets.TraitError(f"`{name}` must have shape ({self.target.dim},), got {v.shape}")
+        if not np.all(np.isfinite(v)):
+            raise traitlets.TraitError(f"`{name}` must be finite, got {v.tolist()}")
         return v
 
     # -------------------------------------------------------------- controls
