@@ -384,3 +384,13 @@ def test_figure_fits_the_column_and_the_u_legend_leaves_the_data(glaze, kw):
         assert tight.y0 >= box.y0 - 1 and tight.y1 <= box.y1 + 1, ax.get_title(loc="left")
     leg = view._ax_u.get_legend().get_window_extent(renderer)
     assert leg.y1 <= view._ax_u.get_window_extent(renderer).y0  # below the panel, off the u = 1 band
+
+
+def test_the_trace_panel_follows_the_chain_after_the_first_steps():
+    view = pg.ChainView(pg.demos.glaze_ridge(), seed=2)
+    view.step(60)
+    lo, hi = view._ax_trace.get_xlim()
+    assert lo <= 0 and hi >= 59  # every transition is inside the trace panel
+    z = view.run.unconstrained[:, :, view.coords[0]]
+    y0, y1 = view._ax_trace.get_ylim()
+    assert y0 <= z.min() and y1 >= z.max()

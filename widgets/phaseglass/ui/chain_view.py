@@ -543,8 +543,9 @@ class ChainView(View):
         self._ensure_trajectory(traj, self._last_accepted)
         self._traces.update(z, run.divergent, first=run.first_draw)
         if run.n_draws == 0:  # nothing to scale to yet: the range of the left panel's x
-            self._ax_trace.set_xlim(run.first_draw - 0.5, run.first_draw + 10)
-            self._ax_trace.set_ylim(self.xlim)
+            # auto=None: keep autoscaling on, so the first steps rescale the trace again
+            self._ax_trace.set_xlim(run.first_draw - 0.5, run.first_draw + 10, auto=None)
+            self._ax_trace.set_ylim(self.xlim, auto=None)
         self._useq.update(run.u[0], run.accepted[0], run.accept_prob[0], first=run.first_draw)
         # a free slot at the right: where the next iteration's preview goes
         last = run.first_draw + run.n_draws
