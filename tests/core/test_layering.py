@@ -12,7 +12,7 @@ import sys
 
 import pytest
 
-HEAVY = ("matplotlib", "ipywidgets", "ipympl", "traitlets", "IPython")
+HEAVY = ("matplotlib", "ipywidgets", "ipympl", "traitlets", "IPython", "jax", "jaxlib", "torch")
 
 _STAGES = {
     "core": "import phaseglass.core",
@@ -49,6 +49,12 @@ def test_top_level_package_does_not_import_ipywidgets(loaded):
 
 def test_using_the_core_stays_light(loaded):
     assert not loaded["used"] & {"matplotlib", "ipywidgets"}
+
+
+def test_autodiff_libraries_load_only_when_asked(loaded):
+    # Target.from_jax imports JAX when called; nothing else in phaseglass may
+    for stage in ("core", "top", "used"):
+        assert not loaded[stage] & {"jax", "jaxlib", "torch"}, stage
 
 
 @pytest.mark.parametrize("name", ["TrajectoryView", "ChainView", "DivergenceView"])

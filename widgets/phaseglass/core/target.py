@@ -32,6 +32,21 @@ def _pair(out):
     return v, g
 
 
+def _infer_dim(dim, names, bounds):
+    """``dim`` as given, else the length of ``names`` or ``bounds``, else a clear error."""
+    if dim is None:
+        if names is not None:
+            dim = len(names)
+        elif bounds is not None:
+            dim = len(bounds)
+        else:
+            raise ValueError(
+                "`dim` could not be inferred: pass dim=<number of parameters> "
+                "(or names=[...] or bounds=[...] with one entry per parameter)"
+            )
+    return check_int("dim", dim, minimum=1)
+
+
 def _sigmoid(z):
     return 0.5 * (1.0 + np.tanh(0.5 * z))
 
@@ -169,10 +184,12 @@ class Target:
 
     Parameters
     ----------
-    log_density : callable
+    log_density : callable, optional
         ``log_density(x)`` with ``x`` shaped (dim,) returns a float; with
         ``vectorized=True`` it takes (n, dim) and returns (n,). May return -inf
-        outside the support.
+        outside the support. May be left out when ``value_and_grad`` is given:
+        the value part of that function is used (each such evaluation then also
+        computes, and counts, a gradient).
     grad : callable, optional
         Gradient of ``log_density`` with the same calling convention, returning
         (dim,) or (n, dim). Without it (and without ``value_and_grad``) central
@@ -190,7 +207,13 @@ class Target:
         Parameter names used in summaries and plots.
     value_and_grad : callable, optional
         A joint function returning ``(log_density, grad)``; used in place of
-        two calls when given (many models share work between the two).
+        two calls when given (many models share work between the two). Enough
+        on its own: ``Target(value_and_grad=f, dim=3)``.
+
+    See Also
+    --------
+    Target.from_jax : write only the log-density with ``jax.numpy``; the gradient
+        comes from JAX.
 
     Notes
     -----
@@ -207,22 +230,17 @@ class Target:
     (-2.5, array([-1., -2.]))
     """
 
-    def __init__(self, log_density, grad=None, *, dim=None, vectorized=False, bounds=None,
+    def __init__(self, log_density=None, grad=None, *, dim=None, vectorized=False, bounds=None,
                  names=None, value_and_grad=None):
-        self._user_logp = check_callable("log_density", log_density)
+        if log_density is None and value_and_grad is None:
+            raise TypeError("`log_density` is required (or `value_and_grad`, a joint function "
+                            "returning (log_density, grad), in its place)")
+        # None: the value comes from value_and_grad (see _call_logp)
+        self._user_logp = None if log_density is None else check_callable("log_density", log_density)
         self._user_grad = None if grad is None else check_callable("grad", grad)
         self._user_vg = None if value_and_grad is None else check_callable("value_and_grad", value_and_grad)
-        if dim is None:
-            if names is not None:
-                dim = len(names)
-            elif bounds is not None:
-                dim = len(bounds)
-            else:
-                raise ValueError(
-                    "`dim` could not be inferred: pass dim=<number of parameters> "
-                    "(or names=[...] or bounds=[...] with one entry per parameter)"
-                )
-        self.dim = check_int("dim", dim, minimum=1)
+        self.dim = _infer_dim(dim, names, bounds)
+        self.gradient_source = None  # set by the from_* constructors ("JAX")
         self.vectorized = bool(vectorized)
         if names is None:
             names = [f"x[{i}]" for i in range(self.dim)]
@@ -240,6 +258,73 @@ class Target:
         if not self.has_gradient:
             warnings.warn(_FD_WARNING, UserWarning, stacklevel=2)
         self.reset_counts()
+
+    # ----------------------------------------------------------- autodiff
+    @classmethod
+    def from_jax(cls, log_density, *, dim=None, bounds=None, names=None):
+        """A Target whose gradient comes from JAX: write only the log-density.
+
+        Parameters
+        ----------
+        log_density : callable
+            Written with ``jax.numpy`` for ONE point ``x`` of shape (dim,), returning
+            one real number (the log-density up to a constant). phaseglass
+            differentiates it with ``jax.value_and_grad``, vectorises it over chains
+            with ``jax.vmap`` and compiles it with ``jax.jit``.
+        dim : int, optional
+            Number of parameters; inferred from ``names`` or ``bounds`` when omitted.
+        bounds, names
+            As for ``Target``: bounds are on your scale, and the log-Jacobian of the
+            unconstraining transform is added for you.
+
+        Returns
+        -------
+        Target
+            Vectorized, evaluations counted per point in ``n_density`` and
+            ``n_grad``; ``check_gradient`` compares JAX's gradient with finite
+            differences like any supplied gradient.
+
+        Raises
+        ------
+        ImportError
+            JAX is not installed (``pip install "phaseglass[jax]"``).
+        ValueError
+            ``log_density`` cannot be traced by JAX on one point of shape (dim,) or
+            does not return one real number (checked here, before any sampling).
+
+        Notes
+        -----
+        Everything is computed in float64, whatever your JAX settings: each call
+        turns 64-bit floats on for its own duration and its own thread
+        (``jax.enable_x64(True)`` as a context manager) and your own
+        ``jax_enable_x64`` setting is untouched afterwards. Keep data your function
+        closes over as NumPy float64 arrays: a ``jnp.array`` made while 64-bit
+        floats are off is float32 and stays float32 inside the computation.
+
+        JAX is imported only when this method is called; the rest of phaseglass
+        never needs it. Each new batch size (number of chains, number of points in a
+        check) is compiled once, on first use.
+
+        Examples
+        --------
+        >>> import jax.numpy as jnp, phaseglass as pg              # doctest: +SKIP
+        >>> def log_density(x):                                   # doctest: +SKIP
+        ...     return -0.5 * (x[0] ** 2 / 4.0 + (x[1] - 0.5 * x[0] ** 2) ** 2)
+        >>> target = pg.Target.from_jax(log_density, dim=2)       # doctest: +SKIP
+        >>> run = pg.sample(target, pg.HMC(0.2, 10), n_draws=500, warmup=300)  # doctest: +SKIP
+        """
+        from .autodiff import jax_functions  # imports JAX: only here
+
+        check_callable("log_density", log_density)
+        dim = _infer_dim(dim, names, bounds)
+        logp, vg = jax_functions(log_density, dim)
+        target = cls(logp, dim=dim, vectorized=True, bounds=bounds, names=names, value_and_grad=vg)
+        # The batch dimension is ours (vmap of a one-point function), so the check that a
+        # function declared vectorized really treats rows as points cannot fail: skip it and
+        # its extra compilation for a batch of one.
+        target._checked.update({"log_density", "value_and_grad"})
+        target.gradient_source = "JAX"
+        return target
 
     # ------------------------------------------------------------------ counts
     def reset_counts(self):
@@ -330,6 +415,8 @@ class Target:
 
     def _call_logp(self, x):
         """User log-density on user-scale points (n, dim) -> (n,)."""
+        if self._user_logp is None:  # only a joint function: it computes the gradient too
+            return self._call_vg(x)[0]
         n = x.shape[0]
         self.n_density += n
         if self.vectorized:
@@ -505,6 +592,9 @@ class Target:
         )
 
     def __repr__(self):
-        grad = "analytic gradient" if self.has_gradient else "finite-difference gradient"
+        if self.gradient_source is not None:
+            grad = f"gradient from {self.gradient_source}"
+        else:
+            grad = "analytic gradient" if self.has_gradient else "finite-difference gradient"
         b = ", bounded" if self.bounded else ""
         return f"Target(dim={self.dim}, {grad}{', vectorized' if self.vectorized else ''}{b})"
