@@ -129,6 +129,23 @@ def test_controls_keep_css_classes_and_help(knobs):
     assert k.slider.disabled and k.box.disabled
 
 
+def test_frames_sent_before_the_front_end_is_ready_are_pngs():
+    # ipympl 0.10's send_binary, while it still syncs `_data_url`, sends the raw RGBA buffer
+    # as the frame: the browser gets a "broken" image and the canvas stays 0x0. Every frame
+    # we send must be a PNG (its 8-byte signature, PNG specification section 5.2).
+    fig = make_canvas_figure((4.0, 3.0))
+    fig.add_subplot().plot([0, 1], [1, 0])
+    sent = []
+    fig.canvas.send = lambda content, buffers=None: sent.append((content, buffers))
+    assert fig.canvas.syncing_data_url  # no front end yet
+    fig.canvas.draw()  # a draw before display, as a background thread may do
+    frames = [b[0] for c, b in sent if b]
+    assert frames, "the draw sent no frame"
+    for frame in frames:
+        assert bytes(frame[:8]) == b"\x89PNG\r\n\x1a\n"
+        assert Image.open(io.BytesIO(bytes(frame))).size == (400, 300)
+
+
 def test_data_url_before_the_front_end_is_a_loadable_png():
     # ipympl stores the image it would send as `_data_url` until the front end says it is
     # initialised; a bare base64 string there is loaded as a relative URL and breaks the canvas

@@ -55,32 +55,37 @@ _canvas_class = None
 
 
 def _canvas_type():
-    """ipympl's Canvas with a valid ``_data_url`` before the front end is ready.
+    """ipympl's Canvas, fixed to send a real image before its front end is ready.
 
-    ipympl (0.9 -- 0.10) keeps syncing ``_data_url`` until the front end says it is
-    initialised, and a draw in that window (a canvas drawn before display, or by a
-    background thread while the cell still runs) stores a bare base64 string
-    there. The front end loads it as a relative URL, the image is "broken", and the
-    first resize fails with "Error setting state: Failed to execute 'drawImage'":
-    the canvas stays 0x0 (ipympl issue #472). A canvas shown through its own
-    ``_repr_mimebundle_`` gets a proper ``data:`` URL; one inside a Box never does.
-    Completing the URL where it is set fixes every view at its root.
+    Until the front end says it is initialised, ipympl (0.9 -- 0.10) also keeps the
+    latest frame as ``_data_url``; its ``send_binary`` then rebinds the frame it
+    was given to the raw RGBA buffer (to encode that URL) and sends those raw bytes
+    as the "PNG" frame, as a bare base64 string without its ``data:`` prefix besides.
+    A canvas drawn in that window -- before display, or by a background thread
+    while its cell still runs (the front end's "initialized" message waits until
+    the cell ends) -- gets a "broken" image in the browser, the next resize fails
+    with "Error setting state: Failed to execute 'drawImage'" and the canvas stays
+    0x0 (ipympl issue #472). Views that only ask the front end to draw never hit it;
+    TuningMap's worker did. Sending the PNG frame as given fixes every view at its root.
     """
     global _canvas_class
     if _canvas_class is None:
         import io
+        from base64 import b64encode
 
         from ipympl.backend_nbagg import Canvas
         from PIL import Image
 
+        def png(rgba):
+            with io.BytesIO() as out:
+                # zlib level 1: a live view sends a frame on every knob move, and level 1
+                # encodes the (mostly empty) diff frame a third faster than the default
+                Image.fromarray(rgba).save(out, format="png", compress_level=1)
+                return out.getvalue()
+
         class ColumnCanvas(Canvas):
             def get_diff_image(self):
-                """matplotlib's diff frame, PNG-encoded with fast compression.
-
-                A live view sends a frame on every knob move; zlib level 1 encodes the
-                (mostly empty) diff image about a third faster than the default level 6
-                for a few percent more bytes over a local websocket.
-                """
+                """matplotlib's diff frame (full on size change or transparency), fast PNG."""
                 if not self._png_is_old:
                     return None
                 pixels = np.asarray(self.get_renderer().buffer_rgba())
@@ -95,17 +100,15 @@ def _canvas_type():
                 self._last_buff = buff.copy()
                 self._force_full = False
                 self._png_is_old = False
-                with io.BytesIO() as png:
-                    Image.fromarray(output.view(np.uint8).reshape((*output.shape, 4))).save(
-                        png, format="png", compress_level=1)
-                    return png.getvalue()
+                return png(output.view(np.uint8).reshape((*output.shape, 4)))
 
-            @traitlets.validate("_data_url")
-            def _complete_data_url(self, proposal):
-                url = proposal["value"]
-                if isinstance(url, str) and url and not url.startswith("data:"):
-                    return "data:image/png;base64," + url
-                return url
+            def send_binary(self, data):
+                """Send the PNG frame ``data``; before the front end is ready, keep a data URL too."""
+                if self.syncing_data_url:
+                    rgba = self._last_buff.view(np.uint8).reshape((*self._last_buff.shape, 4))
+                    self._data_url = ("data:image/png;base64,"
+                                      + b64encode(png(rgba)).decode("ascii"))
+                self.send({"data": '{"type": "binary"}'}, buffers=[data])
 
         _canvas_class = ColumnCanvas
     return _canvas_class
