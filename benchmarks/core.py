@@ -18,6 +18,10 @@ Three questions, each against a goal:
    calling the same value-and-gradient function the same number of times. Goal <= 1.1.
 3. Batching: per-chain cost of 1000 chains in one batch against a loop of
    single-chain runs, d = 10. Goal >= 50 times cheaper per chain.
+4. Gradients from JAX (``Target.from_jax``, needs the ``jax`` extra): cost of one
+   value-and-gradient call for 4 chains through the Target, against the same model's
+   hand-written NumPy gradient and against central finite differences (no goal; the
+   one-time compilation is reported apart).
 
 Each time is the best of several repeats (the minimum is the least noisy estimate of
 the cost on a shared machine). Ratios are given for wall time and, in parentheses,
@@ -149,6 +153,93 @@ def batching_row(n_batch, n_single, n_draws, repeats):
             "speedup": t_single / t_batch, "n_batch": n_batch, "n_draws": n_draws}
 
 
+def jax_models():
+    """(name, jax log-density for one point, numpy Target, finite-difference Target, points (4, dim))."""
+    import warnings
+
+    import jax.numpy as jnp
+
+    rng = np.random.default_rng(7)
+    models = []
+    lr = pg.demos.late_returns()
+    X, late, inv_var = lr.features, lr.late, 1.0 / 2.5**2  # the demo's data and prior
+
+    def lr_jax(b):
+        eta = X @ b
+        return jnp.sum(late * eta - jnp.logaddexp(0.0, eta)) - 0.5 * inv_var * jnp.sum(b * b)
+
+    models.append(("late_returns() 2000x20", lr_jax, lr, lr.true_coef + 0.05 * rng.standard_normal((4, 20))))
+    for d in (10, 100):
+        g = pg.demos.correlated_gaussian(dim=d)
+        prec = np.linalg.inv(g.cov)
+
+        def g_jax(x, prec=prec):
+            return -0.5 * x @ prec @ x
+
+        models.append((f"correlated_gaussian(dim={d})", g_jax, g, rng.standard_normal((4, d))))
+    out = []
+    for name, fn, numpy_target, x in models:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")  # the finite-difference fallback warns, on purpose here
+            fd = pg.Target(numpy_target.log_density, dim=numpy_target.dim, vectorized=True)
+        out.append((name, fn, numpy_target, fd, x))
+    return out
+
+
+def autodiff_rows(n_calls, repeats):
+    """Cost of one value-and-gradient call for 4 chains: JAX, hand-written NumPy, finite differences."""
+    rows = []
+    for name, fn, numpy_target, fd_target, x in jax_models():
+        t0 = time.perf_counter()
+        jax_target = pg.Target.from_jax(fn, dim=numpy_target.dim)
+        jax_target.value_and_grad(x)  # traces and compiles for a batch of 4
+        compile_s = time.perf_counter() - t0
+        g_jax = jax_target.grad(x)
+        g_np = numpy_target.grad(x)
+        agree = float(np.max(np.abs(g_jax - g_np)) / np.max(np.abs(g_np)))
+        per_call = {}
+        # interleave the three so that a burst of load elsewhere hits them alike
+        results = {"jax": [], "numpy": [], "fd": []}
+        for _ in range(repeats):
+            for key, t in (("jax", jax_target), ("numpy", numpy_target), ("fd", fd_target)):
+                calls = max(n_calls // (10 if key == "fd" else 1), 3)
+                results[key].append(best_of(lambda t=t, calls=calls: [t.value_and_grad(x) for _ in range(calls)], 1)
+                                    / calls)
+        for key, ts in results.items():
+            per_call[key] = Timing(min(t.wall for t in ts), min(t.cpu for t in ts))
+        rows.append({"name": name, "dim": numpy_target.dim, "compile_s": compile_s, "agree": agree,
+                     **{f"{k}_us": v * 1e6 for k, v in per_call.items()},
+                     "jax_over_numpy": per_call["jax"] / per_call["numpy"],
+                     "fd_over_jax": per_call["fd"] / per_call["jax"],
+                     "fd_over_numpy": per_call["fd"] / per_call["numpy"]})
+    return rows
+
+
+def print_autodiff(n_calls, repeats):
+    print("## Gradients from JAX, 4 chains per call (Target.from_jax)\n")
+    try:
+        import jax
+    except ImportError:
+        print("Skipped: JAX is not installed (pip install \"phaseglass[jax]\").")
+        return
+    print(f"JAX {jax.__version__}, float64, CPU. One `target.value_and_grad(x)` with x of shape "
+          f"(4, dim), through the Target (counting, checks) as the samplers call it; the "
+          f"hand-written NumPy gradient is the demo's own, finite differences cost 2*dim "
+          f"log-density evaluations per point (one batched call). Wall time, CPU time in "
+          f"parentheses.\n")
+    rows = autodiff_rows(n_calls, repeats)
+    print("| model | JAX (µs) | NumPy, hand-written (µs) | finite differences (µs) "
+          "| JAX / NumPy | finite differences / JAX | finite differences / NumPy "
+          "| JAX first call, tracing + compiling (s) | max gradient difference, JAX vs NumPy (relative) |")
+    print("|---|---|---|---|---|---|---|---|---|")
+    for r in rows:
+        print(f"| {r['name']} | {r['jax_us'].fmt('.0f')} | {r['numpy_us'].fmt('.0f')} | "
+              f"{r['fd_us'].fmt('.0f')} | {r['jax_over_numpy'].fmt('.2f')} | "
+              f"{r['fd_over_jax'].fmt('.1f')} | {r['fd_over_numpy'].fmt('.1f')} | "
+              f"{r['compile_s']:.2f} | {r['agree']:.1e} |")
+    print()
+
+
 def machine():
     lines = [f"- machine: {platform.machine()}, {os.cpu_count()} logical CPUs "
              f"(nproc {len(os.sched_getaffinity(0)) if hasattr(os, 'sched_getaffinity') else '?'}), "
@@ -172,6 +263,7 @@ def machine():
 def main():
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--quick", action="store_true", help="small sizes, one repeat (smoke run)")
+    parser.add_argument("--jax-only", action="store_true", help="only question 4, gradients from JAX")
     args = parser.parse_args()
     repeats = 1 if args.quick else 5
     scale = 0.1 if args.quick else 1.0
@@ -181,6 +273,9 @@ def main():
         print("(--quick: a smoke run with tiny sizes and one repeat; the numbers mean little)\n")
     print(machine())
     print()
+    if args.jax_only:
+        print_autodiff(n_calls=30 if args.quick else 300, repeats=repeats)
+        return
 
     cases = []
     for d, draws in ((10, 2000), (100, 1000), (1000, 200)):
@@ -222,6 +317,9 @@ def main():
     print(f"| {b['per_chain_single_ms'].fmt('.2f')} | {b['per_chain_batch_ms'].fmt('.3f')} | "
           f"{b['speedup'].fmt('.0f')} | >= 50 |")
     print(f"\n({b['n_draws']} draws per chain; goal {'met' if b['speedup'].wall >= 50 else 'MISSED'}.)")
+    print()
+
+    print_autodiff(n_calls=30 if args.quick else 300, repeats=repeats)
 
 
 if __name__ == "__main__":
