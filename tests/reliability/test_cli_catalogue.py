@@ -185,24 +185,6 @@ def test_demo_keeps_the_users_notebooks_byte_identical(work, capsys):
     assert not [p for p in (work / "tour").iterdir() if p.name.startswith(".")]  # no temp copies
 
 
-def test_demo_on_a_busy_port_says_which_port_it_uses(work, monkeypatch, capsys):
-    import socket
-
-    monkeypatch.setattr(launch, "_lab_available", lambda: True)
-    seen = {}
-    monkeypatch.setattr(launch, "serve", lambda cmd, **kw: seen.setdefault("cmd", cmd) and 0)
-    with socket.socket() as busy:
-        busy.bind(("127.0.0.1", 0))
-        busy.listen()
-        taken = busy.getsockname()[1]
-        assert cli.main(["demo", "--dir", "tour", "--port", str(taken), "--no-browser"]) == 0
-    out = capsys.readouterr().out
-    port = int(next(a for a in seen["cmd"] if a.startswith("--port=")).split("=")[1])
-    assert port != taken
-    assert f"port {taken} is in use, so JupyterLab will use port {port} instead." in out
-    assert f"http://localhost:{port}/lab" in out
-
-
 def test_report_with_replace_touches_only_report_files(work, capsys):
     before = snapshot(work / "mine")
     assert cli.main(["report", *FAST, "--out", "mine", "--replace"]) == 0
