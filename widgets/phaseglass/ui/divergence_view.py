@@ -303,7 +303,12 @@ class DivergenceView(View):
         self._ax.set_axis_off()
         self._note = self._ax.text(0.5, 0.55, "no divergence to replay", transform=self._ax.transAxes,
                                    ha="center", va="center", fontsize=10, color="#444444")
-        self._ax_err.set_visible(False)
+        # the bottom row says what will appear there rather than stay a blank space
+        self._ax_err.set_axis_off()
+        self._err_note = self._ax_err.text(
+            0.5, 0.5, "the energy error of the replayed divergence, step by step, appears here",
+            transform=self._ax_err.transAxes, ha="center", va="center", fontsize=9,
+            color="#777777")
         fig.canvas.mpl_connect("pick_event", self._on_pick)
 
     def _pair_legend(self):
@@ -319,7 +324,8 @@ class DivergenceView(View):
         self._ax.xaxis.set_major_locator(MaxNLocator(6))
         self._ax.yaxis.set_major_locator(MaxNLocator(6))
         self._note.set_visible(False)
-        self._ax_err.set_visible(True)
+        self._err_note.set_visible(False)
+        self._ax_err.set_axis_on()
         xlim, ylim = self._trajectory_limits(tr)
         grid = self._grid(tr, xlim, ylim)
         if grid is not None:
