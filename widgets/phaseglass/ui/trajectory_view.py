@@ -18,6 +18,35 @@ from ._shared import GridCache, pilot, step_size_range
 
 __all__ = ["TrajectoryView"]
 
+
+def run_parts(run, *, needs_step_size=True):
+    """(target, kernel) of a Run, with errors naming ``run`` when a view cannot start from it."""
+    target = getattr(run, "target", None)
+    kernel = getattr(run, "kernel", None)
+    if target is None or getattr(run, "unconstrained", None) is None:
+        raise ValueError("`run` must be a phaseglass Run with its target (from pg.sample or a "
+                         f"view's .run), got {type(run).__name__} without one")
+    if kernel is None:
+        raise ValueError("`run` has no kernel (run.kernel is None): its step size and mass "
+                         "matrix are unknown")
+    if needs_step_size and getattr(kernel, "step_size", None) is None:
+        raise ValueError(f"`run` used a {type(kernel).__name__}, which has no leapfrog step size")
+    return target, kernel
+
+
+def mass_from_metric(metric):
+    """(mass_scale list or None, note) of a Metric: the diagonal mass, 1 / inverse mass.
+
+    A dense metric keeps only its diagonal; the note says so (for the status line).
+    """
+    if metric is None or metric.kind == "identity":
+        return None, ""
+    inv = np.asarray(metric.inverse_mass, dtype=float)
+    if metric.kind == "dense":
+        return [float(1.0 / v) for v in np.diag(inv)], (
+            "the run's mass matrix is dense: this view uses its diagonal only")
+    return [float(1.0 / v) for v in inv], ""
+
 _DRAG_RADIUS_PX = 12  # a press this close to the start point drags the momentum
 _MASS_RANGE = (0.01, 100.0)
 
@@ -238,8 +267,9 @@ class TrajectoryView(View):
         self._ax, self._ax_err = fig.subplots(1, 2, width_ratios=[1.0, 1.0])
         self._density = draw_log_density(self._ax, self._grid(), names=self._axis_names())
         tr = self._integrate()
+        # the arrow shows the direction of motion M^-1 p (the velocity), as the drag sets it
         self._path = draw_trajectory(self._ax, tr, coords=self.coords, accepted=None,
-                                     names=self.target.names)
+                                     names=self.target.names, metric=self._metric())
         self._path.autoscale = False
         self._energy = draw_energy_error(self._ax_err, tr)
         # The readout under the figure gives the final energy error and acceptance
@@ -339,6 +369,7 @@ class TrajectoryView(View):
         self._ax.set_xlim(self.xlim)
         self._ax.set_ylim(self.ylim)
         self._path.coords = tuple(self.coords)
+        self._path.metric = self._metric()
         self._path.update(tr, self.accepted)
         self._energy.update(tr)
         names = self._axis_names()
@@ -396,16 +427,87 @@ class TrajectoryView(View):
             f"<span style='font-family:monospace'>start moved to ({x:.3g}, {y:.3g})</span>")
 
     def set_momentum_towards(self, x, y):
-        """Set the shown momentum components so the arrow points at (x, y) (what a drag does)."""
+        """Set the shown momentum components so the arrow points at (x, y) (what a drag does).
+
+        The arrow shows the initial velocity ``M^-1 p`` (the direction of motion), so the
+        momentum set is ``p = M v`` with ``v`` the arrow from the start to (x, y).
+        """
         p = self.momentum.copy()
         z = self.start[list(self.coords)]
         scale = self._path.momentum_scale
-        p[self.coords[0]] = (float(x) - z[0]) / scale
-        p[self.coords[1]] = (float(y) - z[1]) / scale
+        i, j = self.coords
+        p[i] = (float(x) - z[0]) / scale * self.mass_scale[i]
+        p[j] = (float(y) - z[1]) / scale * self.mass_scale[j]
         self.momentum = p
         self._click_readout.value = (
             f"<span style='font-family:monospace'>initial momentum "
             f"({p[self.coords[0]]:.3g}, {p[self.coords[1]]:.3g})</span>")
+
+    # ------------------------------------------------------------- from a run
+    @classmethod
+    def from_run(cls, run, *, draw=None, divergence=None, **kwargs):
+        """Open on a Run: its target, tuned step size, steps, mass matrix and a start of its own.
+
+        Parameters
+        ----------
+        run : Run
+            From ``pg.sample`` (or a view's ``.run``); needs its target and an HMC-family kernel.
+        draw : (int, int), optional
+            ``(chain, index)`` of the draw to start from: ``run.unconstrained[chain, index]``
+            (sampler's scale).
+        divergence : int, optional
+            Index into ``run.divergences``: start where that divergent transition
+            started, with its initial momentum.
+        **kwargs
+            Any other argument of TrajectoryView; they win over the run's values.
+
+        Default start: the last draw of chain 0. The mass matrix is ``1 / inverse_mass``
+        of the run's diagonal metric (a dense metric: its diagonal, said in the status line).
+        """
+        target, kernel = run_parts(run)
+        if draw is not None and divergence is not None:
+            raise ValueError("pass `draw` or `divergence`, not both")
+        if "start" in kwargs and (draw is not None or divergence is not None):
+            raise ValueError("pass `start` or `draw`/`divergence`, not both")
+        momentum, replay = None, ""
+        x = run.unconstrained
+        if divergence is not None:
+            n = len(run.divergences)
+            if n == 0:
+                raise ValueError(f"`divergence` = {divergence!r}, but the run has no divergent "
+                                 "transitions")
+            if not isinstance(divergence, (int, np.integer)) or not -n <= divergence < n:
+                raise ValueError(f"`divergence` must be an integer in range({n}) (the run keeps "
+                                 f"{n} divergent transitions), got {divergence!r}")
+            traj = run.divergences[divergence][2]
+            start = np.asarray(traj.positions[0], dtype=float)
+            momentum = np.asarray(traj.momenta[0], dtype=float)
+            used = np.ravel(np.asarray(traj.step_size, dtype=float))
+            if used.size and abs(float(used[0]) - float(kernel.step_size)) > 1e-12 * kernel.step_size:
+                replay = (f"this divergent transition used step size {number(float(used[0]))} "
+                          f"(jittered); set step_size={float(used[0])!r} to replay it exactly")
+        else:
+            chain, index = (0, -1) if draw is None else _draw_index(draw)
+            n_chains, n_draws = x.shape[0], x.shape[1]
+            if not -n_chains <= chain < n_chains:
+                raise ValueError(f"`draw` chain must be in range({n_chains}), got {chain}")
+            if not -n_draws <= index < n_draws:
+                raise ValueError(f"`draw` index must be in range({n_draws}), got {index}")
+            start = x[chain, index]
+        mass, note = mass_from_metric(kernel.metric)
+        args = dict(start=np.array(start, dtype=float), step_size=float(kernel.step_size),
+                    mass_scale=mass)
+        if getattr(kernel, "n_steps", None) is not None:
+            args["n_steps"] = int(kernel.n_steps)
+        if getattr(kernel, "persistence", None) is not None:
+            args["persistence"] = float(kernel.persistence)
+        args.update(kwargs)
+        view = cls(target, **args)
+        if momentum is not None and momentum.shape == (target.dim,) and "momentum" not in kwargs:
+            view.momentum = momentum
+        if note or replay:
+            view.status = "; ".join(t for t in (note, replay) if t)
+        return view
 
     # ------------------------------------------------------------- settings
     @classmethod
@@ -423,3 +525,11 @@ class TrajectoryView(View):
             return super().apply_settings(settings)
         finally:
             self._applying = False
+
+
+def _draw_index(draw):
+    try:
+        chain, index = draw
+        return int(chain), int(index)
+    except (TypeError, ValueError):
+        raise ValueError(f"`draw` must be a pair (chain, index), got {draw!r}") from None

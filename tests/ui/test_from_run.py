@@ -1,0 +1,106 @@
+"""Views opened from a Run: the run's target, tuned step size, mass matrix and a start of its own."""
+
+import numpy as np
+import pytest
+
+import phaseglass as pg
+
+
+@pytest.fixture(scope="module")
+def badly_scaled():
+    """Independent Gaussian with standard deviations 10 and 0.1: the identity metric fits neither."""
+    return pg.demos.correlated_gaussian(correlation=0.0, scales=[10.0, 0.1])
+
+
+@pytest.fixture(scope="module")
+def tuned_run(badly_scaled):
+    """A warmed-up run: tuned step size and a diagonal metric close to the variances (100, 0.01)."""
+    return pg.sample(badly_scaled, pg.HMC(0.05, 10), n_draws=120, n_chains=2, warmup=300, seed=1)
+
+
+@pytest.fixture(scope="module")
+def divergent_run(badly_scaled):
+    """Identity metric and a step size far past the narrow coordinate's stability limit (2 * 0.1)."""
+    return pg.sample(badly_scaled, pg.HMC(0.5, 10, jitter=0.0), n_draws=40, n_chains=2, seed=3)
+
+
+# ---------------------------------------------------------------- TrajectoryView
+
+def test_trajectory_view_takes_the_runs_step_size_mass_and_chosen_draw(tuned_run):
+    inv = tuned_run.kernel.metric.inverse_mass
+    assert tuned_run.kernel.metric.kind == "diagonal" and inv[0] / inv[1] > 100  # it did adapt
+    view = pg.TrajectoryView.from_run(tuned_run, draw=(1, 5))
+    assert view.target is tuned_run.target
+    assert view.step_size == tuned_run.kernel.step_size
+    assert view.n_steps == tuned_run.kernel.n_steps
+    assert view.mass_scale == pytest.approx(list(1.0 / inv), rel=1e-12)
+    assert np.array_equal(view.start, tuned_run.unconstrained[1, 5])
+    # the trajectory drawn is the run's leapfrog with the run's metric
+    ref = pg.leapfrog(tuned_run.target, view.start, view.momentum, view.step_size, view.n_steps,
+                      metric=tuned_run.kernel.metric)
+    assert np.allclose(view.trajectory.positions, ref.positions)
+
+
+def test_trajectory_view_defaults_to_the_last_draw_of_chain_0(tuned_run):
+    view = pg.TrajectoryView.from_run(tuned_run)
+    assert np.array_equal(view.start, tuned_run.unconstrained[0, -1])
+
+
+def test_trajectory_view_keyword_arguments_win_over_the_run(tuned_run):
+    view = pg.TrajectoryView.from_run(tuned_run, step_size=0.123, n_steps=7)
+    assert (view.step_size, view.n_steps) == (0.123, 7)
+
+
+def test_trajectory_view_starts_at_a_divergent_transition(divergent_run):
+    assert len(divergent_run.divergences) >= 2
+    k = 1
+    chain, draw, traj = divergent_run.divergences[k]
+    view = pg.TrajectoryView.from_run(divergent_run, divergence=k)
+    assert np.array_equal(view.start, traj.positions[0])
+    assert np.array_equal(view.momentum, traj.momenta[0])
+    assert view.step_size == divergent_run.kernel.step_size
+    assert view.trajectory.divergent  # same start, momentum and step: it diverges again
+
+
+def test_dense_metric_uses_its_diagonal_and_says_so(badly_scaled, tuned_run):
+    import copy
+    run = copy.copy(tuned_run)
+    run.kernel = pg.HMC(0.3, 5, metric=pg.Metric(np.array([[4.0, 0.5], [0.5, 0.25]])))
+    view = pg.TrajectoryView.from_run(run)
+    assert view.mass_scale == pytest.approx([0.25, 4.0])
+    assert "dense" in view.status and "diagonal" in view.status
+
+
+def test_trajectory_view_from_run_errors_name_the_argument(tuned_run, divergent_run):
+    with pytest.raises(ValueError, match="`run`"):
+        pg.TrajectoryView.from_run(object())
+    with pytest.raises(ValueError, match="`draw` index"):
+        pg.TrajectoryView.from_run(tuned_run, draw=(0, tuned_run.n_draws))
+    with pytest.raises(ValueError, match="`draw` chain"):
+        pg.TrajectoryView.from_run(tuned_run, draw=(2, 0))
+    with pytest.raises(ValueError, match="`draw`"):
+        pg.TrajectoryView.from_run(tuned_run, draw=3)
+    assert tuned_run.divergences == []
+    with pytest.raises(ValueError, match="`divergence`.*no divergent"):
+        pg.TrajectoryView.from_run(tuned_run, divergence=0)
+    with pytest.raises(ValueError, match="`divergence` must be"):
+        pg.TrajectoryView.from_run(divergent_run, divergence=len(divergent_run.divergences))
+
+
+def test_arrow_shows_the_velocity_and_a_drag_points_it_at_the_mouse(tuned_run, fire):
+    view = pg.TrajectoryView.from_run(tuned_run)
+    m = np.asarray(view.mass_scale)
+    path = view._path
+    tail, tip = path.momentum_ends
+    shown = view.coords
+    v = view.momentum[list(shown)] / m[list(shown)]  # M^-1 p, not p (masses 0.01 and 100 here)
+    assert np.allclose(tip - tail, v * path.momentum_scale)
+    # drag to a point inside the view: the arrow's tip lands on it
+    x0, y0 = view.start[list(shown)]
+    (xa, xb), (ya, yb) = view.xlim, view.ylim
+    x, y = x0 + 0.2 * (xb - xa), y0 - 0.15 * (yb - ya)
+    view.set_momentum_towards(x, y)
+    assert np.allclose(view._path.momentum_ends[1], [x, y])
+    # and the trajectory starts moving that way
+    step = view.trajectory.positions[1, list(shown)] - view.trajectory.positions[0, list(shown)]
+    assert np.dot(step, [x - x0, y - y0]) > 0
