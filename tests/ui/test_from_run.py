@@ -104,3 +104,50 @@ def test_arrow_shows_the_velocity_and_a_drag_points_it_at_the_mouse(tuned_run, f
     # and the trajectory starts moving that way
     step = view.trajectory.positions[1, list(shown)] - view.trajectory.positions[0, list(shown)]
     assert np.dot(step, [x - x0, y - y0]) > 0
+
+
+# ---------------------------------------------------------------- ChainView
+
+def test_chain_view_continues_the_run_with_its_kernel_and_last_draws(tuned_run):
+    import copy
+
+    from phaseglass.ui.chain_view import peek_next_transition
+
+    view = pg.ChainView.from_run(tuned_run, seed=4)
+    k = view.kernel
+    assert view.n_chains == tuned_run.n_chains
+    assert (k.step_size, k.n_steps, k.jitter) == (tuned_run.kernel.step_size,
+                                                  tuned_run.kernel.n_steps, tuned_run.kernel.jitter)
+    assert k.metric is tuned_run.kernel.metric
+    assert np.allclose(view.sampler.state.position, tuned_run.unconstrained[:, -1])
+    # the previewed next transition is exactly the run's own kernel stepping from its last draws
+    ref = pg.Sampler(tuned_run.target, copy.deepcopy(tuned_run.kernel), tuned_run.draws[:, -1],
+                     n_chains=tuned_run.n_chains, seed=4)
+    expect = peek_next_transition(ref)
+    got = view.preview
+    assert np.allclose(got.trajectory.positions, expect.trajectory.positions)
+    assert got.accept_prob == pytest.approx(expect.accept_prob)
+    # and it is not what the identity metric would do from there
+    plain = pg.Sampler(tuned_run.target, pg.HMC(k.step_size, k.n_steps), tuned_run.draws[:, -1],
+                       n_chains=tuned_run.n_chains, seed=4)
+    assert not np.allclose(peek_next_transition(plain).trajectory.positions,
+                           got.trajectory.positions)
+    view.step()
+    assert np.allclose(view.run.unconstrained[0, -1], expect.proposal if expect.accepted
+                       else expect.start)
+
+
+def test_chain_view_from_run_more_chains_reuses_the_last_draws(tuned_run):
+    view = pg.ChainView.from_run(tuned_run, n_chains=3)
+    last = tuned_run.unconstrained[:, -1]
+    assert np.allclose(view.sampler.state.position, last[[0, 1, 0]])
+
+
+def test_chain_view_from_run_errors_name_the_argument(tuned_run):
+    with pytest.raises(ValueError, match="`run`"):
+        pg.ChainView.from_run(None)
+    import copy
+    run = copy.copy(tuned_run)
+    run.kernel = None
+    with pytest.raises(ValueError, match="`run` has no kernel"):
+        pg.ChainView.from_run(run)

@@ -228,8 +228,10 @@ class ChainView(View):
         # a kernel passed in (e.g. tuned by pg.sample) keeps its mass matrix for every kernel built here
         self._metric = None
         self._given_step = {}  # a passed (tuned) kernel's own step centres its slider range
+        self._given_extras = {}  # ... and its jitter / divergence threshold are kept
         if kernel is not None:
             self._metric = kernel.metric
+            self._given_extras = _extras_of(kernel)
             kernel_name, uniform, knobs = _knobs_of(kernel)
             self._given_step[kernel_name] = knobs["step_size"]
             step_size = knobs.get("step_size", step_size)
@@ -278,11 +280,12 @@ class ChainView(View):
     def _make_kernel(self):
         uniform = DriftingUniform(self.drift) if self.uniform == "drifting" else FreshUniform()
         metric = self._metric
+        extras = self._given_extras.get(self.kernel_name, {})
         if self.kernel_name == "hmc":
-            return HMC(self.step_size, self.n_steps, uniform=uniform, metric=metric)
+            return HMC(self.step_size, self.n_steps, uniform=uniform, metric=metric, **extras)
         if self.kernel_name == "partial":
             return PartialRefreshHMC(self.step_size, self.n_steps, self.persistence, uniform=uniform,
-                                     metric=metric)
+                                     metric=metric, **extras)
         return RandomWalk(self.step_size, uniform=uniform, metric=metric)
 
     @property
@@ -615,12 +618,42 @@ class ChainView(View):
                                      seed=self.seed, initial=start, **kwargs)
 
     @classmethod
+    def from_run(cls, run, **kwargs):
+        """Continue a Run: its target and kernel (tuned knobs, mass matrix), from its last draws.
+
+        Chains start at ``run.draws[:, -1]`` (user's scale), one per chain of the run
+        (``n_chains=`` other than the run's reuses them in turn). Any other argument of
+        ChainView may be given and wins over the run's values.
+        """
+        from .trajectory_view import run_parts
+
+        target, kernel = run_parts(run, needs_step_size=False)
+        last = np.asarray(run.draws[:, -1], dtype=float)
+        n_chains = int(kwargs.pop("n_chains", last.shape[0]))
+        if n_chains < 1:
+            raise ValueError(f"`n_chains` must be >= 1, got {n_chains}")
+        args = dict(kernel=kwargs.pop("kernel", kernel), n_chains=n_chains,
+                    initial=last[np.arange(n_chains) % last.shape[0]])
+        args.update(kwargs)
+        return cls(target, **args)
+
+    @classmethod
     def from_settings(cls, target, settings):
         """Build a view on ``target`` with saved ``settings`` (from ``view.settings``)."""
         known = cls.checked_settings(settings)
         if "coords" in known:
             known["coords"] = tuple(known["coords"])
         return cls(target, **known)
+
+
+def _extras_of(kernel):
+    """{kernel_name: knobs the view has no control for} of a passed kernel (kept as they are)."""
+    out = {}
+    if isinstance(kernel, PartialRefreshHMC):
+        out["partial"] = {"max_energy_error": kernel.max_energy_error}
+    elif isinstance(kernel, HMC):
+        out["hmc"] = {"jitter": kernel.jitter, "max_energy_error": kernel.max_energy_error}
+    return out
 
 
 def _knobs_of(kernel):
