@@ -151,3 +151,51 @@ def test_chain_view_from_run_errors_name_the_argument(tuned_run):
     run.kernel = None
     with pytest.raises(ValueError, match="`run` has no kernel"):
         pg.ChainView.from_run(run)
+
+
+# ---------------------------------------------------------------- TuningMap
+
+def _one_cell(target, eps, **kwargs):
+    m = pg.TuningMap(target, step_sizes=[eps], n_steps=[5], n_draws=30, n_chains=2, burn_in=5,
+                     autorun=False, **kwargs)
+    m.compute(background=False)
+    return m.values
+
+
+def test_tuning_map_cells_use_the_mass_matrix(badly_scaled, tuned_run):
+    # step 0.6: past the stability limit 2 * 0.1 of the narrow coordinate with the identity
+    # metric, but well inside it once the metric rescales both coordinates to about 1
+    plain = _one_cell(badly_scaled, 0.6)
+    scaled = _one_cell(badly_scaled, 0.6, mass_matrix=tuned_run.kernel.metric)
+    assert plain["divergence rate"][0, 0] > 0.5 and plain["acceptance"][0, 0] < 0.2
+    assert scaled["divergence rate"][0, 0] == 0 and scaled["acceptance"][0, 0] > 0.6
+
+
+def test_make_cell_kernel_passes_the_metric(tuned_run):
+    from phaseglass.ui.tuning_map import make_cell_kernel
+
+    metric = tuned_run.kernel.metric
+    for kind in ("hmc", "partial", "walk"):
+        assert make_cell_kernel(kind, 0.3, 4, 0.5, metric=metric).metric is metric
+    assert make_cell_kernel("hmc", 0.3, 4).metric.kind == "identity"
+
+
+def test_tuning_map_from_run_centres_on_the_tuned_step_size(tuned_run):
+    m = pg.TuningMap.from_run(tuned_run, autorun=False)
+    eps = tuned_run.kernel.step_size
+    assert m.mass_matrix is tuned_run.kernel.metric
+    assert len(m.step_sizes) == 7 and m.step_sizes[3] == pytest.approx(eps, rel=5e-3)
+    assert m.step_sizes[0] == pytest.approx(eps / 8, rel=5e-3)
+    assert m.step_sizes[-1] == pytest.approx(eps * 8, rel=5e-3)
+    assert tuned_run.kernel.n_steps in m.n_steps
+    opened = m.open_cell(0, 3)
+    assert opened.mass_scale == pytest.approx(list(1 / tuned_run.kernel.metric.inverse_mass))
+
+
+def test_tuning_map_mass_matrix_errors_name_the_argument(badly_scaled):
+    with pytest.raises(ValueError, match="`mass_matrix` must be a pg.Metric"):
+        pg.TuningMap(badly_scaled, mass_matrix=[1.0, 2.0], autorun=False)
+    with pytest.raises(ValueError, match="`mass_matrix` has dimension 3"):
+        pg.TuningMap(badly_scaled, mass_matrix=pg.Metric(np.ones(3)), autorun=False)
+    with pytest.raises(ValueError, match="`run`"):
+        pg.TuningMap.from_run("not a run")

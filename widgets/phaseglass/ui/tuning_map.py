@@ -12,6 +12,7 @@ import traitlets
 from ..core._validate import MAX_STEPS
 from ..core.diagnostics import ess
 from ..core.kernels import HMC, PartialRefreshHMC, RandomWalk
+from ..core.metric import Metric
 from ..core.run import CAUTION
 from ..core.sampling import Sampler
 from ..draw import draw_knob_grid
@@ -46,8 +47,8 @@ class _Aborted(Exception):
     """A cell was abandoned because its results are no longer wanted."""
 
 
-def make_cell_kernel(kernel, step_size, n_steps, persistence=None, uniform="fresh"):
-    """The kernel a cell runs: fixed knobs, no jitter, identity metric.
+def make_cell_kernel(kernel, step_size, n_steps, persistence=None, uniform="fresh", metric=None):
+    """The kernel a cell runs: fixed knobs, no jitter, the given mass matrix (identity by default).
 
     Parameters
     ----------
@@ -59,15 +60,17 @@ def make_cell_kernel(kernel, step_size, n_steps, persistence=None, uniform="fres
     persistence : float, optional
         Momentum persistence of ``"partial"``.
     uniform : {"fresh", "drifting"}
+    metric : Metric, optional
+        Mass matrix of every cell (a random walk's proposal covariance); identity when None.
     """
     if kernel == "hmc":
         # no step-size jitter: the cell shows exactly its knobs (HMC's default 10% jitter
         # would blur neighbouring columns)
-        return HMC(step_size, n_steps, jitter=0.0, uniform=uniform)
+        return HMC(step_size, n_steps, jitter=0.0, uniform=uniform, metric=metric)
     if kernel == "partial":
-        return PartialRefreshHMC(step_size, n_steps, persistence, uniform=uniform)
+        return PartialRefreshHMC(step_size, n_steps, persistence, uniform=uniform, metric=metric)
     if kernel == "walk":
-        return RandomWalk(step_size, uniform=uniform)
+        return RandomWalk(step_size, uniform=uniform, metric=metric)
     raise ValueError(f"`kernel` must be one of {KERNELS}, got {kernel!r}")
 
 
@@ -216,6 +219,10 @@ class TuningMap(View):
         Which persistence slice is shown.
     autorun : bool
         Start computing in the background right away and after every change.
+    mass_matrix : Metric, optional
+        Mass matrix of every cell's kernel (e.g. ``run.kernel.metric``; see also
+        ``TuningMap.from_run``). Identity when None, as before; step sizes are then
+        on the unscaled coordinates.
 
     Attributes
     ----------
@@ -267,8 +274,18 @@ class TuningMap(View):
     def __init__(self, target, *, kernel="hmc", step_sizes=None, n_steps=None, persistence=None,
                  n_draws=150, n_chains=4, burn_in=25, seed=0, quantity="acceptance",
                  uniform="fresh", opens="trajectory", persistence_index=0, autorun=True,
-                 metric=None):
+                 metric=None, mass_matrix=None):
         check_target(target)
+        if mass_matrix is not None:
+            if not isinstance(mass_matrix, Metric):
+                raise ValueError("`mass_matrix` must be a pg.Metric (e.g. run.kernel.metric or "
+                                 f"pg.Metric(variances)), got {type(mass_matrix).__name__}")
+            try:
+                mass_matrix.check_dim(target.dim, name="mass_matrix")
+            except ValueError as exc:
+                raise ValueError(str(exc)) from None
+        #: Mass matrix of every cell's kernel (None: identity). Not part of ``settings``.
+        self.mass_matrix = mass_matrix
         if kernel not in KERNELS:
             raise ValueError(f"`kernel` must be one of {KERNELS}, got {kernel!r}")
         if metric is not None:
@@ -502,6 +519,7 @@ class TuningMap(View):
             self._reset_arrays()
         config = {n: getattr(self, n) for n in self._CONFIG}
         config["slices"] = self._slices()
+        config["mass_matrix"] = self.mass_matrix
         cells = [tuple(int(c) for c in idx) for idx in np.argwhere(self._pending())]
         # the shown slice first: that is what the user is looking at
         shown = self.persistence_index
@@ -569,7 +587,8 @@ class TuningMap(View):
     def _compute_cell(self, job, k, i, j, initial):
         c = job.config
         eps, n_steps, a = c["step_sizes"][j], c["n_steps"][i], c["slices"][k]
-        kernel = make_cell_kernel(c["kernel"], eps, n_steps, a, c["uniform"])
+        kernel = make_cell_kernel(c["kernel"], eps, n_steps, a, c["uniform"],
+                                  metric=c.get("mass_matrix"))
         try:
             out = measure_cell(self.target, kernel, n_draws=c["n_draws"], n_chains=c["n_chains"],
                                burn_in=c["burn_in"], seed=c["seed"], initial=initial,
@@ -639,6 +658,35 @@ class TuningMap(View):
     def _recolour(self):
         self._refresh()
         self.redraw(full=True)
+
+    @classmethod
+    def from_run(cls, run, **kwargs):
+        """A map around a Run's tuning: its target, kernel kind and mass matrix, and step
+        sizes from 1/8 to 8 times its tuned step size (the tuned one in the middle column).
+
+        The run's own number of steps is added to the default rows. Any other argument of
+        TuningMap may be given and wins over the run's values.
+        """
+        from .trajectory_view import run_parts
+
+        target, kernel = run_parts(run, needs_step_size=False)
+        if isinstance(kernel, PartialRefreshHMC):
+            kind = "partial"
+        elif isinstance(kernel, HMC):
+            kind = "hmc"
+        elif isinstance(kernel, RandomWalk):
+            kind = "walk"
+        else:
+            raise ValueError(f"`run` used a {type(kernel).__name__}; a TuningMap covers HMC, "
+                             "partial-refresh HMC and the random walk")
+        kind = kwargs.pop("kernel", kind)
+        centre = kernel.scale if isinstance(kernel, RandomWalk) else kernel.step_size
+        args = {"kernel": kind, "mass_matrix": kernel.metric,
+                "step_sizes": _round3(float(centre) * 2.0 ** np.arange(-3, 4))}
+        if kind != "walk" and getattr(kernel, "n_steps", None) is not None:
+            args["n_steps"] = sorted(set(_DEFAULT_N_STEPS) | {int(kernel.n_steps)})
+        args.update(kwargs)
+        return cls(target, **args)
 
     @classmethod
     def from_settings(cls, target, settings, *, autorun=True):
@@ -828,14 +876,20 @@ class TuningMap(View):
                 kwargs["persistence"] = a
             if pilot is not None:
                 kwargs["initial"] = pilot.initial
+            if self.mass_matrix is not None:  # the cell's own kernel, mass matrix included
+                kwargs["kernel"] = make_cell_kernel(self.kernel, eps, n_steps, a, self.uniform,
+                                                    metric=self.mass_matrix)
             view = ChainView(self.target, **kwargs, **region)
         else:
-            from .trajectory_view import TrajectoryView
+            from .trajectory_view import TrajectoryView, mass_from_metric
 
             if pilot is not None:
                 region["start"] = pilot.start()
+            mass, note = mass_from_metric(self.mass_matrix)
             view = TrajectoryView(self.target, step_size=eps, n_steps=n_steps,
-                                  persistence=a or 0.0, seed=self.seed, **region)
+                                  persistence=a or 0.0, seed=self.seed, mass_scale=mass, **region)
+            if note:
+                view.status = note
         shown = {"step_sizes": self.step_sizes, "n_steps": self.n_steps, "slices": self._slices()}
         name = self._cell_name(shown, min(self.persistence_index, len(self._slices()) - 1), i, j)
         header = widgets.HTML(
