@@ -199,3 +199,15 @@ def test_tuning_map_mass_matrix_errors_name_the_argument(badly_scaled):
         pg.TuningMap(badly_scaled, mass_matrix=pg.Metric(np.ones(3)), autorun=False)
     with pytest.raises(ValueError, match="`run`"):
         pg.TuningMap.from_run("not a run")
+
+
+def test_views_from_a_run_show_where_its_draws_are(tuned_run):
+    x = tuned_run.unconstrained
+    inside = lambda lim, v: np.mean((v >= lim[0]) & (v <= lim[1]))  # noqa: E731
+    for view in (pg.TrajectoryView.from_run(tuned_run), pg.ChainView.from_run(tuned_run)):
+        assert inside(view.xlim, x[..., 0]) >= 0.99 and inside(view.ylim, x[..., 1]) >= 0.99
+        # and not a region many times wider than the draws
+        assert view.xlim[1] - view.xlim[0] < 2 * np.ptp(x[..., 0])
+        assert view.ylim[1] - view.ylim[0] < 2 * np.ptp(x[..., 1])
+    tv = pg.TrajectoryView.from_run(tuned_run, xlim=(-1, 1))
+    assert tv.xlim == (-1.0, 1.0)

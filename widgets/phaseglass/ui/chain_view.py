@@ -622,10 +622,11 @@ class ChainView(View):
         """Continue a Run: its target and kernel (tuned knobs, mass matrix), from its last draws.
 
         Chains start at ``run.draws[:, -1]`` (user's scale), one per chain of the run
-        (``n_chains=`` other than the run's reuses them in turn). Any other argument of
+        (``n_chains=`` other than the run's reuses them in turn); the region shown is where
+        the run's draws are. Any other argument of
         ChainView may be given and wins over the run's values.
         """
-        from .trajectory_view import run_parts
+        from .trajectory_view import run_parts, run_region
 
         target, kernel = run_parts(run, needs_step_size=False)
         last = np.asarray(run.draws[:, -1], dtype=float)
@@ -635,6 +636,10 @@ class ChainView(View):
         args = dict(kernel=kwargs.pop("kernel", kernel), n_chains=n_chains,
                     initial=last[np.arange(n_chains) % last.shape[0]])
         args.update(kwargs)
+        if args.get("xlim") is None or args.get("ylim") is None:  # where the run's draws are
+            xlim, ylim = run_region(run, args.get("coords", (0, 1)))
+            args["xlim"] = xlim if args.get("xlim") is None else args["xlim"]
+            args["ylim"] = ylim if args.get("ylim") is None else args["ylim"]
         return cls(target, **args)
 
     @classmethod

@@ -34,6 +34,22 @@ def run_parts(run, *, needs_step_size=True):
     return target, kernel
 
 
+def run_region(run, coords, start=None):
+    """(xlim, ylim) holding 99 % of a run's draws of ``coords`` (sampler's scale) and ``start``."""
+    coords = resolve_coords(coords, run.target.names, run.target.dim)
+    x = np.asarray(run.unconstrained, dtype=float)
+    lims = []
+    for k, c in enumerate(coords):
+        v = x[..., c].ravel()
+        v = v[np.isfinite(v)]
+        lo, hi = (np.quantile(v, [0.005, 0.995]) if v.size else (-1.0, 1.0))
+        if start is not None:
+            lo, hi = min(lo, start[c]), max(hi, start[c])
+        pad = 0.1 * (hi - lo) if hi > lo else 1.0
+        lims.append((float(lo - pad), float(hi + pad)))
+    return lims[0], lims[1]
+
+
 def mass_from_metric(metric):
     """(mass_scale list or None, note) of a Metric: the diagonal mass, 1 / inverse mass.
 
@@ -461,7 +477,8 @@ class TrajectoryView(View):
         **kwargs
             Any other argument of TrajectoryView; they win over the run's values.
 
-        Default start: the last draw of chain 0. The mass matrix is ``1 / inverse_mass``
+        Default start: the last draw of chain 0; default region: where the run's draws
+        are (and the start). The mass matrix is ``1 / inverse_mass``
         of the run's diagonal metric (a dense metric: its diagonal, said in the status line).
         """
         target, kernel = run_parts(run)
@@ -502,6 +519,10 @@ class TrajectoryView(View):
         if getattr(kernel, "persistence", None) is not None:
             args["persistence"] = float(kernel.persistence)
         args.update(kwargs)
+        if args.get("xlim") is None or args.get("ylim") is None:  # where the run's draws are
+            xlim, ylim = run_region(run, args.get("coords", (0, 1)), args["start"])
+            args["xlim"] = xlim if args.get("xlim") is None else args["xlim"]
+            args["ylim"] = ylim if args.get("ylim") is None else args["ylim"]
         view = cls(target, **args)
         if momentum is not None and momentum.shape == (target.dim,) and "momentum" not in kwargs:
             view.momentum = momentum
