@@ -211,3 +211,14 @@ def test_views_from_a_run_show_where_its_draws_are(tuned_run):
         assert view.ylim[1] - view.ylim[0] < 2 * np.ptp(x[..., 1])
     tv = pg.TrajectoryView.from_run(tuned_run, xlim=(-1, 1))
     assert tv.xlim == (-1.0, 1.0)
+
+
+def test_divergence_view_from_run_and_trajectory_view_needs_a_step_size(divergent_run, tuned_run):
+    view = pg.DivergenceView.from_run(divergent_run)
+    assert view.run is divergent_run and len(view.divergences) == len(divergent_run.divergences)
+    with pytest.raises(TypeError, match="`run`"):
+        pg.DivergenceView.from_run(divergent_run.target)
+    walk = pg.sample(tuned_run.target, pg.RandomWalk(0.5), n_draws=10, n_chains=2, seed=0)
+    with pytest.raises(ValueError, match="`run` used a RandomWalk"):
+        pg.TrajectoryView.from_run(walk)
+    assert pg.ChainView.from_run(walk).kernel_name == "walk"

@@ -626,6 +626,13 @@ class DivergenceView(View):
         return self
 
     @classmethod
+    def from_run(cls, run, **kwargs):
+        """Open on a Run (the same as ``DivergenceView(run, ...)``; named as the other views')."""
+        if not isinstance(run, Run):
+            raise TypeError(f"`run` must be a phaseglass Run (from pg.sample), got {type(run).__name__}")
+        return cls(run, **kwargs)
+
+    @classmethod
     def from_settings(cls, run_or_target, settings):
         """Build a view with saved ``settings`` (from ``view.settings``).
 
