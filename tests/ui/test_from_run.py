@@ -222,3 +222,17 @@ def test_divergence_view_from_run_and_trajectory_view_needs_a_step_size(divergen
     with pytest.raises(ValueError, match="`run` used a RandomWalk"):
         pg.TrajectoryView.from_run(walk)
     assert pg.ChainView.from_run(walk).kernel_name == "walk"
+
+
+def test_chain_view_settings_keep_the_runs_mass_matrix():
+    import json
+
+    target = pg.demos.correlated_gaussian(correlation=0.0, scales=[10.0, 0.1])
+    run = pg.sample(target, pg.HMC(0.5, 5), n_draws=50, warmup=150, n_chains=2, seed=3)
+    view = pg.ChainView.from_run(run, seed=2)
+    saved = json.loads(json.dumps(view.settings))
+    assert saved["mass_matrix"]["inverse_mass"] == run.kernel.metric.inverse_mass.tolist()
+    restored = pg.ChainView.from_settings(target, saved)
+    np.testing.assert_array_equal(restored.kernel.metric.inverse_mass,
+                                  run.kernel.metric.inverse_mass)
+    assert restored.settings == view.settings

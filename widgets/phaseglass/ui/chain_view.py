@@ -12,6 +12,7 @@ from matplotlib.ticker import MaxNLocator
 from ..core._validate import MAX_STEPS
 from ..core.diagnostics import ess
 from ..core.kernels import HMC, PartialRefreshHMC, RandomWalk
+from ..core.metric import Metric
 from ..core.run import CAUTION
 from ..core.sampling import Sampler
 from ..core.slices import resolve_coords
@@ -642,13 +643,29 @@ class ChainView(View):
             args["ylim"] = ylim if args.get("ylim") is None else args["ylim"]
         return cls(target, **args)
 
+    #: The mass matrix of a kernel passed in (e.g. a tuned run's) is saved with the knobs.
+    EXTRA_SETTINGS = ("mass_matrix",)
+
+    def _extra_settings(self):
+        if self._metric is None or self._metric.kind == "identity":
+            return {}
+        return {"mass_matrix": self._metric.as_dict()}
+
     @classmethod
     def from_settings(cls, target, settings):
         """Build a view on ``target`` with saved ``settings`` (from ``view.settings``)."""
         known = cls.checked_settings(settings)
+        mass = known.pop("mass_matrix", None)
         if "coords" in known:
             known["coords"] = tuple(known["coords"])
-        return cls(target, **known)
+        view = cls(target, **known)
+        if mass is not None:
+            if not isinstance(mass, dict) or "inverse_mass" not in mass:
+                raise ValueError(f"`settings['mass_matrix']` must be a dict with 'inverse_mass' "
+                                 f"(from view.settings), got {mass!r}")
+            view._metric = Metric(mass["inverse_mass"])
+            view._safe_new_sampler(False)
+        return view
 
 
 def _extras_of(kernel):
