@@ -15,6 +15,7 @@ from .sampling import Sampler, sample
 from .slices import choose_limits, log_density_grid, resolve_coords
 from .streams import Streams
 from .target import GradientCheck, Target
+from .triage import DivergenceRanking, divergence_ranking
 from .uniforms import DriftingUniform, FreshUniform
 
 __all__ = [
@@ -25,4 +26,5 @@ __all__ = [
     "DualAveraging", "estimate_metric",
     "ess", "rhat", "mcse", "autocorrelation", "ebfmi", "demos",
     "log_density_grid", "choose_limits", "resolve_coords",
+    "divergence_ranking", "DivergenceRanking",
 ]
