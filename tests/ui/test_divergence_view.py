@@ -293,3 +293,49 @@ def test_the_readout_gives_the_replayed_steps_energy_error(view):
     assert f"replay at step 1 of {tr.divergence_step}: &Delta;H = {'+' if d > 0 else ''}{number(d)}" \
         in view._readout.value
     assert not view._energy.verdict.get_visible()  # said once, in the readout
+
+
+# ------------------------------------------------- opening on the ranked pair
+@pytest.fixture(scope="module")
+def warm_funnel_run():
+    """Centred orchards with a short warm-up: diverges in the funnel's neck (small log_tau)."""
+    run = pg.sample(pg.demos.orchards("centred"), pg.HMC(0.4, 8),
+                    **dict(FUNNEL_SETTINGS, warmup=100))
+    assert run.n_divergent >= 10
+    return run
+
+
+def test_opens_on_the_top_ranked_pair_and_says_why(warm_funnel_run):
+    run = warm_funnel_run
+    view = DivergenceView(run)
+    ranking = pg.divergence_ranking(run)
+    assert view.coords == ranking.top_pair == view.ranking.top_pair
+    # common practice: a funnel diverges at small scale, so the scale parameter comes first
+    assert view.names[view.coords[0]] == "log_tau"
+    x, y = (view.names[k] for k in view.coords)
+    assert ("coordinates where the divergences differ most from the other draws: "
+            f"{x}, {y}") in view._readout.value
+    assert view._ax_pair.get_xlabel() == "log_tau" and view._ax_pair.get_ylabel() == y
+    c, t = np.nonzero(run.divergent)
+    np.testing.assert_allclose(xy(view._pair.divergent), run.draws[c, t][:, list(view.coords)])
+    # another pair: the reason is no longer claimed
+    view.coords = (0, 2)
+    assert view.coords != ranking.top_pair
+    assert "differ most" not in view._readout.value
+
+
+def test_explicit_coords_are_kept(warm_funnel_run):
+    view = DivergenceView(warm_funnel_run, coords=("mu", "effect_2"))
+    assert view.coords == (0, 3)
+    assert "differ most" not in view._readout.value
+
+
+def test_a_targets_view_moves_to_the_top_pair_once_sampled():
+    target = pg.demos.orchards("centred")
+    kw = dict(kernel=pg.HMC(0.4, 8), n_draws=300, warmup=100, seed=1, background=False)
+    view = DivergenceView(target, **kw)
+    assert view.run.n_divergent > 0
+    assert view.coords == pg.divergence_ranking(view.run).top_pair
+    assert view.names[view.coords[0]] == "log_tau"
+    kept = DivergenceView(target, coords=(0, 2), **kw)
+    assert kept.coords == (0, 2) and kept.ranking is not None

@@ -14,6 +14,7 @@ from ..core.run import CAUTION, Run
 from ..core.sampling import Sampler
 from ..core.slices import choose_limits, resolve_coords
 from ..core.target import Target
+from ..core.triage import divergence_ranking
 from ..draw import draw_energy_error, draw_log_density, draw_pair, draw_trajectory, legend
 from ..draw.style import key_handles, note
 from ._base import COLUMN_WIDTH_IN, View, guarded, number, plural
@@ -53,7 +54,12 @@ class DivergenceView(View):
         ``Sampler`` record them); its ``target`` gives the log-density slices.
     kernel : Kernel, optional
         For a Target; default ``pg.HMC(0.1, 20)`` (copied, then tuned by the warm-up).
-    coords : pair of int or str
+    coords : pair of int or str, optional
+        Default None: the top-ranked pair of ``pg.divergence_ranking(run)``
+        (the two coordinates where the divergent draws differ most from the
+        other draws), or the first two coordinates when there is no divergence.
+        A Target's view starts on the first two and moves to the top pair once
+        its sampling is done (unless the coordinates were changed meanwhile).
     n_draws, n_chains, warmup, seed : sampling settings for a Target.
     chunk : int
         Draws per chunk when sampling in the background.
@@ -69,6 +75,8 @@ class DivergenceView(View):
         before, on the sampler's scale).
     trajectory : Trajectory or None
         The divergence shown.
+    ranking : DivergenceRanking or None
+        ``pg.divergence_ranking`` of the run (None until a Target's sampling is done).
     figure : matplotlib.figure.Figure
 
     Examples
@@ -76,6 +84,9 @@ class DivergenceView(View):
     >>> import phaseglass as pg
     >>> run = pg.sample(pg.demos.orchards("centred"), pg.HMC(0.4, 8), n_draws=300,
     ...                 n_chains=2, seed=1)
+    >>> view = pg.DivergenceView(run)        # opens on the top-ranked pair
+    >>> view.coords == view.ranking.top_pair
+    True
     >>> view = pg.DivergenceView(run, coords=("log_tau", "effect_1"))
     >>> len(view.divergences) == run.n_divergent
     True
@@ -93,7 +104,7 @@ class DivergenceView(View):
         0, help="Leapfrog steps of the shown trajectory drawn (0 .. the step that diverged)."
     ).tag(setting=True)
 
-    def __init__(self, run_or_target, *, kernel=None, coords=(0, 1), n_draws=300, n_chains=2,
+    def __init__(self, run_or_target, *, kernel=None, coords=None, n_draws=300, n_chains=2,
                  warmup=200, seed=0, chunk=50, background=None):
         if isinstance(run_or_target, Run):
             run, target = run_or_target, run_or_target.target
@@ -128,6 +139,13 @@ class DivergenceView(View):
         self._task = None
         self._remaining = 0
         self._sampling_settings = None
+        self.ranking = None
+        self._auto_coords = coords is None
+        if run is not None:
+            self.ranking = divergence_ranking(run)
+        if coords is None:
+            ranked = self.ranking is not None and not self.ranking.empty
+            coords = self.ranking.top_pair if ranked else (0, 1)
         self.coords = resolve_coords(coords, self.names, dim)
         self._build_controls()
         self._build_figure()
@@ -390,6 +408,8 @@ class DivergenceView(View):
             return
         self._pair.update(run)
         self._collect_divergences(run)
+        if self.ranking is None and self._remaining <= 0:  # a Target's sampling just finished
+            self._rank_when_done(run)
         with self._sync():
             labels = [(self._label(i), i) for i in range(len(self.divergences))]
             self._pick_list.options = labels or [("no divergences", -1)]
@@ -409,6 +429,11 @@ class DivergenceView(View):
             self._place_ring()
             self._write_readout()
             self.redraw(full=True)
+
+    def _rank_when_done(self, run):
+        self.ranking = divergence_ranking(run)
+        if self._auto_coords and not self.ranking.empty:
+            self.coords = self.ranking.top_pair
 
     def _collect_divergences(self, run):
         first, n = run.first_draw, run.n_draws
@@ -551,6 +576,7 @@ class DivergenceView(View):
     def _on_coords(self, change):
         if not self._built:
             return
+        self._auto_coords = False  # chosen now: a Target's finished sampling keeps them
         with self._sync():
             self._x_pick.value, self._y_pick.value = self.coords
         self._redo_coords()
@@ -592,6 +618,10 @@ class DivergenceView(View):
                  f"({number(100 * n_div / max(total, 1), 2)} %){busy}"]
         if len(self.divergences) != n_div:
             parts.append(f"{len(self.divergences)} with replays")
+        r = self.ranking
+        if r is not None and not r.empty and tuple(self.coords) == r.top_pair:
+            parts.append("coordinates where the divergences differ most from the other draws: "
+                         + ", ".join(html.escape(self.names[k]) for k in r.top_pair))
         if self.trajectory is not None and self.selected >= 0:
             c, t, tr = self.divergences[self.selected]
             k = tr.divergence_step
