@@ -90,3 +90,54 @@ def test_bad_input_names_the_argument():
         pg.divergence_ranking(invented_run(x, np.zeros((1, 10))), max_pairs=0)
     with pytest.raises(ValueError, match="`run`"):
         pg.divergence_ranking(invented_run(x, np.zeros((1, 9))))
+
+
+# ------------------------------------------------------ worst-mixing parameters
+def invented_mixing_run(dim, seed=0):
+    """Independent draws, except x[17] (sticky, with chains stuck apart) and x[5] (sticky)."""
+    rng = np.random.default_rng(seed)
+    n_chains, n_draws = 4, 400
+    x = rng.normal(size=(n_chains, n_draws, dim))
+
+    def ar1(phi):
+        out = np.empty((n_chains, n_draws))
+        out[:, 0] = rng.normal(size=n_chains)
+        for t in range(1, n_draws):
+            out[:, t] = phi * out[:, t - 1] + np.sqrt(1 - phi**2) * rng.normal(size=n_chains)
+        return out
+
+    if dim > 17:
+        x[:, :, 17] = ar1(0.995) + np.arange(n_chains)[:, None]  # chains disagree
+    x[:, :, 5] = ar1(0.9)
+    shape = (n_chains, n_draws)
+    records = {"accepted": np.ones(shape, bool), "divergent": np.zeros(shape, bool),
+               "n_grad": np.ones(shape, int)}
+    return Run(x, x.copy(), records, {})
+
+
+def test_worst_mixing_puts_the_badly_mixing_parameters_first():
+    digest = invented_mixing_run(30).summary()
+    worst = digest.worst_mixing(5)
+    assert worst.shape == (5,)
+    assert worst[0] == 17 and worst[1] == 5
+    ess = np.fmin(digest["ess_centre"], digest["ess_tails"])
+    assert ess[17] == ess.min() and digest["rhat_rank"][17] == np.nanmax(digest["rhat_rank"])
+    assert digest.worst_mixing(100).shape == (30,)
+    with pytest.raises(ValueError, match="`k`"):
+        digest.worst_mixing(0)
+
+
+def test_summary_with_many_parameters_lists_the_worst_first():
+    digest = invented_mixing_run(30).summary()
+    text = str(digest)
+    lines = text.splitlines()
+    assert lines[0].startswith("Worst-mixing parameters")
+    first = lines[:lines.index("All 30 parameters:")]
+    assert [ln.split()[0] for ln in first[2:7]] == [digest.names[i] for i in digest.worst_mixing(5)]
+    assert first[2].split()[0] == "x[17]"
+    rest = lines[lines.index("All 30 parameters:") + 2:]
+    assert [ln.split()[0] for ln in rest[:30]] == list(digest.names)  # the full table follows
+    html_text = digest._repr_html_()
+    assert html_text.count("<table>") == 2 and html_text.index("x[17]") < html_text.index("x[0]")
+    few = str(invented_mixing_run(12).summary())
+    assert "Worst-mixing" not in few and few.splitlines()[1].split()[0] == "x[0]"

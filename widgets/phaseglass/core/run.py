@@ -139,9 +139,16 @@ class Digest:
     Columns (ours): ``mean``, ``sd``, ``q5``, ``q95``, ``ess_centre`` (bulk ESS),
     ``ess_tails`` (tail ESS), ``rhat_rank`` (rank-normalised split R-hat),
     ``mcse_mean``.
+
+    With more than ``MANY`` (12) parameters the printed summary (text and HTML)
+    first lists the five worst-mixing ones (see ``worst_mixing``) under a
+    heading; the full table follows.
     """
 
     columns = ("mean", "sd", "q5", "q95", "ess_centre", "ess_tails", "rhat_rank", "mcse_mean")
+
+    #: Above this many parameters the printed summary lists the worst-mixing ones first.
+    MANY = 12
 
     def __init__(self, names, table, run_info, warnings):
         self.names = tuple(names)
@@ -243,16 +250,51 @@ class Digest:
     def __getitem__(self, column):
         return self.table[column]
 
-    def __str__(self):
-        width = max([len(n) for n in self.names] + [8])
-        head = f"{'':<{width}} " + " ".join(f"{c:>10}" for c in self.columns)
-        rows = [head]
-        for i, name in enumerate(self.names):
+    def worst_mixing(self, k=5):
+        """Indices of the ``k`` worst-mixing parameters, worst first.
+
+        A parameter's ESS rank orders ``min(ess_centre, ess_tails)`` from the
+        lowest, its R-hat rank orders ``rhat_rank`` from the highest; it counts
+        as bad as the better (smaller) of its two ranks, ties broken by the
+        other rank. Parameters whose ESS and R-hat are both NaN come last.
+        Returns an ndarray of int of shape (min(k, dim),); names are
+        ``[digest.names[i] for i in ...]``.
+        """
+        if isinstance(k, bool) or not isinstance(k, (int, np.integer)) or k < 1:
+            raise ValueError(f"`k` must be a positive integer, got {k!r}")
+        dim = len(self.names)
+        ess = np.fmin(self.table["ess_centre"], self.table["ess_tails"])
+        rhat = np.asarray(self.table["rhat_rank"], dtype=float)
+        # NaN sorts last in both orders
+        r_ess = np.empty(dim, dtype=int)
+        r_ess[np.argsort(np.where(np.isfinite(ess), ess, np.inf), kind="stable")] = np.arange(dim)
+        r_rhat = np.empty(dim, dtype=int)
+        r_rhat[np.argsort(np.where(np.isfinite(rhat), -rhat, np.inf), kind="stable")] = np.arange(dim)
+        order = np.lexsort((np.maximum(r_ess, r_rhat), np.minimum(r_ess, r_rhat)))
+        return order[:min(int(k), dim)]
+
+    def _text_rows(self, indices, width):
+        rows = []
+        for i in indices:
             cells = []
             for c in self.columns:
                 v = self.table[c][i]
                 cells.append(f"{v:>10.0f}" if c.startswith("ess") and np.isfinite(v) else f"{v:>10.4g}")
-            rows.append(f"{name:<{width}} " + " ".join(cells))
+            rows.append(f"{self.names[i]:<{width}} " + " ".join(cells))
+        return rows
+
+    def __str__(self):
+        width = max([len(n) for n in self.names] + [8])
+        head = f"{'':<{width}} " + " ".join(f"{c:>10}" for c in self.columns)
+        rows = []
+        if len(self.names) > self.MANY:
+            rows.append("Worst-mixing parameters (lowest ESS, highest R-hat):")
+            rows.append(head)
+            rows.extend(self._text_rows(self.worst_mixing(5), width))
+            rows.append("")
+            rows.append(f"All {len(self.names)} parameters:")
+        rows.append(head)
+        rows.extend(self._text_rows(range(len(self.names)), width))
         ri = self.run_info
         rows.append("")
         rows.extend(textwrap.wrap(
@@ -278,12 +320,21 @@ class Digest:
         import html
 
         head = "".join(f"<th>{c}</th>" for c in ("parameter",) + self.columns)
-        body = []
-        for i, name in enumerate(self.names):
-            cells = "".join(f"<td>{self.table[c][i]:.4g}</td>" for c in self.columns)
-            body.append(f"<tr><td>{html.escape(name)}</td>{cells}</tr>")
+
+        def body(indices):
+            out = []
+            for i in indices:
+                cells = "".join(f"<td>{self.table[c][i]:.4g}</td>" for c in self.columns)
+                out.append(f"<tr><td>{html.escape(self.names[i])}</td>{cells}</tr>")
+            return "".join(out)
+
+        first = ""
+        if len(self.names) > self.MANY:
+            first = (f"<p>Worst-mixing parameters (lowest ESS, highest R-hat):</p>"
+                     f"<table><tr>{head}</tr>{body(self.worst_mixing(5))}</table>"
+                     f"<p>All {len(self.names)} parameters:</p>")
         warn = "".join(f"<li>{html.escape(w)}</li>" for w in self.warnings) or "<li>No problem detected by these checks.</li>"
-        return (f"<table><tr>{head}</tr>{''.join(body)}</table><ul>{warn}</ul>"
+        return (f"{first}<table><tr>{head}</tr>{body(range(len(self.names)))}</table><ul>{warn}</ul>"
                 f"<p><em>{html.escape(CAUTION)}</em></p>")
 
 
