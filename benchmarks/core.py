@@ -101,7 +101,7 @@ def hand_written_hmc(value_and_grad, x0, step_size, n_steps, n_draws, seed):
 def overhead_row(name, target, x0, step_size, n_steps, n_draws, repeats):
     vg = target._user_vg  # the user's own joint function, no wrapper
     kernel = pg.HMC(step_size, n_steps, jitter=0.0)
-    probe = pg.sample(target, kernel, x0, n_draws=n_draws, n_chains=1, seed=1, keep_trajectories=True)
+    probe = pg.sample(target, kernel, x0, n_draws=n_draws, n_chains=1, seed=1, keep_trajectories=True, warmup=0)
     # The bare loop evaluates the very points the sampler evaluated (the start, then every
     # leapfrog step), since a gradient's cost can depend on where it is taken.
     steps = np.concatenate([tr.positions[0, 1:] for tr in probe.trajectories])
@@ -115,7 +115,7 @@ def overhead_row(name, target, x0, step_size, n_steps, n_draws, repeats):
             vg(x)
 
     def ours():
-        pg.sample(target, kernel, x0, n_draws=n_draws, n_chains=1, seed=1)
+        pg.sample(target, kernel, x0, n_draws=n_draws, n_chains=1, seed=1, warmup=0)
 
     def hand():
         hand_written_hmc(vg, x0, step_size, n_steps, n_draws, 1)
@@ -144,10 +144,10 @@ def batching_row(n_batch, n_single, n_draws, repeats):
 
     def single_loop():
         for seed in range(n_single):
-            pg.sample(target, kernel, n_draws=n_draws, n_chains=1, seed=seed)
+            pg.sample(target, kernel, n_draws=n_draws, n_chains=1, seed=seed, warmup=0)
 
     t_single = best_of(single_loop, repeats) / n_single
-    t_batch = best_of(lambda: pg.sample(target, kernel, n_draws=n_draws, n_chains=n_batch, seed=0),
+    t_batch = best_of(lambda: pg.sample(target, kernel, n_draws=n_draws, n_chains=n_batch, seed=0, warmup=0),
                       repeats) / n_batch
     return {"per_chain_single_ms": t_single * 1e3, "per_chain_batch_ms": t_batch * 1e3,
             "speedup": t_single / t_batch, "n_batch": n_batch, "n_draws": n_draws}

@@ -119,7 +119,7 @@ def moment_z_scores(draws, moments):
 @pytest.mark.parametrize("shift, n_draws", [(GOLDEN, 1000), ("random", 500), (None, 500)])
 def test_exact_conditionals_match_dblquad_moments(box_moments, shift, n_draws):
     run = pg.sample(box_target(), pg.Gibbs(exact_conditionals, shift=shift), initial=STARTS,
-                    n_draws=n_draws, n_chains=4, seed=11)
+                    n_draws=n_draws, n_chains=4, seed=11, warmup=0)
     z = moment_z_scores(run.draws, box_moments)
     assert np.all(np.abs(z) < MAX_Z), z  # worst |z| over 30 seeds, each shift: 3.8
 
@@ -132,7 +132,7 @@ def test_numeric_conditionals_match_dblquad_moments(box_moments, bounds):
         target = pg.Target(box_log_density, lambda x: -(x - MU) @ PREC, dim=2, vectorized=True,
                            bounds=bounds)
     run = pg.sample(target, pg.Gibbs(shift=GOLDEN, grid_size=128), initial=STARTS, n_draws=600,
-                    n_chains=4, seed=12)
+                    n_chains=4, seed=12, warmup=0)
     z = moment_z_scores(run.draws, box_moments)
     assert np.all(np.abs(z) < MAX_Z), z  # worst |z| over 20 seeds, each variant: 3.6
 
@@ -143,7 +143,7 @@ def test_zero_shift_does_not_explore(box_moments):
     # working shift: with c = 0 each chain is confined to its own part of the box, so
     # chain means are far off and the chains disagree.
     mean, var, _ = box_moments
-    kw = dict(initial=STARTS, n_draws=300, n_chains=4, seed=13)
+    kw = dict(initial=STARTS, n_draws=300, n_chains=4, warmup=0, seed=13)
     stuck = pg.sample(box_target(), pg.Gibbs(exact_conditionals, shift=0.0), **kw).draws
     good = pg.sample(box_target(), pg.Gibbs(exact_conditionals, shift=GOLDEN), **kw).draws
 
@@ -165,7 +165,7 @@ def test_zero_shift_in_one_dimension_swaps_two_points_forever():
     dist = TruncNormal(-0.8, 1.2, 0.0, 1.0)
     with pytest.warns(UserWarning, match="one-coordinate"):
         run = pg.sample(target, pg.Gibbs(lambda i, x: dist, shift=0.0), initial=[[0.5], [-0.5]],
-                        n_draws=50, n_chains=2, seed=14)
+                        n_draws=50, n_chains=2, seed=14, warmup=0)
     x = run.draws[:, :, 0]
     np.testing.assert_allclose(x[:, 2:], x[:, :-2], atol=1e-12)
     assert np.all(np.abs(x[:, 1:] - x[:, :-1]) > 1e-6)
@@ -190,7 +190,7 @@ def test_gaussian_quadratic_form_is_conserved_only_without_shift(shift):
     target = pg.Target(lambda x: -0.5 * np.einsum("ni,ij,nj->n", x - MU, PREC, x - MU),
                        lambda x: -(x - MU) @ PREC, dim=2, vectorized=True)
     run = pg.sample(target, pg.Gibbs(_normal_conditionals, shift=shift), initial=STARTS[:2],
-                    n_draws=200, n_chains=2, seed=15)
+                    n_draws=200, n_chains=2, seed=15, warmup=0)
     d = run.draws[:, :-1] - MU
     a = scipy.stats.norm.ppf(run.u[:, 1:])  # the uniforms stored after draw t drive draw t+1
     q = np.einsum("cti,ij,ctj->ct", d, PREC, d) + np.sum(a ** 2, axis=-1)
@@ -205,7 +205,7 @@ def test_gaussian_quadratic_form_is_conserved_only_without_shift(shift):
 @pytest.mark.parametrize("conditionals", [exact_conditionals, None], ids=["exact", "numeric"])
 def test_ordinary_gibbs_chains_driven_by_one_stream_coalesce(conditionals):
     run = pg.sample(box_target(), pg.Gibbs(conditionals, shared_stream=True), initial=CORNERS,
-                    n_draws=40, n_chains=4, seed=16)
+                    n_draws=40, n_chains=4, seed=16, warmup=0)
     np.testing.assert_array_equal(run.u[0], run.u[3])  # every chain got the same numbers
     start_gap = np.max(np.abs(CORNERS - CORNERS[0]))
     gap = np.max(np.abs(run.draws - run.draws[:1]), axis=(0, 2))
@@ -219,7 +219,7 @@ def test_shift_chains_driven_by_one_stream_stay_distinct(conditionals, shift):
     # the shift update is a bijection of (x, u): distinct chains can never merge
     run = pg.sample(box_target(), pg.Gibbs(conditionals, shift=shift, shared_stream=True,
                                            grid_size=64), initial=CORNERS,
-                    n_draws=150, n_chains=4, seed=17)
+                    n_draws=150, n_chains=4, seed=17, warmup=0)
     d = run.draws
     pair = np.stack([np.linalg.norm(d[a] - d[b], axis=-1) for a in range(4) for b in range(a)])
     # over 30 seeds: never closer than 4e-4 (brief near-misses, the shared numbers keep the
@@ -318,7 +318,7 @@ def test_frozen_scipy_distribution_works_as_conditional():
         loc, scale = conditional_normal(i, x)
         return scipy.stats.truncnorm((LO[i] - loc) / scale, (HI[i] - loc) / scale, loc=loc, scale=scale)
 
-    kw = dict(initial=STARTS[:2], n_draws=5, n_chains=2, seed=20)
+    kw = dict(initial=STARTS[:2], n_draws=5, n_chains=2, warmup=0, seed=20)
     a = pg.sample(box_target(), pg.Gibbs(frozen, shift=GOLDEN), **kw)
     b = pg.sample(box_target(), pg.Gibbs(exact_conditionals, shift=GOLDEN), **kw)
     np.testing.assert_allclose(a.draws, b.draws, rtol=1e-12)
@@ -328,7 +328,7 @@ def test_user_conditionals_on_a_bounded_target_use_the_users_scale():
     # declared bounds: the sampler works on logit scale, the conditionals on the user's
     target = pg.Target(box_log_density, lambda x: -(x - MU) @ PREC, dim=2, vectorized=True,
                        bounds=list(zip(LO, HI)))
-    kw = dict(initial=STARTS[:2], n_draws=5, n_chains=2, seed=21)
+    kw = dict(initial=STARTS[:2], n_draws=5, n_chains=2, warmup=0, seed=21)
     a = pg.sample(target, pg.Gibbs(exact_conditionals, shift=GOLDEN), **kw)
     b = pg.sample(box_target(), pg.Gibbs(exact_conditionals, shift=GOLDEN), **kw)
     np.testing.assert_allclose(a.draws, b.draws, rtol=1e-9)
@@ -338,7 +338,7 @@ def test_user_conditionals_on_a_bounded_target_use_the_users_scale():
 @pytest.mark.parametrize("shift", [None, GOLDEN, "random"])
 @pytest.mark.parametrize("conditionals", [exact_conditionals, None], ids=["exact", "numeric"])
 def test_same_seed_same_draws(conditionals, shift):
-    kw = dict(initial=STARTS[:2], n_draws=8, n_chains=2)
+    kw = dict(initial=STARTS[:2], n_draws=8, n_chains=2, warmup=0)
     kernel = pg.Gibbs(conditionals, shift=shift, grid_size=32)
     a = pg.sample(box_target(), kernel, seed=22, **kw)
     b = pg.sample(box_target(), kernel, seed=22, **kw)
@@ -355,7 +355,7 @@ def test_settings_round_trip():
                         "conditionals": None}
     again = kernel_from_settings(settings)
     assert isinstance(again, pg.Gibbs) and again.settings() == settings
-    kw = dict(initial=STARTS[:2], n_draws=4, n_chains=2, seed=24)
+    kw = dict(initial=STARTS[:2], n_draws=4, n_chains=2, warmup=0, seed=24)
     np.testing.assert_array_equal(pg.sample(box_target(), kernel, **kw).draws,
                                   pg.sample(box_target(), again, **kw).draws)
     assert repr(again) == "Gibbs(shift=0.2, shared_stream=True, grid_size=64, conditionals=None)"
@@ -416,7 +416,7 @@ def test_error_in_user_conditionals_names_the_coordinate():
 
     with pytest.raises(RuntimeError, match=r"`conditionals\(1, x\)` raised ZeroDivisionError: oops "
                                            r"\(coordinate 1, chain 0") as info:
-        pg.sample(box_target(), pg.Gibbs(broken), initial=STARTS[0], n_draws=2, n_chains=1, seed=1)
+        pg.sample(box_target(), pg.Gibbs(broken), initial=STARTS[0], n_draws=2, n_chains=1, seed=1, warmup=0)
     assert isinstance(info.value.__cause__, ZeroDivisionError)
 
 
@@ -430,7 +430,7 @@ def test_error_in_user_distribution_method_names_the_coordinate():
 
     with pytest.raises(RuntimeError, match=r"`conditionals\(0, x\)\.ppf` raised ValueError: no ppf today"):
         pg.sample(box_target(), pg.Gibbs(lambda i, x: NoPpf()), initial=STARTS[0], n_draws=1,
-                  n_chains=1, seed=1)
+                  n_chains=1, seed=1, warmup=0)
 
 
 class _InfinitePpf:
@@ -458,7 +458,7 @@ class _CdfAboveOne:
 def test_bad_user_distribution(returned, error, match):
     with pytest.raises(error, match=match):
         pg.sample(box_target(), pg.Gibbs(lambda i, x: returned), initial=STARTS[0], n_draws=1,
-                  n_chains=1, seed=1)
+                  n_chains=1, seed=1, warmup=0)
 
 
 def test_conditionals_that_leave_the_support_are_reported():
@@ -468,14 +468,14 @@ def test_conditionals_that_leave_the_support_are_reported():
         # the check at the start already warns: the target is -inf where these put their mass
         with pytest.warns(UserWarning, match=r"`conditionals` do not match the target"):
             pg.sample(box_target(), pg.Gibbs(lambda i, x: outside), initial=STARTS[0], n_draws=1,
-                      n_chains=1, seed=1)
+                      n_chains=1, seed=1, warmup=0)
 
 
 def test_improper_target_cannot_be_bracketed():
     flat = pg.Target(lambda x: np.zeros(len(x)), lambda x: np.zeros_like(x), dim=1, vectorized=True)
     with pytest.raises(ValueError, match=r"conditional of coordinate 0 \(chain 0\) could not be "
                                          r"bracketed.*Is the target a proper"):
-        pg.sample(flat, pg.Gibbs(), initial=[0.0], n_draws=1, n_chains=1, seed=1)
+        pg.sample(flat, pg.Gibbs(), initial=[0.0], n_draws=1, n_chains=1, seed=1, warmup=0)
 
 
 def test_unbounded_density_asks_for_bounds():
@@ -485,7 +485,7 @@ def test_unbounded_density_asks_for_bounds():
     target = _one_dimensional(lambda x: np.where(x >= 0, g.logpdf(x), -np.inf))
     with pytest.raises(ValueError, match=r"returned \+inf at \[0\.\] .* Declare the coordinate's "
                                          r"`bounds`"):
-        pg.sample(target, pg.Gibbs(), initial=[1.0], n_draws=1, n_chains=1, seed=1)
+        pg.sample(target, pg.Gibbs(), initial=[1.0], n_draws=1, n_chains=1, seed=1, warmup=0)
 
 
 def test_from_settings_rejects_unknown_keys():

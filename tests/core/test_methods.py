@@ -62,7 +62,7 @@ def invariance_run(request, gaussian):
     n_chains = 8
     n_draws = 6000 if request.param.startswith("randomwalk") else 3000
     run = pg.sample(gaussian, KERNELS[request.param](), exact_start(gaussian, n_chains, 4),
-                    n_draws=n_draws, n_chains=n_chains, seed=4)
+                    n_draws=n_draws, n_chains=n_chains, seed=4, warmup=0)
     return request.param, run
 
 
@@ -121,7 +121,7 @@ def test_drifting_uniform_gives_longer_runs_of_acceptances(gaussian):
     runs = {}
     for label, uniform in [("fresh", pg.FreshUniform()), ("drifting", pg.DriftingUniform(0.03))]:
         kernel = pg.PartialRefreshHMC(0.4, 1, persistence=0.9, uniform=uniform)
-        runs[label] = pg.sample(gaussian, kernel, start, n_draws=4000, n_chains=8, seed=8)
+        runs[label] = pg.sample(gaussian, kernel, start, n_draws=4000, n_chains=8, seed=8, warmup=0)
     # the acceptance rate is the same (about 0.8; largest gap over 20 seeds 0.012) ...
     assert abs(runs["fresh"].accepted.mean() - runs["drifting"].accepted.mean()) < 0.025
     # ... but runs are almost twice as long (ratio 1.76-1.94 over 20 seeds; fresh ~7.3)
@@ -146,7 +146,7 @@ def test_drifting_uniform_gives_longer_runs_of_acceptances(gaussian):
 def test_drifting_u_moves_by_drift_each_iteration(gaussian, make):
     drift = 0.03
     run = pg.sample(gaussian, make(pg.DriftingUniform(drift)), exact_start(gaussian, 4, 1),
-                    n_draws=3000, n_chains=4, seed=4)
+                    n_draws=3000, n_chains=4, seed=4, warmup=0)
     u, acc = run.u, run.accepted
     prev, nxt = u[:, :-1], u[:, 1:]
     # After a rejection v is untouched, so the next v is v + drift exactly: |u| moves by
@@ -189,7 +189,7 @@ def test_drifting_acceptance_rate_matches_mean_acceptance_probability(gaussian, 
     # moment checks alone do not notice it at these run lengths. With the rescale the
     # largest |z| over 20 seeds was 1.6.
     run = pg.sample(gaussian, make(pg.DriftingUniform(0.03)), exact_start(gaussian, 16, 2),
-                    n_draws=6000, n_chains=16, seed=6)
+                    n_draws=6000, n_chains=16, seed=6, warmup=0)
     gap = run.accepted.astype(float) - run.accept_prob
     z = gap.mean() / pg.mcse(gap)
     assert abs(z) < 4, z
@@ -216,7 +216,7 @@ def test_random_walk_optimal_scale_accepts_about_0234():
         0, np.inf)[0]
     target = pg.Target(lambda x: -0.5 * np.sum(x * x, axis=-1), lambda x: -x, dim=d, vectorized=True)
     start = np.random.default_rng(3).standard_normal((16, d))
-    run = pg.sample(target, pg.RandomWalk(sigma), start, n_draws=3000, n_chains=16, seed=3)
+    run = pg.sample(target, pg.RandomWalk(sigma), start, n_draws=3000, n_chains=16, seed=3, warmup=0)
     rate = run.accepted.mean()
     assert abs(rate - exact) < 4 * pg.mcse(run.accepted.astype(float))
     assert abs(rate - 0.234) < 0.015
@@ -311,13 +311,13 @@ def test_partial_refresh_persistence_zero_is_a_full_refresh(gaussian):
     # is ordinary HMC (fixed step size): same seed, same draws, hence same distribution.
     start = exact_start(gaussian, 4, 0)
     a = pg.sample(gaussian, pg.PartialRefreshHMC(0.3, 5, persistence=0.0), start,
-                  n_draws=300, n_chains=4, seed=9)
-    b = pg.sample(gaussian, pg.HMC(0.3, 5, jitter=0.0), start, n_draws=300, n_chains=4, seed=9)
+                  n_draws=300, n_chains=4, seed=9, warmup=0)
+    b = pg.sample(gaussian, pg.HMC(0.3, 5, jitter=0.0), start, n_draws=300, n_chains=4, seed=9, warmup=0)
     np.testing.assert_array_equal(a.draws, b.draws)
     np.testing.assert_array_equal(a.accepted, b.accepted)
     # and the draws of independent seeds agree in distribution (two-sample KS on
     # thinned draws of the first coordinate)
-    c = pg.sample(gaussian, pg.HMC(0.3, 5, jitter=0.0), start, n_draws=300, n_chains=4, seed=10)
+    c = pg.sample(gaussian, pg.HMC(0.3, 5, jitter=0.0), start, n_draws=300, n_chains=4, seed=10, warmup=0)
     assert scipy.stats.ks_2samp(a.draws[:, ::3, 0].ravel(), c.draws[:, ::3, 0].ravel()).pvalue > 1e-3
 
 
@@ -402,8 +402,8 @@ def test_kernel_from_settings_round_trips(kernel, gaussian):
     rebuilt = pg.kernel_from_settings(kernel.settings())
     assert type(rebuilt) is type(kernel)
     assert rebuilt.settings() == kernel.settings()
-    a = pg.sample(gaussian, kernel, np.zeros(3), n_draws=50, n_chains=2, seed=1)
-    b = pg.sample(gaussian, rebuilt, np.zeros(3), n_draws=50, n_chains=2, seed=1)
+    a = pg.sample(gaussian, kernel, np.zeros(3), n_draws=50, n_chains=2, seed=1, warmup=0)
+    b = pg.sample(gaussian, rebuilt, np.zeros(3), n_draws=50, n_chains=2, seed=1, warmup=0)
     np.testing.assert_array_equal(a.draws, b.draws)
 
 
@@ -428,7 +428,7 @@ def test_stepping_one_at_a_time_equals_stepping_n(gaussian, make):
         one.step()
     many = pg.Sampler(gaussian, make(), n_chains=3, seed=21)
     many.step(n)
-    batch = pg.sample(gaussian, make(), n_draws=n, n_chains=3, seed=21)
+    batch = pg.sample(gaussian, make(), n_draws=n, n_chains=3, seed=21, warmup=0)
     for other in (many.run, batch):
         np.testing.assert_array_equal(one.run.draws, other.draws)
         np.testing.assert_array_equal(one.run.u, other.u)

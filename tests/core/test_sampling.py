@@ -55,19 +55,19 @@ def gaussian():
 
 def test_same_seed_gives_identical_draws_and_records():
     t = gaussian()
-    a = pg.sample(t, pg.HMC(0.2, 5), n_draws=30, n_chains=3, seed=11)
-    b = pg.sample(t, pg.HMC(0.2, 5), n_draws=30, n_chains=3, seed=11)
+    a = pg.sample(t, pg.HMC(0.2, 5), n_draws=30, n_chains=3, seed=11, warmup=0)
+    b = pg.sample(t, pg.HMC(0.2, 5), n_draws=30, n_chains=3, seed=11, warmup=0)
     for field in ("draws", "accept_prob", "u", "step_size", "energy", "n_grad"):
         np.testing.assert_array_equal(getattr(a, field), getattr(b, field), err_msg=field)
-    c = pg.sample(t, pg.HMC(0.2, 5), n_draws=30, n_chains=3, seed=12)
+    c = pg.sample(t, pg.HMC(0.2, 5), n_draws=30, n_chains=3, seed=12, warmup=0)
     assert not np.any(np.all(a.draws == c.draws, axis=(1, 2)))  # every chain differs
     assert len(np.unique(a.draws[:, 0, 0])) == 3  # and chains differ from each other
     # the recorded seed reproduces the run
-    d = pg.sample(t, pg.HMC(0.2, 5), n_draws=30, n_chains=3, seed=a.seed)
+    d = pg.sample(t, pg.HMC(0.2, 5), n_draws=30, n_chains=3, seed=a.seed, warmup=0)
     np.testing.assert_array_equal(a.draws, d.draws)
     # a Generator seed works and is reproducible too
-    e1 = pg.sample(t, pg.HMC(0.2, 5), n_draws=5, n_chains=2, seed=np.random.default_rng(3))
-    e2 = pg.sample(t, pg.HMC(0.2, 5), n_draws=5, n_chains=2, seed=np.random.default_rng(3))
+    e1 = pg.sample(t, pg.HMC(0.2, 5), n_draws=5, n_chains=2, seed=np.random.default_rng(3), warmup=0)
+    e2 = pg.sample(t, pg.HMC(0.2, 5), n_draws=5, n_chains=2, seed=np.random.default_rng(3), warmup=0)
     np.testing.assert_array_equal(e1.draws, e2.draws)
 
 
@@ -78,7 +78,7 @@ def test_chain_draws_do_not_depend_on_n_chains(kernel):
     # Chain k uses the k-th child of SeedSequence(seed), so what it sees must not depend
     # on how many chains run beside it -- including large batches (600 chains).
     t = gaussian()
-    runs = {n: pg.sample(t, kernel, n_draws=25, n_chains=n, seed=4) for n in (1, 3, 600)}
+    runs = {n: pg.sample(t, kernel, n_draws=25, n_chains=n, seed=4, warmup=0) for n in (1, 3, 600)}
     # Equal up to rounding only: a batched matrix product (600, 3) @ (3, 3) may round
     # differently from (1, 3) @ (3, 3) in BLAS, at the 1e-16 level.
     np.testing.assert_allclose(runs[3].draws[:1], runs[1].draws, rtol=1e-10, atol=1e-12)
@@ -93,7 +93,7 @@ def test_stepping_a_sampler_equals_sample():
     for _ in range(40):
         s.step()
     live = s.run
-    batch = pg.sample(t, pg.HMC(0.2, 5), n_draws=40, n_chains=3, seed=7)
+    batch = pg.sample(t, pg.HMC(0.2, 5), n_draws=40, n_chains=3, seed=7, warmup=0)
     for field in ("draws", "accepted", "accept_prob", "u", "step_size", "energy", "energy_error"):
         np.testing.assert_array_equal(getattr(live, field), getattr(batch, field), err_msg=field)
     assert live.draws.shape == (3, 40, 3)
@@ -134,7 +134,7 @@ def test_run_gradient_counts_equal_the_targets(kernel):
     assert t.n_grad - before == run.total_grad == int(run.n_grad.sum())
     # sample(): the only extra gradients are the n_chains at the starting points
     t.reset_counts()
-    run = pg.sample(t, kernel, n_draws=30, n_chains=4, seed=3)
+    run = pg.sample(t, kernel, n_draws=30, n_chains=4, seed=3, warmup=0)
     assert t.n_grad == run.total_grad + 4
 
 
@@ -160,7 +160,7 @@ def test_hmc_recovers_the_correlated_gaussian():
     rng = np.random.default_rng(1)
     # Start from exact draws, so any bias is the kernel's and not a burn-in transient.
     start = rng.multivariate_normal(np.zeros(3), t.cov, 8)
-    run = pg.sample(t, pg.HMC(0.2, 10), start, n_draws=1000, n_chains=8, seed=1)
+    run = pg.sample(t, pg.HMC(0.2, 10), start, n_draws=1000, n_chains=8, seed=1, warmup=0)
     x = run.draws
     assert np.max(rhat(x)) < 1.02  # worst seen over 20 seeds: 1.008
     sd_true = np.sqrt(np.diag(t.cov))
@@ -221,6 +221,41 @@ def test_warm_up_tunes_step_size_and_metric():
     assert run.kernel.metric.kind == "diagonal"
 
 
+def test_sample_warms_up_by_default_and_warmup_0_keeps_the_knobs():
+    # A badly scaled Gaussian (sd 0.2 and 5) and a step size past the narrow
+    # direction's leapfrog stability limit (2 x sd = 0.4 for a unit mass;
+    # Leimkuhler & Reich, "Simulating Hamiltonian Dynamics", CUP 2004, the
+    # harmonic-oscillator analysis): without warm-up nearly every transition
+    # diverges, with the default warm-up the run is usable.
+    scales = np.array([0.2, 5.0])
+    t = pg.demos.correlated_gaussian(2, 0.0, scales)
+    kernel = pg.HMC(0.5, 10)
+    off = pg.sample(t, kernel, n_draws=300, warmup=0, seed=4)
+    assert off.n_warmup == 0 and off.kernel.step_size == 0.5
+    assert off.n_divergent > 0.5 * off.n_chains * off.n_draws
+    assert "no warm-up" in repr(off)
+
+    run = pg.sample(t, kernel, n_draws=300, seed=4)
+    assert run.n_warmup == pg.auto_warmup(300) == 300
+    assert "after 300 warm-up (automatic length; warmup=0 switches it off)" in repr(run)
+    assert run.kernel.step_size != 0.5 and run.kernel.metric.kind == "diagonal"
+    assert run.n_divergent <= 0.01 * run.n_chains * run.n_draws
+    # closed form: mean 0 and sd = scales; the pooled mean within 5 MCSE, the sd within 15 %
+    x = run.draws.reshape(-1, 2)
+    m = np.array([mcse(run.draws[..., i]) for i in range(2)])
+    assert np.all(np.abs(x.mean(axis=0)) < 5 * m)
+    np.testing.assert_allclose(x.std(axis=0), scales, rtol=0.15)
+    assert kernel.step_size == 0.5  # the user's kernel object is left as it was
+
+
+def test_auto_warmup_length_follows_n_draws_within_bounds():
+    assert [pg.auto_warmup(n) for n in (1, 50, 200, 640, 1000, 10**6)] == [200, 200, 200, 640, 1000, 1000]
+    t = pg.demos.correlated_gaussian()
+    for bad in ("yes", "none", "AUTO"):
+        with pytest.raises(ValueError, match=r'`warmup` must be "auto" or a whole number'):
+            pg.sample(t, pg.HMC(0.1, 5), n_draws=5, warmup=bad)
+
+
 # ------------------------------------------------------------------- divergences, digest
 
 
@@ -270,7 +305,7 @@ def test_summary_of_a_divergent_run(orchard_runs, capsys):
 
 
 def test_summary_prints_and_is_json_serialisable(capsys):
-    run = pg.sample(gaussian(), pg.HMC(0.2, 5), n_draws=50, n_chains=2, seed=9)
+    run = pg.sample(gaussian(), pg.HMC(0.2, 5), n_draws=50, n_chains=2, seed=9, warmup=0)
     digest = run.summary()
     print(digest)
     out = capsys.readouterr().out
@@ -327,28 +362,28 @@ def test_sample_errors():
 
     t = pg.Target(logp, lambda x: -x, dim=2, vectorized=True)
     with pytest.raises(ValueError, match=r"non-finite log-density \(-inf\) for chain 1 at x = \[-1\.\s+2\.\]"):
-        pg.sample(t, pg.HMC(0.1, 5), [[1.0, 2.0], [-1.0, 2.0]], n_chains=2)
+        pg.sample(t, pg.HMC(0.1, 5), [[1.0, 2.0], [-1.0, 2.0]], n_chains=2, warmup=0)
     with pytest.raises(ValueError, match=r"`initial` must have shape \(2,\) or \(n_chains, dim\) = \(4, 2\), got \(3,\)"):
-        pg.sample(t, pg.HMC(0.1, 5), [1.0, 2.0, 3.0])
+        pg.sample(t, pg.HMC(0.1, 5), [1.0, 2.0, 3.0], warmup=0)
     with pytest.raises(ValueError, match=r"`initial` must have shape .* got \(2, 2\)"):
-        pg.sample(t, pg.HMC(0.1, 5), [[1.0, 2.0], [1.0, 2.0]], n_chains=3)
+        pg.sample(t, pg.HMC(0.1, 5), [[1.0, 2.0], [1.0, 2.0]], n_chains=3, warmup=0)
     for bad in ("42", 1.5, -1, [1, 2]):
         with pytest.raises(TypeError, match="`seed` must be None, a non-negative int"):
-            pg.sample(t, pg.HMC(0.1, 5), [1.0, 2.0], seed=bad)
+            pg.sample(t, pg.HMC(0.1, 5), [1.0, 2.0], seed=bad, warmup=0)
     with pytest.raises(TypeError, match="`kernel` must be a phaseglass kernel"):
-        pg.sample(t, "hmc", [1.0, 2.0])
+        pg.sample(t, "hmc", [1.0, 2.0], warmup=0)
     with pytest.raises(TypeError, match="`target` must be a phaseglass Target"):
-        pg.sample(logp, pg.HMC(0.1, 5))
+        pg.sample(logp, pg.HMC(0.1, 5), warmup=0)
     with pytest.raises(ValueError, match="`n_draws` must be >= 1, got 0"):
-        pg.sample(t, pg.HMC(0.1, 5), [1.0, 2.0], n_draws=0)
+        pg.sample(t, pg.HMC(0.1, 5), [1.0, 2.0], n_draws=0, warmup=0)
     with pytest.raises(ValueError, match="`n_chains` must be >= 1, got 0"):
-        pg.sample(t, pg.HMC(0.1, 5), [1.0, 2.0], n_chains=0)
+        pg.sample(t, pg.HMC(0.1, 5), [1.0, 2.0], n_chains=0, warmup=0)
     with pytest.raises(ValueError, match="`warmup` must be >= 0, got -5"):
         pg.sample(t, pg.HMC(0.1, 5), [1.0, 2.0], warmup=-5)
     with pytest.raises(ValueError, match="`metric_adaptation`|`metric` must be one of"):
         pg.sample(t, pg.HMC(0.1, 5), [1.0, 2.0], warmup=30, metric_adaptation="full")
     with pytest.raises(ValueError, match="`metric` has dimension 3 but the target has dim=2"):
-        pg.sample(t, pg.HMC(0.1, 5, metric=np.ones(3)), [1.0, 2.0])
+        pg.sample(t, pg.HMC(0.1, 5, metric=np.ones(3)), [1.0, 2.0], warmup=0)
     with pytest.raises(ValueError, match=r"`target_accept` must lie in"):
         pg.sample(t, pg.HMC(0.1, 5), [1.0, 2.0], warmup=30, target_accept=1.2)
 
@@ -372,9 +407,9 @@ def test_digest_leaves_ebfmi_out_for_persistent_momentum():
     # E-BFMI measures how a fresh momentum draw moves between energy levels (common
     # practice); with persistence > 0 it does not apply and must not raise a warning.
     t = pg.demos.correlated_gaussian()
-    run = pg.sample(t, pg.PartialRefreshHMC(0.2, 1, 0.95), n_draws=200, n_chains=2, seed=5)
+    run = pg.sample(t, pg.PartialRefreshHMC(0.2, 1, 0.95), n_draws=200, n_chains=2, seed=5, warmup=0)
     digest = run.summary()
     assert all(np.isnan(b) for b in np.atleast_1d(digest.run_info["ebfmi"]))
     assert not any("E-BFMI" in w for w in digest.warnings)
-    full = pg.sample(t, pg.PartialRefreshHMC(0.2, 10, 0.0), n_draws=200, n_chains=2, seed=5)
+    full = pg.sample(t, pg.PartialRefreshHMC(0.2, 10, 0.0), n_draws=200, n_chains=2, seed=5, warmup=0)
     assert np.all(np.isfinite(full.summary().run_info["ebfmi"]))

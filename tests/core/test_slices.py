@@ -94,7 +94,7 @@ def test_choose_limits_from_draws_trajectories_and_runs():
     tr = pg.leapfrog(t, [0.0, 0.0], [1.0, 1.0], 0.1, 10)
     (x0, x1), _ = choose_limits(tr, pad=0.0)
     assert x0 == pytest.approx(tr.positions[:, 0].min()) and x1 == pytest.approx(tr.positions[:, 0].max())
-    run = pg.sample(t, pg.HMC(0.3, 5), n_draws=20, n_chains=2, seed=1)
+    run = pg.sample(t, pg.HMC(0.3, 5), n_draws=20, n_chains=2, seed=1, warmup=0)
     assert choose_limits(run, coords=("clock_2", "clock_1"), names=run.names, pad=0.0)[0] == \
         pytest.approx((run.draws[..., 1].min(), run.draws[..., 1].max()))
 

@@ -61,7 +61,7 @@ def test_uniform_sequence_from_a_drifting_run(ax, funnel_run):
     import phaseglass as pg
 
     run = pg.sample(pg.demos.correlated_gaussian(), pg.HMC(0.6, 3, uniform="drifting"),
-                    n_draws=60, n_chains=1, seed=2)
+                    n_draws=60, n_chains=1, seed=2, warmup=0)
     d = draw_uniform_sequence(ax, run.u[0], run.accepted[0], run.accept_prob[0])
     n_rej = int((~run.accepted[0]).sum())
     assert len(d.rejected.get_xdata()) == n_rej

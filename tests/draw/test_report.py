@@ -96,7 +96,7 @@ def test_summary_json(funnel_report):
 
 def test_random_walk_report_leaves_out_leapfrog_views(tmp_path):
     run = pg.sample(pg.demos.correlated_gaussian(), pg.RandomWalk(1.0), n_draws=40, n_chains=2,
-                    seed=3)
+                    seed=3, warmup=0)
     files = write_report(tmp_path, run, dpi=30)
     assert "trajectory" not in files.figures and "tuning" not in files.figures
     assert {"uniforms", "traces", "pairs"} <= set(files.figures)
@@ -107,9 +107,9 @@ def test_random_walk_report_leaves_out_leapfrog_views(tmp_path):
 
 
 def test_rewriting_a_folder_drops_only_the_earlier_reports_stale_figures(tmp_path):
-    hmc = pg.sample(pg.demos.correlated_gaussian(), pg.HMC(0.3, 4), n_draws=20, n_chains=2, seed=1)
+    hmc = pg.sample(pg.demos.correlated_gaussian(), pg.HMC(0.3, 4), n_draws=20, n_chains=2, seed=1, warmup=0)
     walk = pg.sample(pg.demos.correlated_gaussian(), pg.RandomWalk(1.0), n_draws=20, n_chains=2,
-                     seed=1)
+                     seed=1, warmup=0)
     write_report(tmp_path, hmc, grid=False, dpi=20)
     assert (tmp_path / "trajectory.png").exists()
     (tmp_path / "notes.txt").write_text("not ours")
@@ -120,7 +120,7 @@ def test_rewriting_a_folder_drops_only_the_earlier_reports_stale_figures(tmp_pat
 
 def test_a_folder_without_an_earlier_report_is_refused(tmp_path):
     run = pg.sample(pg.demos.correlated_gaussian(), pg.RandomWalk(1.0), n_draws=20, n_chains=2,
-                    seed=1)
+                    seed=1, warmup=0)
     (tmp_path / "tuning.png").write_bytes(b"from somewhere else")
     with pytest.raises(ValueError, match="`out_dir`.*no earlier phaseglass report.*replace=True"):
         write_report(tmp_path, run, dpi=20)
@@ -129,7 +129,7 @@ def test_a_folder_without_an_earlier_report_is_refused(tmp_path):
 
 
 def test_report_needs_target_and_kernel(tmp_path):
-    run = pg.sample(pg.demos.correlated_gaussian(), pg.HMC(0.3, 4), n_draws=10, n_chains=1, seed=1)
+    run = pg.sample(pg.demos.correlated_gaussian(), pg.HMC(0.3, 4), n_draws=10, n_chains=1, seed=1, warmup=0)
     run.target = None
     with pytest.raises(ValueError, match="target and kernel"):
         write_report(tmp_path, run)
@@ -137,7 +137,7 @@ def test_report_needs_target_and_kernel(tmp_path):
 
 def test_gibbs_report_shows_paths_and_spread(tmp_path):
     run = pg.sample(pg.demos.correlated_gaussian(), pg.Gibbs(shared_stream=True), n_draws=40,
-                    n_chains=3, seed=2)
+                    n_chains=3, seed=2, warmup=0)
     files = write_report(tmp_path, run, dpi=30)
     assert "gibbs" in files.figures and "uniforms" not in files.figures
     assert "trajectory" not in files.figures and "ess_per_gradient" not in files.figures

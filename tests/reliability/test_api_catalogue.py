@@ -86,27 +86,27 @@ RAISES = [
      r"`persistence` must lie in \[0, 1\)"),
     ("DriftingUniform: drift 3", lambda: pg.DriftingUniform(3.0), ValueError, r"`drift`"),
     ("sample: target_accept 5 without warm-up",
-     lambda: pg.sample(gauss(), pg.HMC(0.2, 5), n_draws=10, target_accept=5, seed=1),
+     lambda: pg.sample(gauss(), pg.HMC(0.2, 5), n_draws=10, target_accept=5, seed=1, warmup=0),
      ValueError, r"`target_accept` must lie in"),
     ("sample: metric_adaptation 'full'",
-     lambda: pg.sample(gauss(), pg.HMC(0.2, 5), n_draws=10, metric_adaptation="full", seed=1),
+     lambda: pg.sample(gauss(), pg.HMC(0.2, 5), n_draws=10, metric_adaptation="full", seed=1, warmup=0),
      ValueError, r"`metric_adaptation` must be one of"),
-    ("sample: kernel as a string", lambda: pg.sample(gauss(), "hmc", n_draws=10), TypeError,
+    ("sample: kernel as a string", lambda: pg.sample(gauss(), "hmc", n_draws=10, warmup=0), TypeError,
      r"`kernel` must be a phaseglass kernel"),
     ("sample: a log-density instead of a Target",
-     lambda: pg.sample(quad, pg.HMC(0.2, 5), n_draws=10), TypeError,
+     lambda: pg.sample(quad, pg.HMC(0.2, 5), n_draws=10, warmup=0), TypeError,
      r"`target` must be a phaseglass Target"),
-    ("sample: zero draws", lambda: pg.sample(gauss(), pg.HMC(0.2, 5), n_draws=0), ValueError,
+    ("sample: zero draws", lambda: pg.sample(gauss(), pg.HMC(0.2, 5), n_draws=0, warmup=0), ValueError,
      r"`n_draws` must be >= 1"),
     ("sample: NaN initial",
-     lambda: pg.sample(gauss(), pg.HMC(0.2, 5), [np.nan, 0.0], n_draws=5, seed=1), ValueError,
+     lambda: pg.sample(gauss(), pg.HMC(0.2, 5), [np.nan, 0.0], n_draws=5, seed=1, warmup=0), ValueError,
      r"`initial` has a non-finite log-density"),
     ("sample: initial of the wrong shape",
-     lambda: pg.sample(gauss(), pg.HMC(0.2, 5), np.zeros((3, 2)), n_draws=5, n_chains=4),
+     lambda: pg.sample(gauss(), pg.HMC(0.2, 5), np.zeros((3, 2)), n_draws=5, n_chains=4, warmup=0),
      ValueError, r"`initial` must have shape"),
     ("sample: initial outside the support",
      lambda: pg.sample(pg.Target(lambda x: -x[0], lambda x: -np.ones(1), dim=1, bounds=[(0, None)]),
-                       pg.HMC(0.2, 5), [-1.0], n_draws=5, seed=1),
+                       pg.HMC(0.2, 5), [-1.0], n_draws=5, seed=1, warmup=0),
      ValueError, r"`initial`"),
     ("kernel_from_settings: unknown uniform kind",
      lambda: pg.kernel_from_settings({"kernel": "HMC", "step_size": 0.1, "n_steps": 3,
@@ -132,7 +132,7 @@ RAISES = [
     ("Gibbs: conditionals not callable", lambda: pg.Gibbs(conditionals=3), TypeError,
      r"`conditionals` must be None or a callable"),
     ("Gibbs: a conditional without ppf",
-     lambda: pg.sample(gauss(), pg.Gibbs(lambda i, x: object()), n_draws=2, n_chains=1, seed=1),
+     lambda: pg.sample(gauss(), pg.Gibbs(lambda i, x: object()), n_draws=2, n_chains=1, seed=1, warmup=0),
      TypeError, r"must return an object with cdf and ppf"),
     ("ess: a string array", lambda: dg.ess(np.array([["a", "b"]])), TypeError,
      r"`draws` must be an array of real numbers"),
@@ -159,7 +159,7 @@ def test_point_function_declared_vectorized_is_caught_when_chains_equal_dim():
         warnings.simplefilter("ignore")
         target = pg.Target(lp, dim=4, vectorized=True)
     with pytest.raises(ValueError, match=r"vectorized=True, but `log_density`.*vectorized=False"):
-        pg.sample(target, pg.HMC(0.2, 5), n_draws=20, n_chains=4, seed=1)
+        pg.sample(target, pg.HMC(0.2, 5), n_draws=20, n_chains=4, seed=1, warmup=0)
 
 
 def test_point_function_declared_vectorized_with_one_chain_says_why():
@@ -168,7 +168,7 @@ def test_point_function_declared_vectorized_with_one_chain_says_why():
         warnings.simplefilter("ignore")
         target = pg.Target(lp, dim=2, vectorized=True)
     with pytest.raises(IndexError) as info:
-        pg.sample(target, pg.HMC(0.2, 5), n_draws=20, n_chains=1, seed=1)
+        pg.sample(target, pg.HMC(0.2, 5), n_draws=20, n_chains=1, seed=1, warmup=0)
     assert any("pass vectorized=False" in n for n in getattr(info.value, "__notes__", []))
 
 
@@ -184,7 +184,7 @@ def test_a_truly_vectorized_function_samples_the_right_distribution():
 def test_gibbs_conditionals_of_another_distribution_warn():
     target = pg.Target(quad, quad_grad, dim=2)  # N(0, I)
     with pytest.warns(UserWarning, match=r"`conditionals` do not match the target"):
-        pg.sample(target, pg.Gibbs(lambda i, x: st.norm(5.0, 1.0)), n_draws=3, seed=1)
+        pg.sample(target, pg.Gibbs(lambda i, x: st.norm(5.0, 1.0)), n_draws=3, seed=1, warmup=0)
 
 
 def test_gibbs_conditionals_that_match_do_not_warn():
@@ -192,7 +192,7 @@ def test_gibbs_conditionals_that_match_do_not_warn():
     target = pg.Target(quad, quad_grad, dim=2)
     with warnings.catch_warnings():
         warnings.simplefilter("error")
-        pg.sample(target, pg.Gibbs(lambda i, x: st.norm(0.0, 1.0)), n_draws=3, seed=1)
+        pg.sample(target, pg.Gibbs(lambda i, x: st.norm(0.0, 1.0)), n_draws=3, seed=1, warmup=0)
 
 
 def test_one_chain_passed_as_draw_by_dim_warns():
@@ -238,7 +238,7 @@ def test_error_in_the_log_density_keeps_the_finished_draws():
 
     target = pg.Target(flaky, quad_grad, dim=2)
     with pytest.raises(RuntimeError, match="solver failed") as info:
-        pg.sample(target, pg.HMC(0.2, 5), n_draws=100, seed=1)
+        pg.sample(target, pg.HMC(0.2, 5), n_draws=100, seed=1, warmup=0)
     run = info.value.partial_run
     assert 0 < run.n_draws < 100 and run.stopped.startswith("RuntimeError")
     assert any("exc.partial_run" in n for n in getattr(info.value, "__notes__", []))
@@ -351,4 +351,4 @@ def test_keeping_every_trajectory_of_a_long_run_warns_with_its_memory(monkeypatc
     monkeypatch.setattr(sampling, "TRAJECTORY_MEMORY_WARNING", 1 << 20)  # 1 MiB for the test
     with pytest.warns(UserWarning, match=r"keep_trajectories=True will hold about .* GiB"):
         pg.sample(gauss(), pg.HMC(0.2, 10), n_draws=2000, n_chains=4, keep_trajectories=True,
-                  seed=1)
+                  seed=1, warmup=0)

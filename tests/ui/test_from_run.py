@@ -21,7 +21,7 @@ def tuned_run(badly_scaled):
 @pytest.fixture(scope="module")
 def divergent_run(badly_scaled):
     """Identity metric and a step size far past the narrow coordinate's stability limit (2 * 0.1)."""
-    return pg.sample(badly_scaled, pg.HMC(0.5, 10, jitter=0.0), n_draws=40, n_chains=2, seed=3)
+    return pg.sample(badly_scaled, pg.HMC(0.5, 10, jitter=0.0), n_draws=40, n_chains=2, seed=3, warmup=0)
 
 
 # ---------------------------------------------------------------- TrajectoryView
@@ -218,7 +218,7 @@ def test_divergence_view_from_run_and_trajectory_view_needs_a_step_size(divergen
     assert view.run is divergent_run and len(view.divergences) == len(divergent_run.divergences)
     with pytest.raises(TypeError, match="`run`"):
         pg.DivergenceView.from_run(divergent_run.target)
-    walk = pg.sample(tuned_run.target, pg.RandomWalk(0.5), n_draws=10, n_chains=2, seed=0)
+    walk = pg.sample(tuned_run.target, pg.RandomWalk(0.5), n_draws=10, n_chains=2, seed=0, warmup=0)
     with pytest.raises(ValueError, match="`run` used a RandomWalk"):
         pg.TrajectoryView.from_run(walk)
     assert pg.ChainView.from_run(walk).kernel_name == "walk"

@@ -11,7 +11,7 @@ from .kernels import HMC, ChainState, Kernel, PartialRefreshHMC, RandomWalk, ker
 from .leapfrog import Trajectory, leapfrog, leapfrog_step
 from .metric import Metric
 from .run import CAUTION, Digest, Run
-from .sampling import Sampler, sample
+from .sampling import Sampler, auto_warmup, sample
 from .slices import choose_limits, log_density_grid, resolve_coords
 from .streams import Streams
 from .target import GradientCheck, Target
@@ -22,7 +22,7 @@ __all__ = [
     "Target", "GradientCheck", "Metric", "leapfrog", "leapfrog_step", "Trajectory",
     "Kernel", "ChainState", "HMC", "PartialRefreshHMC", "RandomWalk", "Gibbs",
     "FreshUniform", "DriftingUniform", "kernel_from_settings",
-    "Sampler", "sample", "Run", "Digest", "CAUTION", "Streams",
+    "Sampler", "sample", "auto_warmup", "Run", "Digest", "CAUTION", "Streams",
     "DualAveraging", "estimate_metric",
     "ess", "rhat", "mcse", "autocorrelation", "ebfmi", "demos",
     "log_density_grid", "choose_limits", "resolve_coords",

@@ -73,6 +73,7 @@ class Run:
         self.first_draw = first_draw
         self.names = tuple(names) if names is not None else tuple(f"x[{i}]" for i in range(draws.shape[-1]))
         self.n_warmup = 0
+        self.warmup_auto = False  # True when sample() chose the warm-up length itself
         self.warmup_history = None
         self.stopped = None  # why a run ended early ("interrupted", an error), else None
 
@@ -116,7 +117,12 @@ class Run:
 
     def __repr__(self):
         kname = type(self.kernel).__name__ if self.kernel is not None else "?"
-        return (f"Run({kname}: {self.n_chains} chains x {self.n_draws} draws, dim={self.dim}, "
+        if self.n_warmup:
+            warm = (f" after {self.n_warmup} warm-up"
+                    f"{' (automatic length; warmup=0 switches it off)' if self.warmup_auto else ''}")
+        else:
+            warm = ", no warm-up"
+        return (f"Run({kname}: {self.n_chains} chains x {self.n_draws} draws{warm}, dim={self.dim}, "
                 f"acceptance {np.mean(self.accepted) if self.n_draws else float('nan'):.2f}, "
                 f"{self.n_divergent} divergent, {self.total_grad} gradient evaluations"
                 f"{'; stopped early: ' + self.stopped if self.stopped else ''})")

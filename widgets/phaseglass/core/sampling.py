@@ -18,7 +18,7 @@ from .run import Run
 from .streams import Streams
 from .target import Target
 
-__all__ = ["Sampler", "sample"]
+__all__ = ["Sampler", "sample", "auto_warmup"]
 
 _INIT_TRIES = 100
 _START_KEY = 2**32 - 1  # spawn key of the streams that draw random starts
@@ -358,7 +358,21 @@ def _select(traj, row):
     )
 
 
-def sample(target, kernel, initial=None, n_draws=1000, *, n_chains=4, warmup=0, seed=None,
+#: The automatic warm-up length: as many transitions as draws, but at least
+#: ``AUTO_WARMUP_MIN`` (enough for the metric windows and for dual averaging
+#: to settle) and at most ``AUTO_WARMUP_MAX`` (longer runs gain little from a
+#: longer warm-up). Equal warm-up and draw counts are common practice; the
+#: bounds are our own choice.
+AUTO_WARMUP_MIN = 200
+AUTO_WARMUP_MAX = 1000
+
+
+def auto_warmup(n_draws):
+    """The warm-up length ``sample`` uses when ``warmup="auto"`` (the default)."""
+    return int(min(max(int(n_draws), AUTO_WARMUP_MIN), AUTO_WARMUP_MAX))
+
+
+def sample(target, kernel, initial=None, n_draws=1000, *, n_chains=4, warmup="auto", seed=None,
            target_accept=None, keep_trajectories=False, metric_adaptation="diagonal",
            progress=False):
     """Draw from ``target`` with ``kernel`` on several chains.
@@ -373,11 +387,14 @@ def sample(target, kernel, initial=None, n_draws=1000, *, n_chains=4, warmup=0, 
     n_draws : int
         Draws kept per chain after warm-up.
     n_chains : int
-    warmup : int
+    warmup : "auto" or int
         Transitions of tuning before the kept draws: dual averaging of the
-        step size (Hoffman & Gelman 2014, JMLR, sec. 3.2) toward
-        ``target_accept``, and a regularised metric estimated from warm-up
-        draws.
+        step size (Hoffman & Gelman, "The No-U-Turn Sampler", JMLR 15, 2014,
+        sec. 3.2) toward ``target_accept``, and a regularised metric
+        estimated from warm-up draws. ``"auto"`` (the default) warms up for
+        ``auto_warmup(n_draws)`` transitions (as many as draws, between
+        200 and 1000); ``warmup=0`` switches warm-up off, so the kernel's
+        own step size and mass matrix are used exactly as given.
     seed : None, int, SeedSequence or Generator
         The same seed gives identical draws.
     target_accept : float, optional
@@ -411,7 +428,11 @@ def sample(target, kernel, initial=None, n_draws=1000, *, n_chains=4, warmup=0, 
             f"got {type(kernel).__name__}"
         )
     n_draws = check_int("n_draws", n_draws, minimum=1)
-    warmup = check_int("warmup", warmup, minimum=0)
+    auto = isinstance(warmup, str)
+    if auto and warmup != "auto":
+        raise ValueError(f'`warmup` must be "auto" or a whole number of transitions '
+                         f'(0 switches warm-up off), got {warmup!r}')
+    warmup = auto_warmup(n_draws) if auto else check_int("warmup", warmup, minimum=0)
     check_in("metric_adaptation", metric_adaptation, ("diagonal", "dense", None))
     if target_accept is not None:  # checked even without warm-up: a typo is still a typo
         target_accept = check_fraction("target_accept", target_accept)
@@ -447,6 +468,7 @@ def sample(target, kernel, initial=None, n_draws=1000, *, n_chains=4, warmup=0, 
         raise
     run = sampler.run
     run.n_warmup = warmup
+    run.warmup_auto = auto
     run.warmup_history = history
     return run
 
