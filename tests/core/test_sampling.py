@@ -13,6 +13,7 @@ import pytest
 import scipy.stats
 
 import phaseglass as pg
+from phaseglass.core.run import CAUTION
 from phaseglass.core.diagnostics import ess, mcse, rhat
 
 # ----------------------------------------------------------------------------- helpers
@@ -294,11 +295,11 @@ def test_summary_of_a_divergent_run(orchard_runs, capsys):
     print(digest)
     out = capsys.readouterr().out
     assert "log_tau" in out and "effect_7" in out
-    assert pg.CAUTION in " ".join(out.split())  # wrapped to fit a notebook column
+    assert CAUTION in " ".join(out.split())  # wrapped to fit a notebook column
     assert max(len(line) for line in out.splitlines()) <= 100
     assert any("divergent transition" in w for w in digest.warnings)
     d = json.loads(json.dumps(digest.as_dict()))
-    assert d["caution"] == pg.CAUTION
+    assert d["caution"] == CAUTION
     assert d["run"]["divergences"] == run.n_divergent
     assert set(d["parameters"]) == set(run.names)
     assert any("divergent" in w for w in d["warnings"])
@@ -309,10 +310,10 @@ def test_summary_prints_and_is_json_serialisable(capsys):
     digest = run.summary()
     print(digest)
     out = capsys.readouterr().out
-    assert "clock_1" in out and pg.CAUTION in " ".join(out.split())
+    assert "clock_1" in out and CAUTION in " ".join(out.split())
     text = json.dumps(digest.as_dict())  # must not raise (no numpy scalars, NaN -> null)
     d = json.loads(text)
-    assert d["caution"] == pg.CAUTION
+    assert d["caution"] == CAUTION
     assert d["run"]["chains"] == 2 and d["run"]["draws_per_chain"] == 50
     assert d["run"]["kernel"]["kernel"] == "HMC"
     assert set(d["parameters"]["clock_1"]) == set(digest.columns)

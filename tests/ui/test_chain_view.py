@@ -8,6 +8,7 @@ import traitlets
 from PIL import Image
 
 import phaseglass as pg
+from phaseglass.core.run import CAUTION
 
 
 @pytest.fixture(scope="module")
@@ -41,7 +42,7 @@ def test_step_records_run_and_artists_show_it(glaze):
     traj = view.sampler.last_trajectory
     assert np.allclose(view._traj.path.get_xydata()[0], traj.positions[0, 0, :2])
     assert "25 transitions \u00d7 3 chains" in view._readout.value
-    assert pg.CAUTION in view._readout.value
+    assert CAUTION in view._readout.value
 
 
 def test_same_seed_same_draws_as_sample(glaze):

@@ -9,6 +9,7 @@ import traitlets
 from PIL import Image
 
 import phaseglass as pg
+from phaseglass.core.run import CAUTION
 from phaseglass.ui import tuning_map
 from phaseglass.ui.tuning_map import QUANTITIES, TuningMap
 
@@ -166,7 +167,7 @@ def test_readout_counts_cells_names_the_best_and_cautions(computed):
     i, j, _ = computed.best_cell()
     assert f"step size {STEP_SIZES[j]:.3g}, {N_STEPS[i]} steps" in text
     assert "noisy" in text and "short run" in text
-    assert pg.CAUTION in text
+    assert CAUTION in text
 
 
 def test_clicking_a_cell_opens_a_trajectory_view(computed, fire):

@@ -21,3 +21,8 @@ def __getattr__(name):
 
         return getattr(ui, name)
     raise AttributeError(f"module 'phaseglass' has no attribute {name!r}")
+
+
+def __dir__():
+    """The public names, the lazily imported views included (for tab completion)."""
+    return sorted(set(globals()) | set(__all__))

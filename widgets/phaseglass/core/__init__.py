@@ -4,27 +4,27 @@ Pure numpy/scipy; never imports matplotlib or ipywidgets, so it works from a pla
 """
 
 from . import demos
-from .adaptation import DualAveraging, estimate_metric
 from .diagnostics import autocorrelation, ebfmi, ess, mcse, rhat
 from .gibbs import Gibbs
-from .kernels import HMC, ChainState, Kernel, PartialRefreshHMC, RandomWalk, kernel_from_settings
-from .leapfrog import Trajectory, leapfrog, leapfrog_step
+from .kernels import HMC, Kernel, PartialRefreshHMC, RandomWalk, kernel_from_settings
+from .leapfrog import Trajectory, leapfrog
 from .metric import Metric
-from .run import CAUTION, Digest, Run
+from .run import Digest, Run
 from .sampling import Sampler, auto_warmup, sample
-from .slices import choose_limits, log_density_grid, resolve_coords
-from .streams import Streams
+from .slices import log_density_grid
 from .target import GradientCheck, Target
 from .triage import DivergenceRanking, divergence_ranking
 from .uniforms import DriftingUniform, FreshUniform
 
+#: What a user calls. Internals (``leapfrog_step``, ``ChainState``, ``Streams``,
+#: ``resolve_coords``, ``choose_limits``, ``CAUTION``, ``DualAveraging``,
+#: ``estimate_metric``) stay importable from their own modules.
 __all__ = [
-    "Target", "GradientCheck", "Metric", "leapfrog", "leapfrog_step", "Trajectory",
-    "Kernel", "ChainState", "HMC", "PartialRefreshHMC", "RandomWalk", "Gibbs",
+    "Target", "GradientCheck", "Metric", "leapfrog", "Trajectory",
+    "Kernel", "HMC", "PartialRefreshHMC", "RandomWalk", "Gibbs",
     "FreshUniform", "DriftingUniform", "kernel_from_settings",
-    "Sampler", "sample", "auto_warmup", "Run", "Digest", "CAUTION", "Streams",
-    "DualAveraging", "estimate_metric",
+    "Sampler", "sample", "auto_warmup", "Run", "Digest",
     "ess", "rhat", "mcse", "autocorrelation", "ebfmi", "demos",
-    "log_density_grid", "choose_limits", "resolve_coords",
+    "log_density_grid",
     "divergence_ranking", "DivergenceRanking",
 ]
