@@ -305,3 +305,18 @@ def test_wrong_point_shape_is_named():
     t = Target(quad_logp, quad_grad, dim=2)
     with pytest.raises(ValueError, match=r"`x` must have shape \(2,\) or \(n, 2\), got shape \(3,\)"):
         t.log_density([1.0, 2.0, 3.0])
+
+
+def test_uncounted_restores_the_counts_even_when_the_block_raises():
+    t = pg.demos.correlated_gaussian()
+    t.log_density(np.zeros(2))
+    before = (t.n_density, t.n_grad)
+    with t.uncounted():
+        t.value_and_grad(np.ones((3, 2)))
+        t.grad(np.ones(2))
+    assert (t.n_density, t.n_grad) == before
+    with pytest.raises(RuntimeError):
+        with t.uncounted():
+            t.grad(np.ones(2))
+            raise RuntimeError("user code failed")
+    assert (t.n_density, t.n_grad) == before

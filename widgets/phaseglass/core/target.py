@@ -1,5 +1,6 @@
 """Wrap a user's log-density so every sampler sees one counted, checked interface."""
 
+import contextlib
 import warnings
 from dataclasses import dataclass
 
@@ -332,6 +333,19 @@ class Target:
         self.n_density = 0
         self.n_grad = 0
 
+    @contextlib.contextmanager
+    def uncounted(self):
+        """Evaluations inside this block are not counted (checks, previews, replays).
+
+        ``n_density`` and ``n_grad`` are restored on exit, also when the block
+        raises, so views and checks never inflate a run's cost.
+        """
+        counts = (self.n_density, self.n_grad)
+        try:
+            yield self
+        finally:
+            self.n_density, self.n_grad = counts
+
     # ------------------------------------------------------------ user scale
     @property
     def bounded(self):
@@ -575,13 +589,12 @@ class Target:
                 "already; pass grad=... or value_and_grad=... to Target"
             )
         pts, _ = as_points("x", x, self.dim)
-        counts = (self.n_density, self.n_grad)
-        if self._user_grad is not None:
-            supplied = self._call_grad(pts)
-        else:
-            supplied = self._call_vg(pts)[1]
-        numeric = self._fd_grad(pts)
-        self.n_density, self.n_grad = counts  # a check is not sampling work
+        with self.uncounted():  # a check is not sampling work
+            if self._user_grad is not None:
+                supplied = self._call_grad(pts)
+            else:
+                supplied = self._call_vg(pts)[1]
+            numeric = self._fd_grad(pts)
         with np.errstate(all="ignore"):
             rel = np.abs(supplied - numeric) / (np.maximum(np.abs(supplied), np.abs(numeric)) + atol)
         rel = np.where(np.isfinite(supplied) & np.isfinite(numeric), rel, np.inf)

@@ -81,15 +81,13 @@ def pilot(target, *, seed=0, n_chains=2):
         found = _cache.get(target, {}).get(key)
         if found is not None:
             return found
-        counts = (target.n_density, target.n_grad)
         try:
-            run = sample(target, HMC(0.1, 10), n_draws=_PILOT_DRAWS, n_chains=n_chains,
-                         warmup=_PILOT_WARMUP, seed=seed, metric_adaptation=None)
+            with target.uncounted():  # a view's pilot is not the user's work
+                run = sample(target, HMC(0.1, 10), n_draws=_PILOT_DRAWS, n_chains=n_chains,
+                             warmup=_PILOT_WARMUP, seed=seed, metric_adaptation=None)
             found = Pilot(target, run.unconstrained, run.draws[:, -1].copy(), run.kernel.step_size)
         except Exception as exc:  # user code can raise anything: the view falls back and says so
             return Pilot(target, None, None, 0.1, error=exc)
-        finally:
-            target.n_density, target.n_grad = counts  # a view's pilot is not the user's work
         _cache.setdefault(target, {})[key] = found
         return found
 
@@ -134,13 +132,10 @@ class GridCache:
         key = (tuple(coords), tuple(map(float, xlim)), tuple(map(float, ylim)),
                tuple(rest) if self.target.dim > 2 else None)
         if key != self.key:
-            counts = (self.target.n_density, self.target.n_grad)
             errors = []
-            try:
+            with self.target.uncounted():
                 self.grid = log_density_grid(self.target, tuple(coords), through, xlim, ylim,
                                              n=self.n, errors=errors)
-            finally:
-                self.target.n_density, self.target.n_grad = counts
             self.problem = None
             if errors:
                 failed, exc = errors[0]

@@ -102,19 +102,15 @@ def peek_next_transition(sampler):
     target, kernel = sampler.target, sampler.kernel
     state = sampler.state.copy()
     streams = copy.deepcopy(sampler.streams)
-    counts = (target.n_density, target.n_grad)
-    try:
-        with np.errstate(all="ignore"):
-            proposal = None
-            if isinstance(kernel, RandomWalk):
-                # the walk keeps no trajectory: its first draw is the step, read from a second copy
-                look = copy.deepcopy(streams)
-                proposal = state.position[0] + kernel.scale * kernel.metric.spread_from_normal(
-                    look.normal(target.dim))[0]
-            start = state.position[0].copy()
-            info = kernel.transition(target, state, streams, record=True)
-    finally:
-        target.n_density, target.n_grad = counts
+    with target.uncounted(), np.errstate(all="ignore"):
+        proposal = None
+        if isinstance(kernel, RandomWalk):
+            # the walk keeps no trajectory: its first draw is the step, read from a second copy
+            look = copy.deepcopy(streams)
+            proposal = state.position[0] + kernel.scale * kernel.metric.spread_from_normal(
+                look.normal(target.dim))[0]
+        start = state.position[0].copy()
+        info = kernel.transition(target, state, streams, record=True)
     traj = info.get("trajectory")
     if traj is not None:
         traj = one_chain(traj, 0)

@@ -240,18 +240,16 @@ class ShiftGibbsView(View):
         """Draws (m, dim) of a short ordinary-Gibbs pilot (independent streams), sampler's scale."""
         pilot = Gibbs(self.kernel.conditionals, shift=None, shared_stream=False,
                       grid_size=self.kernel.grid_size)
-        counts = (self.target.n_density, self.target.n_grad)
         try:
-            s = Sampler(self.target, pilot, n_chains=_PILOT_CHAINS, seed=_PILOT_SEED)
-            s.step(_PILOT_DRAWS)
+            with self.target.uncounted():  # a view is not sampling work
+                s = Sampler(self.target, pilot, n_chains=_PILOT_CHAINS, seed=_PILOT_SEED)
+                s.step(_PILOT_DRAWS)
             z = s.run.unconstrained[:, _PILOT_DRAWS // 4:].reshape(-1, self.target.dim)
             z = z[np.all(np.isfinite(z), axis=1)]
             return z if len(z) >= MAX_CHAINS else None
         except Exception as exc:  # user code: report, fall back to random starts
             self.report_error("the pilot run (random starts are used instead)", exc)
             return None
-        finally:
-            self.target.n_density, self.target.n_grad = counts  # a view is not sampling work
 
     def _starts(self):
         """User-scale starts (n_chains, dim) spread over the pilot draws, or None."""

@@ -331,12 +331,9 @@ class TrajectoryView(View):
         return self._metric().momentum_from_normal(z)
 
     def _integrate(self):
-        counts = (self.target.n_density, self.target.n_grad)
-        try:
+        with self.target.uncounted():
             return leapfrog(self.target, self.start, self.momentum, self.step_size, self.n_steps,
                             metric=self._metric(), max_energy_error=self.max_energy_error)
-        finally:
-            self.target.n_density, self.target.n_grad = counts
 
     def resample_momentum(self):
         """Partial refresh of the momentum: p <- a p + sqrt(1 - a^2) xi, xi ~ N(0, M)."""
