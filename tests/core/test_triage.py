@@ -120,8 +120,8 @@ def test_worst_mixing_puts_the_badly_mixing_parameters_first():
     worst = digest.worst_mixing(5)
     assert worst.shape == (5,)
     assert worst[0] == 17 and worst[1] == 5
-    ess = np.fmin(digest["ess_centre"], digest["ess_tails"])
-    assert ess[17] == ess.min() and digest["rhat_rank"][17] == np.nanmax(digest["rhat_rank"])
+    ess = np.fmin(digest["bulk_ess"], digest["tail_ess"])
+    assert ess[17] == ess.min() and digest["split_rhat"][17] == np.nanmax(digest["split_rhat"])
     assert digest.worst_mixing(100).shape == (30,)
     with pytest.raises(ValueError, match="`k`"):
         digest.worst_mixing(0)

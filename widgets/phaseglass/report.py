@@ -49,14 +49,8 @@ WRITTEN_BY = "phaseglass report"
 _OWN_NAMES = frozenset([f"{n}.png" for n in FIGURE_NAMES] + ["chain.gif", "summary.json",
                                                               "report.html"])
 
-_COLUMN_TITLES = {
-    "mean": "mean", "sd": "sd", "q5": "5%", "q95": "95%", "ess_centre": "bulk ESS",
-    "ess_tails": "tail ESS", "rhat_rank": "R-hat", "mcse_mean": "MCSE of mean",
-}
-
-
 _RUN_TITLES = {
-    "draws_per_chain": "draws per chain", "min_ess_centre": "lowest bulk ESS",
+    "draws_per_chain": "draws per chain", "lowest_bulk_ess": "lowest bulk ESS",
     "ess_per_gradient": "lowest bulk ESS per gradient evaluation",
     "ebfmi": "E-BFMI per chain", "gradient_evaluations": "gradient evaluations",
 }
@@ -704,7 +698,7 @@ code{background:#f4f4ef;padding:0 .25em}footer{margin-top:2.5em;font-size:.8em;c
 """
 
 
-def _fmt(v, column=None):
+def _fmt(v, kind=None):
     if v is None or (isinstance(v, float) and not np.isfinite(v)):
         return "n/a"
     if isinstance(v, (bool, np.bool_)):
@@ -712,7 +706,7 @@ def _fmt(v, column=None):
     if isinstance(v, (int, np.integer)):
         return f"{int(v):,}"
     if isinstance(v, (float, np.floating)):
-        if column in ("ess_centre", "ess_tails"):
+        if kind == "ess":
             return f"{v:,.0f}"
         return f"{v:.4g}"
     if isinstance(v, (list, tuple)):
@@ -720,16 +714,6 @@ def _fmt(v, column=None):
     if isinstance(v, dict):
         return "; ".join(f"{k}={_fmt(x)}" for k, x in v.items())
     return str(v)
-
-
-def _flag(column, value, chains):
-    if value is None or not np.isfinite(value):
-        return False
-    if column == "rhat_rank":
-        return value > RHAT_LIMIT
-    if column in ("ess_centre", "ess_tails"):
-        return value < ESS_PER_CHAIN_LIMIT * chains
-    return False
 
 
 def _table(rows, head=None, cls=None):
@@ -774,18 +758,17 @@ def _html(run, digest, summary, images, captions, files):
 
     # diagnostics
     parts.append('<section id="diagnostics"><h2>Diagnostics</h2>')
-    cols = digest.columns
     rows = []
     for name, cells in d["parameters"].items():
         row = [name]
-        for c in cols:
-            v = cells[c]
-            if _flag(c, v, run.n_chains):
-                row.append(f'<td class="flag">\u26a0 {e(_fmt(v, c))}</td>')
+        for c in digest.column_specs:
+            v = cells[c.key]
+            if c.needs_attention(v, run.n_chains):
+                row.append(f'<td class="flag">\u26a0 {e(_fmt(v, c.kind))}</td>')
             else:
-                row.append(_fmt(v, c))
+                row.append(_fmt(v, c.kind))
         rows.append(row)
-    parts.append(_table(rows, ["parameter"] + [_COLUMN_TITLES.get(c, c) for c in cols]))
+    parts.append(_table(rows, ["parameter"] + list(digest.headings().values())))
     parts.append(f"<p>\u26a0 marks R-hat above {RHAT_LIMIT} or ESS below {ESS_PER_CHAIN_LIMIT} "
                  "per chain (thresholds of common practice).</p>")
     info = d["run"]

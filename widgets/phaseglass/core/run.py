@@ -1,6 +1,7 @@
 """``Run``: the record of a sampling run, and its per-parameter digest."""
 
 import textwrap
+from dataclasses import dataclass
 
 import numpy as np
 
@@ -8,7 +9,7 @@ from . import diagnostics as dg
 from .diagnostics import EBFMI_WARNING_LEVEL as EBFMI_LIMIT
 from .diagnostics import RHAT_WARNING_LEVEL as RHAT_LIMIT
 
-__all__ = ["Run", "Digest", "CAUTION"]
+__all__ = ["Run", "Digest", "Column", "COLUMNS", "CAUTION"]
 
 _TEXT_WIDTH = 92  # characters per line of printed summaries
 
@@ -139,45 +140,131 @@ class Run:
         return Digest.from_run(self, probs)
 
 
+@dataclass(frozen=True)
+class Column:
+    """One column of the per-parameter digest.
+
+    Attributes
+    ----------
+    key : str
+        The name in ``Digest.table``, ``digest[key]``, ``as_dict()`` and ``summary.json``.
+    label : str
+        Short heading for printed tables; ``{low}`` and ``{high}`` stand for the
+        quantile levels in percent.
+    description : str
+        What the number is, in a sentence (shown as a tooltip in HTML tables).
+    kind : {"rhat", "ess", "value"}
+        How it is formatted and flagged: ``"ess"`` as a whole number, flagged below
+        ``ESS_PER_CHAIN_LIMIT`` per chain; ``"rhat"`` flagged above ``RHAT_LIMIT``.
+    """
+
+    key: str
+    label: str
+    description: str
+    kind: str = "value"
+
+    def heading(self, probs=(0.05, 0.95)):
+        """The label with the quantile levels filled in."""
+        return self.label.format(**_levels(probs))
+
+    def describe(self, probs=(0.05, 0.95)):
+        """The description with the quantile levels filled in."""
+        return self.description.format(**_levels(probs))
+
+    def needs_attention(self, value, n_chains):
+        """True when ``value`` crosses this column's warning level (R-hat, ESS)."""
+        if value is None or not np.isfinite(value):
+            return False
+        if self.kind == "rhat":
+            return value > RHAT_LIMIT
+        if self.kind == "ess":
+            return value < ESS_PER_CHAIN_LIMIT * n_chains
+        return False
+
+
+def _levels(probs):
+    return {"low": f"{100 * probs[0]:g}", "high": f"{100 * probs[1]:g}"}
+
+
+#: The digest's columns, in the order shown: first what may need attention (do the chains
+#: agree, how many effective draws), then the estimates and their Monte Carlo error.
+COLUMNS = (
+    Column("split_rhat", "R-hat",
+           "rank-normalised split R-hat (Vehtari et al. 2021): about 1 when the chains agree; "
+           f"above {RHAT_LIMIT} they disagree", "rhat"),
+    Column("bulk_ess", "bulk ESS",
+           "effective sample size for the centre of the distribution (rank-normalised "
+           "split chains)", "ess"),
+    Column("tail_ess", "tail ESS",
+           "effective sample size for the 5% and 95% quantiles (the smaller of the two)", "ess"),
+    Column("posterior_mean", "mean", "mean of the draws, chains pooled"),
+    Column("mcse_of_mean", "mean MCSE", "Monte Carlo standard error of that mean"),
+    Column("posterior_sd", "sd", "standard deviation of the draws, chains pooled"),
+    Column("quantile_low", "{low}%", "the lower quantile of the draws ({low}%)"),
+    Column("quantile_high", "{high}%", "the upper quantile of the draws ({high}%)"),
+)
+
+
 class Digest:
     """Per-parameter table and run-level checks; see ``Run.summary``.
 
-    Columns (ours): ``mean``, ``sd``, ``q5``, ``q95``, ``ess_centre`` (bulk ESS),
-    ``ess_tails`` (tail ESS), ``rhat_rank`` (rank-normalised split R-hat),
-    ``mcse_mean``.
+    Columns, in this order (``COLUMNS`` defines them once; text, HTML, JSON and
+    the report all read it):
+
+    ``split_rhat`` (R-hat)
+        Rank-normalised split R-hat: about 1 when the chains agree, flagged above
+        ``RHAT_LIMIT`` (1.01).
+    ``bulk_ess``, ``tail_ess`` (bulk ESS, tail ESS)
+        Effective sample size for the centre of the distribution and for its 5%
+        and 95% quantiles; flagged below ``ESS_PER_CHAIN_LIMIT`` (100) per chain.
+    ``posterior_mean``, ``mcse_of_mean`` (mean, mean MCSE)
+        Mean of the draws (chains pooled) and its Monte Carlo standard error.
+    ``posterior_sd`` (sd)
+        Standard deviation of the draws.
+    ``quantile_low``, ``quantile_high`` (5%, 95% by default)
+        Quantiles of the draws at ``probs``.
+
+    R-hat, the ESS columns and the MCSE need 8 draws per chain (NaN below).
+    ``digest[key]`` is one column, an ndarray of shape (dim,).
 
     With more than ``MANY`` (12) parameters the printed summary (text and HTML)
     first lists the five worst-mixing ones (see ``worst_mixing``) under a
     heading; the full table follows.
     """
 
-    columns = ("mean", "sd", "q5", "q95", "ess_centre", "ess_tails", "rhat_rank", "mcse_mean")
+    column_specs = COLUMNS
+    columns = tuple(c.key for c in COLUMNS)
 
     #: Above this many parameters the printed summary lists the worst-mixing ones first.
     MANY = 12
 
-    def __init__(self, names, table, run_info, warnings):
+    def __init__(self, names, table, run_info, warnings, probs=(0.05, 0.95)):
         self.names = tuple(names)
         self.table = table  # dict column -> ndarray (dim,)
         self.run_info = run_info
         self.warnings = list(warnings)
+        self.probs = tuple(probs)
+
+    def headings(self):
+        """``{key: short heading}`` for printed tables (quantile levels filled in)."""
+        return {c.key: c.heading(self.probs) for c in COLUMNS}
 
     @classmethod
     def from_run(cls, run, probs=(0.05, 0.95)):
 
         x = run.draws
-        table = {
-            "mean": x.mean(axis=(0, 1)),
-            "sd": x.std(axis=(0, 1), ddof=1) if x.shape[0] * x.shape[1] > 1 else np.full(x.shape[2], np.nan),
-            "q5": np.quantile(x, probs[0], axis=(0, 1)),
-            "q95": np.quantile(x, probs[1], axis=(0, 1)),
-        }
-        enough = x.shape[1] >= 8
         nan = np.full(x.shape[2], np.nan)
-        table["ess_centre"] = dg.ess(x, method="bulk") if enough else nan
-        table["ess_tails"] = dg.ess(x, method="tail") if enough else nan
-        table["rhat_rank"] = dg.rhat(x) if enough and x.shape[1] >= 8 else nan
-        table["mcse_mean"] = dg.mcse(x, kind="mean") if enough else nan
+        enough = x.shape[1] >= 8
+        table = {
+            "split_rhat": dg.rhat(x) if enough else nan,
+            "bulk_ess": dg.ess(x, method="bulk") if enough else nan,
+            "tail_ess": dg.ess(x, method="tail") if enough else nan,
+            "posterior_mean": x.mean(axis=(0, 1)),
+            "mcse_of_mean": dg.mcse(x, kind="mean") if enough else nan,
+            "posterior_sd": x.std(axis=(0, 1), ddof=1) if x.shape[0] * x.shape[1] > 1 else nan,
+            "quantile_low": np.quantile(x, probs[0], axis=(0, 1)),
+            "quantile_high": np.quantile(x, probs[1], axis=(0, 1)),
+        }
         grads = run.total_grad
         # E-BFMI measures how well a *fresh* momentum draw moves between energy levels;
         # with persistent momentum (partial refresh, persistence > 0) it does not apply.
@@ -187,7 +274,7 @@ class Digest:
                      and getattr(run.kernel, "persistence", 0.0) == 0.0)
         bfmi = dg.ebfmi(run.energy) if energy_ok else np.full(run.n_chains, np.nan)
         bfmi = np.atleast_1d(bfmi)
-        min_ess = float(np.nanmin(table["ess_centre"])) if np.any(np.isfinite(table["ess_centre"])) else np.nan
+        min_ess = float(np.nanmin(table["bulk_ess"])) if np.any(np.isfinite(table["bulk_ess"])) else np.nan
         info = {
             "chains": run.n_chains,
             "draws_per_chain": run.n_draws,
@@ -195,7 +282,7 @@ class Digest:
             "acceptance": float(np.mean(run.accepted)) if run.n_draws else np.nan,
             "divergences": run.n_divergent,
             "gradient_evaluations": grads,
-            "min_ess_centre": min_ess,
+            "lowest_bulk_ess": min_ess,
             "ess_per_gradient": min_ess / grads if grads else np.nan,
             "ebfmi": bfmi.tolist(),
             "kernel": None if run.kernel is None else run.kernel.settings(),
@@ -214,14 +301,14 @@ class Digest:
                 f"E-BFMI below {EBFMI_LIMIT} in {', '.join(low)}: momentum resampling explores the "
                 "energy levels poorly (heavy tails or a badly scaled metric)."
             )
-        bad_rhat = [n for n, r in zip(run.names, table["rhat_rank"]) if np.isfinite(r) and r > RHAT_LIMIT]
+        bad_rhat = [n for n, r in zip(run.names, table["split_rhat"]) if np.isfinite(r) and r > RHAT_LIMIT]
         if bad_rhat:
             warnings.append(
                 f"R-hat above {RHAT_LIMIT} for {', '.join(bad_rhat)}: the chains disagree; run longer "
                 "or look for multimodality or stuck chains."
             )
         limit = ESS_PER_CHAIN_LIMIT * run.n_chains
-        low_ess = [n for n, e in zip(run.names, np.minimum(table["ess_centre"], table["ess_tails"]))
+        low_ess = [n for n, e in zip(run.names, np.minimum(table["bulk_ess"], table["tail_ess"]))
                    if np.isfinite(e) and e < limit]
         if low_ess:
             warnings.append(
@@ -229,7 +316,7 @@ class Digest:
                 "estimates are noisy; run longer or improve the sampler's settings."
             )
         cap = dg.ess_upper_bound(run.n_chains, 2 * (run.n_draws // 2))
-        capped = [n for n, e in zip(run.names, table["ess_centre"])
+        capped = [n for n, e in zip(run.names, table["bulk_ess"])
                   if np.isfinite(e) and np.isfinite(cap) and e >= 0.999 * cap]
         info["ess_at_upper_bound"] = capped
         if capped:
@@ -238,15 +325,17 @@ class Digest:
                 f"(S log10 S = {cap:.0f} for S = {run.n_chains * run.n_draws} draws): the chains are "
                 "strongly antithetic there and the number is a cap, not a measured value."
             )
-        return cls(run.names, table, info, warnings)
+        return cls(run.names, table, info, warnings, probs)
 
     def as_dict(self):
-        """JSON-friendly dict: parameters, run-level figures, warnings and the caution."""
+        """JSON-friendly dict: the columns' meaning, parameters, run-level figures, warnings
+        and the caution."""
         params = {
             name: {c: _jsonable(self.table[c][i]) for c in self.columns}
             for i, name in enumerate(self.names)
         }
         return {
+            "columns": {c.key: c.describe(self.probs) for c in COLUMNS},
             "parameters": params,
             "run": {k: _jsonable(v) for k, v in self.run_info.items()},
             "warnings": list(self.warnings),
@@ -259,8 +348,8 @@ class Digest:
     def worst_mixing(self, k=5):
         """Indices of the ``k`` worst-mixing parameters, worst first.
 
-        A parameter's ESS rank orders ``min(ess_centre, ess_tails)`` from the
-        lowest, its R-hat rank orders ``rhat_rank`` from the highest; it counts
+        A parameter's ESS rank orders ``min(bulk_ess, tail_ess)`` from the
+        lowest, its R-hat rank orders ``split_rhat`` from the highest; it counts
         as bad as the better (smaller) of its two ranks, ties broken by the
         other rank. Parameters whose ESS and R-hat are both NaN come last.
         Returns an ndarray of int of shape (min(k, dim),); names are
@@ -269,8 +358,8 @@ class Digest:
         if isinstance(k, bool) or not isinstance(k, (int, np.integer)) or k < 1:
             raise ValueError(f"`k` must be a positive integer, got {k!r}")
         dim = len(self.names)
-        ess = np.fmin(self.table["ess_centre"], self.table["ess_tails"])
-        rhat = np.asarray(self.table["rhat_rank"], dtype=float)
+        ess = np.fmin(self.table["bulk_ess"], self.table["tail_ess"])
+        rhat = np.asarray(self.table["split_rhat"], dtype=float)
         # NaN sorts last in both orders
         r_ess = np.empty(dim, dtype=int)
         r_ess[np.argsort(np.where(np.isfinite(ess), ess, np.inf), kind="stable")] = np.arange(dim)
@@ -283,15 +372,15 @@ class Digest:
         rows = []
         for i in indices:
             cells = []
-            for c in self.columns:
-                v = self.table[c][i]
-                cells.append(f"{v:>10.0f}" if c.startswith("ess") and np.isfinite(v) else f"{v:>10.4g}")
+            for c in COLUMNS:
+                v = self.table[c.key][i]
+                cells.append(f"{v:>10.0f}" if c.kind == "ess" and np.isfinite(v) else f"{v:>10.4g}")
             rows.append(f"{self.names[i]:<{width}} " + " ".join(cells))
         return rows
 
     def __str__(self):
         width = max([len(n) for n in self.names] + [8])
-        head = f"{'':<{width}} " + " ".join(f"{c:>10}" for c in self.columns)
+        head = f"{'':<{width}} " + " ".join(f"{h:>10}" for h in self.headings().values())
         rows = []
         if len(self.names) > self.MANY:
             rows.append("Worst-mixing parameters (lowest ESS, highest R-hat):")
@@ -325,12 +414,21 @@ class Digest:
     def _repr_html_(self):
         import html
 
-        head = "".join(f"<th>{c}</th>" for c in ("parameter",) + self.columns)
+        head = "<th>parameter</th>" + "".join(
+            f'<th title="{html.escape(c.describe(self.probs))}">{html.escape(c.heading(self.probs))}</th>'
+            for c in COLUMNS)
+        n_chains = self.run_info.get("chains", 1)
+
+        def cell(c, v):
+            text = f"{v:,.0f}" if c.kind == "ess" and np.isfinite(v) else f"{v:.4g}"
+            if c.needs_attention(v, n_chains):
+                return f'<td style="font-weight:bold">\u26a0 {text}</td>'
+            return f"<td>{text}</td>"
 
         def body(indices):
             out = []
             for i in indices:
-                cells = "".join(f"<td>{self.table[c][i]:.4g}</td>" for c in self.columns)
+                cells = "".join(cell(c, self.table[c.key][i]) for c in COLUMNS)
                 out.append(f"<tr><td>{html.escape(self.names[i])}</td>{cells}</tr>")
             return "".join(out)
 
