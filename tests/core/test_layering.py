@@ -12,7 +12,11 @@ import sys
 
 import pytest
 
-HEAVY = ("matplotlib", "ipywidgets", "ipympl", "traitlets", "IPython", "jax", "jaxlib", "torch")
+HEAVY = ("matplotlib", "ipywidgets", "ipympl", "traitlets", "IPython", "jax", "jaxlib", "torch",
+         # scipy's parts cost several times ``import numpy`` each (measured for issue 13:
+         # scipy.special ~0.3 s, scipy.fft ~0.35 s, scipy.stats ~0.8 s on the 2-core CI
+         # machine); the core imports them inside the functions that use them
+         "scipy.stats", "scipy.fft", "scipy.special")
 
 _STAGES = {
     "core": "import phaseglass.core",
@@ -25,11 +29,16 @@ _STAGES = {
 
 @pytest.fixture(scope="module")
 def loaded():
-    """{stage: set of heavy top-level modules in sys.modules after that stage}."""
+    """{stage: set of the HEAVY names in sys.modules after that stage}.
+
+    A name counts as loaded when the module itself or any of its submodules is
+    (``matplotlib`` for ``matplotlib.pyplot``, ``scipy.stats`` for ``scipy.stats._stats_py``).
+    """
     lines = ["import json, sys", "seen = {}"]
     for stage, statement in _STAGES.items():
         lines.append(statement)
-        lines.append(f"seen[{stage!r}] = sorted({{m.split('.')[0] for m in sys.modules}} & set({HEAVY!r}))")
+        lines.append(f"seen[{stage!r}] = sorted(h for h in {HEAVY!r} "
+                     "if any(m == h or m.startswith(h + '.') for m in sys.modules))")
     lines.append("print(json.dumps(seen))")
     out = subprocess.run([sys.executable, "-c", "\n".join(lines)], capture_output=True, text=True,
                          timeout=120)
@@ -45,6 +54,20 @@ def test_core_imports_neither_matplotlib_nor_ipywidgets(loaded):
 def test_top_level_package_does_not_import_ipywidgets(loaded):
     assert "ipywidgets" not in loaded["top"]
     assert "matplotlib" not in loaded["top"]  # nothing in the top level needs drawing either
+
+
+def test_top_level_package_leaves_scipy_stats_and_fft_for_first_use(loaded):
+    # `import phaseglass` should cost at most about twice `import numpy` (issue 13; measured by
+    # benchmarks/startup.py): scipy's statistics, FFT and special functions load when a
+    # diagnostic first needs them
+    assert not loaded["core"] & {"scipy.stats", "scipy.fft", "scipy.special"}
+    assert not loaded["top"] & {"scipy.stats", "scipy.fft", "scipy.special"}
+
+
+def test_diagnostics_load_scipy_when_first_used(loaded):
+    # the other side of the check above: the staged subprocess does see these modules once a
+    # run's summary computes ESS and R-hat (so the check is not blind to scipy submodules)
+    assert {"scipy.stats", "scipy.fft", "scipy.special"} <= loaded["used"]
 
 
 def test_using_the_core_stays_light(loaded):

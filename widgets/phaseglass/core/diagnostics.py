@@ -27,14 +27,12 @@ warnings). Too few draws to split the chains is a ``ValueError``.
 from __future__ import annotations
 
 import numbers
-
 import warnings
 
 import numpy as np
-import scipy.fft
-import scipy.special
-import scipy.stats
 
+# scipy is imported inside the functions that use it: ``import scipy.stats`` alone costs
+# several times ``import numpy``, and ``import phaseglass`` should not pay it (issue 13).
 from ._validate import check_in, check_int
 
 __all__ = [
@@ -58,8 +56,6 @@ EBFMI_WARNING_LEVEL = 0.3
 _MIN_DRAWS = 4  # split chains need at least two draws per half
 _ESS_METHODS = ("bulk", "tail", "mean")
 _MCSE_KINDS = ("mean", "sd", "quantile")
-# Probabilities of a standard normal at -1 and +1: a +-1 sd interval for the quantile MCSE.
-_ONE_SIGMA = (scipy.stats.norm.cdf(-1.0), scipy.stats.norm.cdf(1.0))
 
 
 # --------------------------------------------------------------------------------------
@@ -147,6 +143,8 @@ def _centre(x):
 
 def _autocovariance(xc, max_lag):
     """Biased autocovariance (divided by n) of centred series along the last axis, via FFT."""
+    import scipy.fft
+
     n = xc.shape[-1]
     # Zero-pad to at least 2n - 1 so the circular correlation equals the linear one.
     nfft = scipy.fft.next_fast_len(2 * n - 1, real=True)
@@ -166,6 +164,9 @@ def _rank_normalize(x):
 
     z = Phi^-1((r - 3/8) / (S + 1/4)) with r the average rank among all S draws.
     """
+    import scipy.special
+    import scipy.stats
+
     chains, dim, n = x.shape
     pooled = np.moveaxis(x, 1, 0).reshape(dim, chains * n)
     ranks = scipy.stats.rankdata(pooled, axis=-1)
@@ -470,12 +471,16 @@ def mcse(draws, kind="mean", prob=None):
 
 def _mcse_quantile(x, prob):
     """MCSE (dim,) of the ``prob`` quantile via the Beta/ESS construction of the paper."""
+    import scipy.stats
+
+    # Probabilities of a standard normal at -1 and +1: a +-1 sd interval.
+    one_sigma = (scipy.stats.norm.cdf(-1.0), scipy.stats.norm.cdf(1.0))
     chains, dim, n = x.shape
     s_eff = _ess_quantile(x, prob)
     ok = np.isfinite(s_eff)
     s_eff = np.where(ok, s_eff, 1.0)
     lo, hi = scipy.stats.beta.ppf(
-        np.array(_ONE_SIGMA)[:, None], s_eff * prob + 1.0, s_eff * (1.0 - prob) + 1.0
+        np.array(one_sigma)[:, None], s_eff * prob + 1.0, s_eff * (1.0 - prob) + 1.0
     )
     total = chains * n
     ordered = np.sort(np.moveaxis(x, 1, 0).reshape(dim, total), axis=-1)

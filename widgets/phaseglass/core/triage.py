@@ -7,7 +7,6 @@ rejected, so the draw it records is its starting point.
 """
 
 import numpy as np
-from scipy import special, stats
 
 __all__ = ["DivergenceRanking", "divergence_ranking"]
 
@@ -174,6 +173,8 @@ def mann_whitney(a, b):
     one half). z uses the tie-corrected null variance, no continuity
     correction. Returns three arrays of shape (dim,).
     """
+    from scipy import special, stats  # on first use: importing scipy.stats is slow (issue 13)
+
     a = np.atleast_2d(np.asarray(a, dtype=float).T).T
     b = np.atleast_2d(np.asarray(b, dtype=float).T).T
     n1, n2 = a.shape[0], b.shape[0]
