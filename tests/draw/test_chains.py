@@ -7,7 +7,7 @@ from numpy.testing import assert_allclose, assert_array_equal
 
 from phaseglass.core.diagnostics import autocorrelation, ebfmi, ess
 from phaseglass.draw import (chain_spread, draw_autocorrelation, draw_chain_spread,
-                             draw_energy_transitions, draw_ess_per_gradient, draw_gibbs_paths,
+                             draw_energy_jumps, draw_ess_per_gradient, draw_gibbs_paths,
                              draw_knob_grid, draw_pair, draw_pair_grid, draw_running_ess,
                              draw_traces, draw_uniform_sequence, energy_histograms,
                              rejection_runs, staircase)
@@ -157,19 +157,19 @@ def test_ess_per_gradient_horizontal(ax):
 # ----------------------------------------------------------------- energy
 
 def test_energy_histograms_and_ebfmi_text(ax, small_run):
-    d = draw_energy_transitions(ax, small_run, bins=20)
+    d = draw_energy_jumps(ax, small_run, bins=20)
     edges, m, t = energy_histograms(small_run.energy, 20)
-    assert_allclose(d.marginal.get_data().values, m)
-    assert_allclose(d.marginal.get_data().edges, edges)
-    assert_allclose(d.transitions.get_data().values, t)
+    assert_allclose(d.levels.get_data().values, m)
+    assert_allclose(d.levels.get_data().edges, edges)
+    assert_allclose(d.jumps.get_data().values, t)
     # both are densities over the shared bins
     assert np.sum(m * np.diff(edges)) == pytest.approx(1.0)
     assert_allclose(d.ebfmi, ebfmi(small_run.energy))
     for b in d.ebfmi:
         assert f"{b:.2f}" in d.bfmi.get_text()
     # filled vs dashed outline: not colour alone
-    assert d.marginal.get_fill() and not d.transitions.get_fill()
-    assert d.transitions.get_linestyle() == "--"
+    assert d.levels.get_fill() and not d.jumps.get_fill()
+    assert d.jumps.get_linestyle() == "--"
     before = ids(d)
     low = np.cumsum(np.random.default_rng(1).normal(0, 0.05, (2, 200)), axis=1)  # E-BFMI tiny
     d.update(low)
@@ -179,7 +179,7 @@ def test_energy_histograms_and_ebfmi_text(ax, small_run):
 
 def test_energy_rejects_a_single_draw(ax):
     with pytest.raises(ValueError, match="energy"):
-        draw_energy_transitions(ax, np.zeros((2, 1)))
+        draw_energy_jumps(ax, np.zeros((2, 1)))
 
 
 # ----------------------------------------------------------------- pairs

@@ -10,7 +10,7 @@ from matplotlib.figure import Figure
 import phaseglass as pg
 from phaseglass.core.slices import log_density_grid
 from phaseglass.draw import (draw_autocorrelation, draw_chain_spread, draw_energy_error,
-                             draw_energy_transitions, draw_ess_per_gradient, draw_gibbs_paths,
+                             draw_energy_jumps, draw_ess_per_gradient, draw_gibbs_paths,
                              draw_knob_grid, draw_log_density, draw_pair, draw_pair_grid,
                              draw_running_ess, draw_traces, draw_trajectory,
                              draw_uniform_sequence, style)
@@ -44,7 +44,7 @@ VIEWS = {
     "autocorrelation": lambda ax, v: draw_autocorrelation(ax, DRAWS_A if v == "a" else DRAWS_B),
     "running_ess": lambda ax, v: draw_running_ess(ax, DRAWS_A if v == "a" else DRAWS_B, n_points=5),
     "ess_per_gradient": lambda ax, v: draw_ess_per_gradient(ax, [1.0, 2.0] if v == "a" else [3.0, 0.5]),
-    "energy": lambda ax, v: draw_energy_transitions(ax, (DRAWS_A if v == "a" else DRAWS_B)[:, :, 0]),
+    "energy": lambda ax, v: draw_energy_jumps(ax, (DRAWS_A if v == "a" else DRAWS_B)[:, :, 0]),
     "pair": lambda ax, v: draw_pair(ax, DRAWS_A if v == "a" else DRAWS_B,
                                     divergent=np.arange(240).reshape(2, 120) % 40 == 0),
     "gibbs_paths": lambda ax, v: draw_gibbs_paths(ax, DRAWS_A if v == "a" else DRAWS_B, last=15),

@@ -379,11 +379,11 @@ def _figure_ess_per_gradient(run):
 
 
 def _figure_energy(run):
-    from .draw import draw_energy_transitions, legend, style
+    from .draw import draw_energy_jumps, legend, style
 
     fig = style.new_figure(8.0, 4.0)
     ax = fig.add_subplot()
-    draw_energy_transitions(ax, run)
+    draw_energy_jumps(ax, run)
     legend(ax, loc="upper left")
     return fig
 
@@ -599,9 +599,9 @@ def write_report(out_dir, run, *, settings=None, title=None, coords=None, grid=T
     if _uses_gradient(run) and run.energy is not None and run.n_draws >= 8 \
             and np.all(np.isfinite(run.energy)):
         keep("energy", _figure_energy(run),
-             "Distribution of the energy (centred per chain) against the distribution of "
-             "energy changes between successive draws. When the changes are much narrower, "
-             f"the sampler explores energy levels slowly; E-BFMI below {EBFMI_LIMIT} flags it.")
+             "The spread of energy levels (centred per chain) against the jumps in energy "
+             "from one draw to the next. When the jumps are much narrower, the sampler moves "
+             f"between energy levels slowly; E-BFMI below {EBFMI_LIMIT} flags it.")
     if coords is not None:
         keep("pairs", _figure_pairs(run, coords),
              "Pairwise scatter of the draws (chains pooled), divergent transitions marked X, "

@@ -52,7 +52,7 @@ from .chains import (AutocorrelationDrawing, EssPerGradientDrawing, RunningEssDr
                      TracesDrawing, draw_autocorrelation, draw_ess_per_gradient,
                      draw_running_ess, draw_traces, running_ess)
 from .density import LogDensityDrawing, draw_log_density
-from .energy import EnergyTransitionsDrawing, draw_energy_transitions, energy_histograms
+from .energy import EnergyJumpsDrawing, draw_energy_jumps, energy_histograms
 from .gibbs import (ChainSpreadDrawing, GibbsPathsDrawing, chain_spread, draw_chain_spread,
                     draw_gibbs_paths, staircase)
 from .pairs import PairDrawing, PairGridDrawing, draw_pair, draw_pair_grid
@@ -66,12 +66,12 @@ __all__ = [
     # helpers
     "draw_log_density", "draw_trajectory", "draw_energy_error", "draw_uniform_sequence",
     "draw_traces", "draw_autocorrelation", "draw_running_ess", "draw_ess_per_gradient",
-    "draw_energy_transitions", "draw_pair", "draw_pair_grid", "draw_gibbs_paths",
+    "draw_energy_jumps", "draw_pair", "draw_pair_grid", "draw_gibbs_paths",
     "draw_chain_spread", "draw_knob_grid",
     # what they return
     "Drawing", "LogDensityDrawing", "TrajectoryDrawing", "EnergyErrorDrawing",
     "UniformSequenceDrawing", "TracesDrawing", "AutocorrelationDrawing", "RunningEssDrawing",
-    "EssPerGradientDrawing", "EnergyTransitionsDrawing", "PairDrawing", "PairGridDrawing",
+    "EssPerGradientDrawing", "EnergyJumpsDrawing", "PairDrawing", "PairGridDrawing",
     "GibbsPathsDrawing", "ChainSpreadDrawing", "KnobGridDrawing",
     # animation
     "ChainRecording", "record_chain", "chain_frames", "animate_chain", "save_animation",

@@ -1,4 +1,4 @@
-"""Marginal energy against energy transitions, with E-BFMI per chain."""
+"""How far energy levels spread against how far one transition moves them, with E-BFMI per chain."""
 
 from dataclasses import dataclass
 
@@ -10,7 +10,7 @@ from matplotlib.text import Text
 from . import style
 from ._base import Drawing
 
-__all__ = ["draw_energy_transitions", "EnergyTransitionsDrawing", "energy_histograms"]
+__all__ = ["draw_energy_jumps", "EnergyJumpsDrawing", "energy_histograms"]
 
 
 def _energy(data):
@@ -35,10 +35,10 @@ def energy_histograms(energy, bins=30):
     -------
     edges : ndarray, shape (bins + 1,)
         Shared by both histograms.
-    marginal : ndarray, shape (bins,)
-        Density of ``E - mean(E)`` (per-chain mean), chains pooled.
-    transitions : ndarray, shape (bins,)
-        Density of ``E[t] - E[t-1]``, chains pooled.
+    levels : ndarray, shape (bins,)
+        Density of the energy levels ``E - mean(E)`` (per-chain mean), chains pooled.
+    jumps : ndarray, shape (bins,)
+        Density of the jumps ``E[t] - E[t-1]`` between successive draws, chains pooled.
     """
     e = _energy(energy)
     e = e[np.all(np.isfinite(e), axis=1)]
@@ -52,9 +52,9 @@ def energy_histograms(energy, bins=30):
     if not hi > lo:
         lo, hi = lo - 0.5, hi + 0.5
     edges = np.linspace(lo, hi, int(bins) + 1)
-    marginal, _ = np.histogram(np.clip(centred, lo, hi), edges, density=True)
-    transitions, _ = np.histogram(np.clip(steps, lo, hi), edges, density=True)
-    return edges, marginal, transitions
+    levels, _ = np.histogram(np.clip(centred, lo, hi), edges, density=True)
+    jumps, _ = np.histogram(np.clip(steps, lo, hi), edges, density=True)
+    return edges, levels, jumps
 
 
 def _bfmi_text(energy):
@@ -72,16 +72,17 @@ def _bfmi_text(energy):
 
 
 @dataclass(repr=False, eq=False)
-class EnergyTransitionsDrawing(Drawing):
-    """Returned by ``draw_energy_transitions``.
+class EnergyJumpsDrawing(Drawing):
+    """Returned by ``draw_energy_jumps``.
 
     Attributes
     ----------
     ax : Axes
-    marginal : StepPatch
-        Filled density of centred energies; ``get_data()`` gives (values, edges).
-    transitions : StepPatch
-        Dashed, unfilled density of energy changes between successive draws.
+    levels : StepPatch
+        Filled density of the energy levels (centred per chain); ``get_data()``
+        gives (values, edges).
+    jumps : StepPatch
+        Dashed, unfilled density of the jumps in energy between successive draws.
     bfmi : Text
         The Axes title (left): E-BFMI per chain, flagged "(low)" below 0.3.
     ebfmi : ndarray, shape (chain,)
@@ -89,8 +90,8 @@ class EnergyTransitionsDrawing(Drawing):
     """
 
     ax: Axes
-    marginal: StepPatch
-    transitions: StepPatch
+    levels: StepPatch
+    jumps: StepPatch
     bfmi: Text
     ebfmi: np.ndarray
     bins: int
@@ -98,8 +99,8 @@ class EnergyTransitionsDrawing(Drawing):
     def update(self, energy):
         """Recompute both histograms and E-BFMI into the same artists."""
         edges, m, t = energy_histograms(energy, self.bins)
-        self.marginal.set_data(m, edges)
-        self.transitions.set_data(t, edges)
+        self.levels.set_data(m, edges)
+        self.jumps.set_data(t, edges)
         text, self.ebfmi = _bfmi_text(energy)
         self.bfmi.set_text(text)
         if self.autoscale:
@@ -109,12 +110,12 @@ class EnergyTransitionsDrawing(Drawing):
         return self
 
 
-def draw_energy_transitions(ax, energy, *, bins=30):
-    """Overlay the distribution of energies and of energy changes between draws.
+def draw_energy_jumps(ax, energy, *, bins=30):
+    """Overlay the spread of energy levels and the jumps in energy between draws.
 
-    When the energy changes (what momentum resampling achieves per transition)
-    are much narrower than the marginal energy distribution, the sampler
-    explores the energy levels slowly; E-BFMI summarises the ratio per chain
+    When the jumps (what momentum resampling achieves per transition) are much
+    narrower than the spread of energy levels the chain has to cover, the
+    sampler moves between energy levels slowly; E-BFMI summarises the ratio per chain
     (Betancourt 2016, "Diagnosing suboptimal cotangent disintegrations in
     Hamiltonian Monte Carlo", arXiv:1604.00695).
 
@@ -126,20 +127,20 @@ def draw_energy_transitions(ax, energy, *, bins=30):
 
     Returns
     -------
-    EnergyTransitionsDrawing
+    EnergyJumpsDrawing
         ``update(energy)`` reuses the artists.
     """
     style.dress(ax)
     empty = (np.zeros(int(bins)), np.linspace(0, 1, int(bins) + 1))
-    marginal = ax.stairs(*empty, fill=True, facecolor=style.OKABE_ITO["sky_blue"], alpha=0.55,
-                         edgecolor=style.OKABE_ITO["blue"], linewidth=1.2,
-                         label="energy E \u2212 mean (marginal)")
-    marginal.set_edgecolor(style.OKABE_ITO["blue"])
-    transitions = ax.stairs(*empty, fill=False, edgecolor=style.OKABE_ITO["black"], linewidth=1.6,
-                            linestyle="--", label="change \u0394E between successive draws")
+    levels = ax.stairs(*empty, fill=True, facecolor=style.OKABE_ITO["sky_blue"], alpha=0.55,
+                       edgecolor=style.OKABE_ITO["blue"], linewidth=1.2,
+                       label="energy level E \u2212 chain's mean")
+    levels.set_edgecolor(style.OKABE_ITO["blue"])
+    jumps = ax.stairs(*empty, fill=False, edgecolor=style.OKABE_ITO["black"], linewidth=1.6,
+                      linestyle="--", label="jump \u0394E from one draw to the next")
     text = ax.set_title("", loc="left", fontsize=9)
-    ax.set_xlabel("energy (centred) or energy change")
+    ax.set_xlabel("energy level, or jump in energy")
     ax.set_ylabel("density")
-    d = EnergyTransitionsDrawing(ax=ax, marginal=marginal, transitions=transitions, bfmi=text,
-                                 ebfmi=np.zeros(0), bins=int(bins))
+    d = EnergyJumpsDrawing(ax=ax, levels=levels, jumps=jumps, bfmi=text, ebfmi=np.zeros(0),
+                           bins=int(bins))
     return d.update(energy)
