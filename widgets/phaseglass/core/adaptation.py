@@ -1,4 +1,13 @@
-"""Warm-up: dual averaging of the step size and metric estimation from warm-up draws."""
+"""Warm-up: dual averaging of the step size and metric estimation from warm-up draws.
+
+Sources. The dual averaging update and its constants (gamma=0.05, t0=10,
+kappa=0.75, ``mu = log(10 * initial)``) are those of Hoffman & Gelman (2014),
+"The No-U-Turn Sampler", JMLR 15, sec. 3.2. The rest are our own choices, not
+taken from a publication: the warm-up schedule of ``warmup_windows`` (15 % first, 10 % last, doubling windows in
+between), the shrinkage of ``estimate_metric`` toward ``1e-3`` times the
+identity with weight ``5 / (n + 5)``, the clip of the log step size, and the
+restart of dual averaging after each metric update.
+"""
 
 import numpy as np
 
@@ -10,9 +19,10 @@ __all__ = ["DualAveraging", "warmup_windows", "estimate_metric"]
 class DualAveraging:
     """Nesterov dual averaging of log step size toward a target acceptance.
 
-    Follows Hoffman & Gelman (2014), "The No-U-Turn Sampler", JMLR 15,
-    sec. 3.2, with their recommended constants gamma=0.05, t0=10, kappa=0.75 and
-    ``mu = log(10 * initial)``.
+    The update, its constants gamma=0.05, t0=10, kappa=0.75 and the shrinkage
+    point ``mu = log(10 * initial)`` are those of Hoffman & Gelman (2014), "The
+    No-U-Turn Sampler", JMLR 15, sec. 3.2. Ours: clipping the log value to
+    [-25, 10] and ``restart`` after the metric changes.
 
     Parameters
     ----------
@@ -41,7 +51,7 @@ class DualAveraging:
         a = float(np.clip(np.nan_to_num(accept_stat, nan=0.0), 0.0, 1.0))
         self.h_bar = (1.0 - w) * self.h_bar + w * (self.target_accept - a)
         self.log_value = self.mu - np.sqrt(self.t) / self.gamma * self.h_bar
-        # guard the exponent against absurd values early in warm-up
+        # our guard (not in the paper): keep exp() finite when early acceptance swings wildly
         self.log_value = float(np.clip(self.log_value, -25.0, 10.0))
         eta = self.t ** (-self.kappa)
         self.log_value_bar = eta * self.log_value + (1.0 - eta) * self.log_value_bar
@@ -56,10 +66,12 @@ class DualAveraging:
 def warmup_windows(n_warmup):
     """Ends (exclusive draw indices) of the metric-estimation windows.
 
-    The usual three-phase schedule (common practice): a first 15% with step
-    size tuning only, then windows that double in length, each ending in a
-    metric update, then a final 10% of step-size tuning with the last metric.
-    Warm-ups shorter than 20 draws estimate no metric.
+    A three-phase schedule whose proportions are our own choice (not taken
+    from a publication): a first
+    15 % with step-size tuning only, then windows that double in length
+    (widths 1 : 2 : 4, the last absorbing the remainder), each ending in a
+    metric update, then a final 10 % of step-size tuning with the last metric.
+    Warm-ups shorter than 20 draws estimate no metric (also our choice).
     """
     if n_warmup < 20:
         return []
@@ -89,8 +101,11 @@ def estimate_metric(samples, kind="diagonal"):
 
     Notes
     -----
-    Shrinks toward ``1e-3`` times the identity with weight ``5 / (n + 5)``, the
-    regularisation in common practice for windowed adaptation.
+    Shrinks toward ``1e-3`` times the identity with weight ``5 / (n + 5)``: our
+    own regularisation (the target and the weight are choices, not results), so
+    that a few warm-up draws cannot make the metric singular or wildly small.
+    A dense estimate that is still not positive definite falls back to its
+    diagonal.
     """
     n, dim = samples.shape
     w = n / (n + 5.0)

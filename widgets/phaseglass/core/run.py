@@ -19,8 +19,10 @@ CAUTION = (
     "means no problem was detected, not that the chains have found the whole posterior."
 )
 
-# Low-ESS threshold for plain-word warnings (common practice).
-ESS_PER_CHAIN_LIMIT = 100  # total ESS below 100 * chains is reported as low
+# Low-ESS threshold for plain-word warnings: total bulk or tail ESS below 100 per chain,
+# the level Vehtari et al. (2021, "Rank-normalization, folding, and localization",
+# Bayesian Analysis 16(2)) recommend reaching before trusting the estimates.
+ESS_PER_CHAIN_LIMIT = 100
 
 _STANDARD = ("accepted", "accept_prob", "energy", "energy_error", "divergent", "n_grad", "u",
              "step_size")
