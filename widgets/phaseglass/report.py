@@ -33,6 +33,7 @@ from pathlib import Path
 
 import numpy as np
 
+from .core.efficiency import MIN_ESS_DRAWS, ess_per_gradient
 from .core.run import CAUTION, EBFMI_LIMIT, ESS_PER_CHAIN_LIMIT, RHAT_LIMIT
 
 __all__ = ["write_report", "check_report_folder", "atomic_write", "readable", "ReportFiles",
@@ -444,7 +445,6 @@ def knob_grid(run, step_sizes, steps, *, n_draws=100, seed=None):
     ndarray, shape (len(steps), len(step_sizes))
         NaN where a cell could not be estimated.
     """
-    from .core.diagnostics import ess
     from .core.sampling import sample
     from .core.streams import seed_sequence
 
@@ -458,11 +458,7 @@ def knob_grid(run, step_sizes, steps, *, n_draws=100, seed=None):
             kernel.n_steps = int(n)
             r = sample(run.target, kernel, start, n_draws, n_chains=run.n_chains, warmup=0,
                        seed=cell_seeds[i * len(step_sizes) + j])
-            grads = r.total_grad
-            with np.errstate(all="ignore"):
-                e = np.atleast_1d(ess(r.draws, method="bulk"))
-            if grads and np.all(np.isfinite(e)):
-                values[i, j] = 1000.0 * float(np.min(e)) / grads
+            values[i, j] = 1000.0 * ess_per_gradient(r)
     return values
 
 
@@ -585,12 +581,15 @@ def write_report(out_dir, run, *, settings=None, title=None, coords=None, grid=T
     if run.n_draws >= 8:
         keep("autocorrelation", _figure_autocorrelation(run, shown),
              "Autocorrelation against lag, one line per chain.")
+    else:
+        notes.append("Fewer than 8 draws per chain: the autocorrelation view is left out.")
+    if run.n_draws >= MIN_ESS_DRAWS:
         keep("running_ess", _figure_running_ess(run, shown),
              "Bulk ESS of the first n draws per chain as n grows. The dotted line is what "
              f"independent draws would give; the dash-dot line is {ESS_PER_CHAIN_LIMIT} per chain.")
     else:
-        notes.append("Fewer than 8 draws per chain: autocorrelation and ESS views are left out.")
-    if run.total_grad > 0 and run.n_draws >= 8:
+        notes.append(f"Fewer than {MIN_ESS_DRAWS} draws per chain: the ESS views are left out.")
+    if run.total_grad > 0 and run.n_draws >= MIN_ESS_DRAWS:
         keep("ess_per_gradient", _figure_ess_per_gradient(run),
              "Bulk ESS per gradient evaluation for each parameter: the cost-efficiency of "
              "these settings.")

@@ -8,6 +8,7 @@ import numpy as np
 from . import diagnostics as dg
 from .diagnostics import EBFMI_WARNING_LEVEL as EBFMI_LIMIT
 from .diagnostics import RHAT_WARNING_LEVEL as RHAT_LIMIT
+from .efficiency import MIN_ESS_DRAWS, ess_per_gradient
 
 __all__ = ["Run", "Digest", "Column", "COLUMNS", "CAUTION"]
 
@@ -226,7 +227,8 @@ class Digest:
     ``quantile_low``, ``quantile_high`` (5%, 95% by default)
         Quantiles of the draws at ``probs``.
 
-    R-hat, the ESS columns and the MCSE need 8 draws per chain (NaN below).
+    R-hat needs 8 draws per chain, the ESS columns and the MCSE
+    ``MIN_ESS_DRAWS`` (20; see ``core.efficiency``); they are NaN below.
     ``digest[key]`` is one column, an ndarray of shape (dim,).
 
     With more than ``MANY`` (12) parameters the printed summary (text and HTML)
@@ -256,9 +258,9 @@ class Digest:
 
         x = run.draws
         nan = np.full(x.shape[2], np.nan)
-        enough = x.shape[1] >= 8
+        enough = x.shape[1] >= MIN_ESS_DRAWS
         table = {
-            "split_rhat": dg.rhat(x) if enough else nan,
+            "split_rhat": dg.rhat(x) if x.shape[1] >= 8 else nan,
             "bulk_ess": dg.ess(x, method="bulk") if enough else nan,
             "tail_ess": dg.ess(x, method="tail") if enough else nan,
             "posterior_mean": x.mean(axis=(0, 1)),
@@ -285,7 +287,7 @@ class Digest:
             "divergences": run.n_divergent,
             "gradient_evaluations": grads,
             "lowest_bulk_ess": min_ess,
-            "ess_per_gradient": min_ess / grads if grads else np.nan,
+            "ess_per_gradient": ess_per_gradient(run),
             "ebfmi": bfmi.tolist(),
             "kernel": None if run.kernel is None else run.kernel.settings(),
             "seed": None if run.seed is None else int(run.seed) if np.ndim(run.seed) == 0 else run.seed,

@@ -7,6 +7,8 @@ import numpy as np
 from matplotlib.axes import Axes
 from matplotlib.lines import Line2D
 
+from phaseglass.core.efficiency import MIN_ESS_DRAWS, ess_per_gradient
+
 from . import style
 from ._base import Drawing, as_chain_draws, check_divergent, exclude_from_autoscale
 
@@ -15,8 +17,6 @@ __all__ = [
     "draw_next_transition", "TracesDrawing", "AutocorrelationDrawing", "RunningEssDrawing",
     "EssPerGradientDrawing", "NextTransitionDrawing", "running_ess",
 ]
-
-_MIN_ESS_DRAWS = 8  # fewer draws per chain give ESS estimates too noisy to draw
 
 
 def _coord(coord, names):
@@ -201,7 +201,7 @@ def draw_autocorrelation(ax, draws, coord=0, *, max_lag=40, names=None):
 
 # ------------------------------------------------------------------ running ESS
 
-def running_ess(draws, *, n_points=12, min_draws=_MIN_ESS_DRAWS):
+def running_ess(draws, *, n_points=12, min_draws=MIN_ESS_DRAWS):
     """Bulk ESS of the first ``n`` draws of every chain, for growing ``n``.
 
     Parameters
@@ -209,6 +209,7 @@ def running_ess(draws, *, n_points=12, min_draws=_MIN_ESS_DRAWS):
     draws : array_like, shape (chain, draw, dim)
     n_points : int
     min_draws : int
+        The first point; default ``MIN_ESS_DRAWS`` of ``phaseglass.core.efficiency``.
 
     Returns
     -------
@@ -308,15 +309,6 @@ def draw_running_ess(ax, draws, coords=None, *, n_points=12, names=None):
 
 # --------------------------------------------------------------- ESS / gradient
 
-def _ess_per_gradient(run):
-    from phaseglass.core.diagnostics import ess
-
-    grads = run.total_grad
-    if run.n_draws < _MIN_ESS_DRAWS or grads == 0:
-        return np.full(run.dim, np.nan)
-    return np.atleast_1d(ess(run.draws, method="bulk")) / grads
-
-
 @dataclass(repr=False, eq=False)
 class EssPerGradientDrawing(Drawing):
     """Returned by ``draw_ess_per_gradient``.
@@ -360,7 +352,7 @@ def _fmt(v):
 
 def _values(data):
     if hasattr(data, "draws"):
-        return _ess_per_gradient(data)
+        return ess_per_gradient(data, per_coordinate=True)
     return np.asarray(data, dtype=float).reshape(-1)
 
 
@@ -372,9 +364,9 @@ def draw_ess_per_gradient(ax, data, labels=None, *, horizontal=None,
     ----------
     ax : Axes
     data : Run or array_like, shape (k,)
-        A Run gives each parameter's bulk ESS divided by the run's total
-        gradient evaluations (NaN for a gradient-free kernel); an array is drawn
-        as given (e.g. one value per setting compared).
+        A Run gives each parameter's ``core.efficiency.ess_per_gradient`` (NaN
+        for a gradient-free kernel or fewer than ``MIN_ESS_DRAWS`` draws per
+        chain); an array is drawn as given (e.g. one value per setting compared).
     labels : sequence of str, optional
         One per bar (a Run gives its names).
     horizontal : bool, optional

@@ -10,7 +10,7 @@ import traitlets
 from matplotlib.ticker import MaxNLocator
 
 from ..core._validate import MAX_STEPS
-from ..core.diagnostics import ess
+from ..core.efficiency import MIN_ESS_DRAWS, ess_per_gradient, evaluation_cost
 from ..core.kernels import HMC, PartialRefreshHMC, RandomWalk
 from ..core.metric import Metric
 from ..core.run import CAUTION
@@ -35,7 +35,6 @@ KERNELS = {
     "walk": "random-walk Metropolis",
 }
 
-_MIN_ESS_DRAWS = 20
 _MAX_STEPS_SLIDER = 200
 _WALK_SCALE = 2.38  # optimal random-walk scale is about 2.38 sd / sqrt(dim) (Roberts, Gelman & Gilks 1997)
 _METRIC_WORDS = {"identity": "identity mass matrix", "diagonal": "diagonal mass matrix",
@@ -563,12 +562,11 @@ class ChainView(View):
         else:
             acc = float(np.mean(run.accepted))
             rejections = int(np.size(run.accepted) - np.count_nonzero(run.accepted))
-            unit = "gradient evaluation" if kernel.uses_gradient else "log-density evaluation"
-            evals = run.total_grad if kernel.uses_gradient else n * run.n_chains
-            per = f"n/a (fewer than {_MIN_ESS_DRAWS} draws)"
-            if n >= _MIN_ESS_DRAWS:
-                e = np.nanmin(ess(run.unconstrained, method="bulk"))
-                per = number(e / max(evals, 1), 3) if np.isfinite(e) else "n/a"
+            evals, unit = evaluation_cost(run)
+            per = f"n/a (fewer than {MIN_ESS_DRAWS} draws)"
+            if n >= MIN_ESS_DRAWS:
+                e = ess_per_gradient(run, cost=evals)
+                per = number(e, 3) if np.isfinite(e) else "n/a"
             body = (f"{plural(run.first_draw + n, 'transition')} \u00d7 {plural(run.n_chains, 'chain')}"
                     f" | acceptance rate {number(acc, 3)} ({plural(rejections, 'rejection')})"
                     f" | {plural(run.n_divergent, 'divergent transition')}"

@@ -10,7 +10,7 @@ import numpy as np
 import traitlets
 
 from ..core._validate import MAX_STEPS
-from ..core.diagnostics import ess
+from ..core.efficiency import ess_per_gradient, evaluation_cost
 from ..core.kernels import HMC, PartialRefreshHMC, RandomWalk
 from ..core.metric import Metric
 from ..core.run import CAUTION
@@ -88,15 +88,7 @@ def cell_quantities(run):
     """
     acc = float(np.mean(np.nan_to_num(np.asarray(run.accept_prob, dtype=float), nan=0.0)))
     div = float(np.mean(run.divergent))
-    uses_gradient = getattr(run.kernel, "uses_gradient", True)
-    cost = run.total_grad if uses_gradient else run.n_chains * run.n_draws
-    x = run.draws
-    moved = np.all(np.ptp(x, axis=1).max(axis=-1) > 0)
-    if not moved or cost <= 0:
-        per = 0.0
-    else:
-        e = np.atleast_1d(ess(x, method="bulk"))
-        per = float(np.nanmin(e)) / cost if np.any(np.isfinite(e)) else 0.0
+    per = ess_per_gradient(run, cost=evaluation_cost(run)[0])
     return {"acceptance": acc, "divergence rate": div, "ESS per gradient": per}
 
 
