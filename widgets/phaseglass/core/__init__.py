@@ -9,6 +9,7 @@ from .gibbs import Gibbs
 from .kernels import HMC, Kernel, PartialRefreshHMC, RandomWalk, kernel_from_settings
 from .leapfrog import Trajectory, leapfrog
 from .metric import Metric
+from .nuts import NUTS
 from .run import Digest, Run
 from .sampling import Sampler, auto_warmup, sample
 from .slices import log_density_grid
@@ -21,7 +22,7 @@ from .uniforms import DriftingUniform, FreshUniform
 #: ``estimate_metric``) stay importable from their own modules.
 __all__ = [
     "Target", "GradientCheck", "Metric", "leapfrog", "Trajectory",
-    "Kernel", "HMC", "PartialRefreshHMC", "RandomWalk", "Gibbs",
+    "Kernel", "HMC", "PartialRefreshHMC", "RandomWalk", "Gibbs", "NUTS",
     "FreshUniform", "DriftingUniform", "kernel_from_settings",
     "Sampler", "sample", "auto_warmup", "Run", "Digest",
     "ess", "rhat", "mcse", "autocorrelation", "ebfmi", "demos",

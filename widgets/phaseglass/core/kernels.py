@@ -406,7 +406,7 @@ class RandomWalk(Kernel):
 #: Knobs a saved kernel must state (they define the method; no default is a safe guess).
 _DEFINING = {"HMC": ("step_size", "n_steps"), "PartialRefreshHMC": ("step_size", "n_steps",
                                                                     "persistence"),
-             "RandomWalk": ("scale",), "Gibbs": ()}
+             "RandomWalk": ("scale",), "Gibbs": (), "NUTS": ("step_size",)}
 
 
 def _uniform_from_settings(uniform):
@@ -436,9 +436,10 @@ def kernel_from_settings(settings):
     settings = dict(settings)
     name = settings.pop("kernel", None)
     classes = {"HMC": HMC, "PartialRefreshHMC": PartialRefreshHMC, "RandomWalk": RandomWalk}
-    from . import gibbs  # registered here to avoid a cycle at import time
+    from . import gibbs, nuts  # registered here to avoid a cycle at import time
 
     classes["Gibbs"] = gibbs.Gibbs
+    classes["NUTS"] = nuts.NUTS
     if name not in classes:
         raise ValueError(f"`settings['kernel']` must be one of {sorted(classes)}, got {name!r}")
     metric = settings.pop("metric", None)
@@ -454,7 +455,7 @@ def kernel_from_settings(settings):
         raise ValueError(f"`settings` for a {name} kernel must give {missing} (saved settings "
                          f"are incomplete); known keys: {sorted(settings)}")
     args = {"HMC": ("step_size", "n_steps"), "PartialRefreshHMC": ("step_size",),
-            "RandomWalk": ("scale",)}[name]
+            "RandomWalk": ("scale",), "NUTS": ("step_size",)}[name]
     positional = [settings.pop(a) for a in args]
     try:
         return classes[name](*positional, **settings)

@@ -237,21 +237,42 @@ class Sampler:
         info = self.kernel.transition(self.target, state, self.streams, record=record)
         traj = info.pop("trajectory", None)
         start_momentum = info.pop("start_momentum", None)
+        replay_steps = info.pop("replay_steps", None)  # variable-length kernels (NUTS)
         info["position"] = state.position
         if traj is not None:
             self.last_trajectory = traj
             if self.trajectories is not None:
                 self.trajectories.append(traj)
         if np.any(info["divergent"]):
-            self._keep_divergences(info, start, start_momentum, traj)
+            self._keep_divergences(info, start, start_momentum, traj, replay_steps)
         self._records.append(info)
         self.last_info = info
         return info
 
-    def _keep_divergences(self, info, start, start_momentum, traj):
-        """Store a replay of each divergent transition (its start and trajectory)."""
+    def _keep_divergences(self, info, start, start_momentum, traj, replay_steps=None):
+        """Store a replay of each divergent transition (its start and trajectory).
+
+        ``replay_steps`` (n_chains,), from kernels whose trajectories vary in
+        length, gives each chain's number of steps from ``start`` along
+        ``start_momentum`` to its divergent state; otherwise the kernel's
+        ``n_steps`` is used.
+        """
         draw = self._records.count
         rows = np.flatnonzero(info["divergent"])
+        if traj is None and start_momentum is not None and replay_steps is not None:
+            counts = (self.target.n_density, self.target.n_grad)
+            for chain in rows:
+                q, p = start[chain:chain + 1], start_momentum[chain:chain + 1]
+                steps = max(int(replay_steps[chain]), 1)
+                eps = info["step_size"][chain:chain + 1]
+                with np.errstate(all="ignore"):
+                    logp, grad = self.target._value_and_grad_rows(q)
+                    res = integrate(self.target, q, p, logp, grad, eps, steps, self.kernel.metric,
+                                    self.kernel.max_energy_error, record=True)
+                one = trajectory_from(res, eps, steps, self.kernel.max_energy_error, True)
+                self.divergences.append((int(chain), draw, one))
+            self.target.n_density, self.target.n_grad = counts
+            return
         if traj is None and start_momentum is not None:
             # replay without counting: a replay is not sampling work
             counts = (self.target.n_density, self.target.n_grad)

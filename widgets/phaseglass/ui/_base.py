@@ -243,15 +243,36 @@ class View(widgets.VBox):
         return resolve_coords(tuple(proposal["value"]), names, len(names))
 
     def _coordinate_pickers(self, names):
-        """x and y dropdowns over ``names``, tied to the ``coords`` trait."""
-        options = [(n, i) for i, n in enumerate(names)]
-        self._x_pick = widgets.Dropdown(options=options, value=self.coords[0], description="x",
-                                        layout=widgets.Layout(width="200px"))
-        self._y_pick = widgets.Dropdown(options=options, value=self.coords[1], description="y",
-                                        layout=widgets.Layout(width="200px"))
+        """x and y pickers over ``names`` (type part of a name), tied to the ``coords`` trait.
+
+        They are ``ui._controls.CoordinatePicker``s: usable with hundreds of names,
+        an entry that picks nothing is reported in the status line. Setting
+        ``coords`` from code shows the new names in them. Also makes
+        ``self._swap_pick``, a button that swaps x and y.
+        """
+        from ._controls import CoordinatePicker
+
+        self._x_pick = CoordinatePicker(self, names, self.coords[0], label="x",
+                                        css_class="pg-pick-x")
+        self._y_pick = CoordinatePicker(self, names, self.coords[1], label="y",
+                                        css_class="pg-pick-y")
         self._x_pick.observe(lambda ch: self._pick_coordinate(0, ch["new"]), "value")
         self._y_pick.observe(lambda ch: self._pick_coordinate(1, ch["new"]), "value")
+        self._swap_pick = widgets.Button(description="swap x, y", icon="exchange",
+                                         tooltip="Show y on the x axis and x on the y axis",
+                                         layout=widgets.Layout(width="auto", flex="0 0 auto"))
+        self._swap_pick.add_class("pg-swap-xy")
+        self._swap_pick.on_click(lambda _: self.swap_coordinates())
+        self.observe(self._coordinates_to_pickers, "coords")
         return self._x_pick, self._y_pick
+
+    def _coordinates_to_pickers(self, change):
+        self._x_pick.value, self._y_pick.value = self.coords
+
+    @guarded("coordinate change")
+    def swap_coordinates(self):
+        """Show the y coordinate on the x axis and the x coordinate on the y axis."""
+        self._set_coordinates(tuple(self.coords)[::-1])
 
     @guarded("coordinate change")
     def _pick_coordinate(self, axis, index):

@@ -1,4 +1,4 @@
-"""Controls for numeric knobs: a slider to aim with and a box to type the exact value.
+"""Controls: numeric knobs (a slider to aim with, a box for the exact value) and coordinate pickers.
 
 A slider quantises: a log slider with 0.02 steps turns 0.05 into 0.0501. Linked
 with ``traitlets.link``, that snapped value flows back into the knob, and the
@@ -13,6 +13,10 @@ figure, the readout and ``view.trajectory`` end up describing different numbers.
 * a value outside the slider's range widens the range instead of being clipped;
 * a refused value (the view's validator raises) lands in the view's status line
   and the controls return to the knob's value.
+
+``CoordinatePicker`` chooses one coordinate among many (a model can have
+hundreds) by typing part of its name; see its docstring for why it is a
+combobox and not a dropdown.
 """
 
 import math
@@ -20,7 +24,7 @@ import math
 import ipywidgets as widgets
 import traitlets
 
-__all__ = ["KnobControl", "SLIDER_WIDTH"]
+__all__ = ["KnobControl", "CoordinatePicker", "SLIDER_WIDTH", "text_width_px"]
 
 #: Width of a slider's track and handle area: wide enough to aim (at least 160 px).
 SLIDER_WIDTH = "190px"
@@ -186,3 +190,160 @@ class KnobControl(widgets.HBox):
         except traitlets.TraitError as exc:
             self.owner.status = f"error: {exc}"
             self.show(getattr(self.owner, self.trait))
+
+
+# ------------------------------------------------------------------ coordinate pickers
+_FONT_PX = 13  # JupyterLab's widget font size (--jp-widgets-font-size)
+
+
+def text_width_px(text, size=_FONT_PX):
+    """Width of ``text`` in pixels at ``size`` px, measured in DejaVu Sans.
+
+    DejaVu Sans is wider than the sans-serif faces notebooks usually show, so a
+    box sized with it holds the text in any of them.
+    """
+    from matplotlib.font_manager import FontProperties
+    from matplotlib.textpath import TextToPath
+
+    prop = FontProperties(family="DejaVu Sans", size=size)
+    return TextToPath().get_text_width_height_descent(str(text), prop, ismath=False)[0]
+
+
+#: Room a text box needs besides its text: padding, borders and the suggestion arrow
+#: a browser adds to a box with a list of choices.
+_BOX_CHROME_PX = 40
+_PICKER_MIN_PX, _PICKER_MAX_PX = 110, 330
+
+
+def box_width_px(texts, chrome=_BOX_CHROME_PX, most=_PICKER_MAX_PX):
+    """Width in px of a box that shows the longest of ``texts`` whole (110 px to ``most``)."""
+    need = max((text_width_px(t) for t in texts), default=0.0) + chrome
+    return int(min(max(need, _PICKER_MIN_PX), most) + 0.999)
+
+
+class CoordinatePicker(widgets.HBox):
+    """Choose one coordinate of many by typing part of its name.
+
+    A label and a text box with the coordinate names as suggestions (an
+    ipywidgets ``Combobox``). Typing filters the suggestions in the browser;
+    Enter (or leaving the box, or choosing a suggestion) commits the text, and
+    the picker takes the one name it designates: a whole name, or the only name
+    containing the text (case-insensitive), so ``"tau"`` picks ``log_tau`` and
+    ``"site[17"`` picks ``site[17]``. Text that names no coordinate, or several,
+    changes nothing: the owner's status line says why (listing the first few
+    candidates) and the box shows the current name again.
+
+    Why not a ``Dropdown``: a native select of 100+ names must be scrolled
+    through. Why not ``Combobox(ensure_option=True)``: the browser then keeps
+    an unknown entry to itself (the box only turns red), so the view could not
+    say what went wrong; here every committed text reaches Python and is
+    either used or reported.
+
+    Parameters
+    ----------
+    owner : View
+        Its ``status`` reports entries that pick nothing.
+    names : sequence of str
+        The coordinate names, in the target's order.
+    value : int
+        Index of the coordinate shown at first.
+    label : str
+        Text before the box ("x", "y"); also names the picker in messages.
+    css_class : str, optional
+        Class of the text box, for browser tests.
+
+    Attributes
+    ----------
+    value : int
+        Index in ``names`` of the chosen coordinate; setting it from code shows that
+        name in the box.
+    box : Combobox
+    """
+
+    value = traitlets.Int(0, help="Index (in `names`) of the chosen coordinate.")
+
+    #: Candidates listed when an entry matches several names.
+    SHOWN_CANDIDATES = 5
+
+    def __init__(self, owner, names, value, *, label, css_class=None):
+        self.owner = owner
+        self.names = tuple(str(n) for n in names)
+        if not self.names:
+            raise ValueError("`names` must hold at least one coordinate name")
+        self.axis = str(label)
+        self._said = None  # the last message this picker put in the status line
+        self.label = widgets.Label(self.axis, layout=widgets.Layout(flex="0 0 auto"))
+        self.box = widgets.Combobox(
+            value=self.names[int(value)], options=list(self.names), ensure_option=False,
+            continuous_update=False, placeholder="type part of a name",
+            layout=widgets.Layout(width=f"{box_width_px(self.names)}px", flex="0 0 auto"))
+        self.box.tooltip = (f"{self.axis} coordinate: type part of one of the {len(self.names)} "
+                            "names and press Enter, or choose a suggestion")
+        if css_class:
+            self.box.add_class(css_class)
+        super().__init__([self.label, self.box], value=int(value),
+                         layout=widgets.Layout(align_items="center", flex="0 0 auto",
+                                               margin="0 12px 0 0"))
+        self.add_class("pg-coordinate-picker")
+        self.observe(self._show, names="value")
+        self.box.observe(self._from_box, names="value")
+
+    @traitlets.validate("value")
+    def _check_value(self, proposal):
+        v = int(proposal["value"])
+        if not 0 <= v < len(self.names):
+            raise traitlets.TraitError(f"`value` must be in range({len(self.names)}), got {v}")
+        return v
+
+    @property
+    def disabled(self):
+        return self.box.disabled
+
+    @disabled.setter
+    def disabled(self, flag):
+        self.box.disabled = bool(flag)
+
+    def matches(self, text):
+        """Indices of the names ``text`` designates, in the target's order.
+
+        A whole name (exactly, else ignoring case) designates itself alone;
+        otherwise every name containing ``text`` (ignoring case and the spaces
+        around it) is a candidate. Empty text designates nothing.
+        """
+        t = str(text).strip()
+        if not t:
+            return []
+        if t in self.names:
+            return [self.names.index(t)]
+        low = t.lower()
+        whole = [i for i, n in enumerate(self.names) if n.lower() == low]
+        return whole or [i for i, n in enumerate(self.names) if low in n.lower()]
+
+    def _show(self, change=None):
+        self.box.value = self.names[self.value]
+
+    def _from_box(self, change):
+        text = change["new"]
+        if text == self.names[self.value]:
+            return
+        found = self.matches(text)
+        if len(found) == 1:
+            if self._said is not None and self.owner.status == self._said:
+                self.owner.clear_status()  # the complaint is answered
+            self._said = None
+            self.value = found[0]  # the owner's observer may still refuse it (x == y)
+            self._show()  # the whole name, also when the value did not change
+            return
+        current = self.names[self.value]
+        if not text.strip():
+            why = "type part of a coordinate name"
+        elif not found:
+            why = f"no coordinate name contains {text.strip()!r}"
+        else:
+            shown = ", ".join(self.names[i] for i in found[:self.SHOWN_CANDIDATES])
+            more = ", ..." if len(found) > self.SHOWN_CANDIDATES else ""
+            why = (f"{text.strip()!r} is part of {len(found)} names ({shown}{more}); "
+                   "type more of the one you want")
+        self._said = f"{self.axis}: {why}; {self.axis} stays {current}"
+        self.owner.status = self._said
+        self._show()

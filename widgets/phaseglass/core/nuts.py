@@ -1,0 +1,397 @@
+"""The no-U-turn sampler: HMC that picks its trajectory length by doubling until the path turns back.
+
+One transition draws a fresh momentum and grows a trajectory by doublings:
+each doubling picks a direction at random and integrates a subtree of
+``2**j`` leapfrog steps from that end of the trajectory. The subtree is
+abandoned (and the tree stops) when it diverges or when one of its own
+sub-subtrees turns back; otherwise its candidate joins the trajectory and
+the whole trajectory is checked for a U-turn. The next state is drawn from
+the trajectory's states with weights ``exp(-H)``: uniformly (multinomially)
+within a subtree, biased toward the new subtree when two are merged
+(Hoffman & Gelman, "The No-U-Turn Sampler", JMLR 15, 2014; Betancourt, "A
+Conceptual Introduction to Hamiltonian Monte Carlo", arXiv:1701.02434,
+2017, sec. 4.3 and appendix A: multinomial sampling and the generalised
+U-turn criterion ``p_sharp(-) . rho > 0 and p_sharp(+) . rho > 0`` with
+``rho`` the sum of the momenta and ``p_sharp = M^-1 p``).
+
+Batching: every chain runs the same doubling loop; a chain whose tree has
+finished (or whose subtree stopped early) waits, masked, and only the rows
+still moving are integrated, so gradient counts are honest per chain.
+Randomness: each transition takes ``dim`` normals and ``3 * max_depth``
+uniforms per chain from the streams whatever the trees do, so chain ``k``'s
+draws do not depend on the other chains. The multinomial choice inside a
+subtree uses one uniform per subtree, recycled after each decision (if
+``u < p`` the next uniform is ``u / p``, else ``(u - p) / (1 - p)``; both are
+uniform given the decision), so no stream depends on the tree's size.
+"""
+
+import numpy as np
+
+from ._validate import check_int
+from .kernels import Kernel, _Knob, _metric, _positive
+from dataclasses import dataclass
+
+from .leapfrog import DEFAULT_MAX_ENERGY_ERROR, Trajectory, _kick_drift_kick
+
+__all__ = ["NUTS", "DoublingTree", "MAX_DEPTH_LIMIT"]
+
+#: Largest ``max_depth`` accepted: 2**20 - 1 leapfrog steps per transition.
+MAX_DEPTH_LIMIT = 20
+
+
+def _depth(name, value):
+    return check_int(name, value, minimum=1, maximum=MAX_DEPTH_LIMIT)
+
+
+class NUTS(Kernel):
+    """The no-U-turn sampler with multinomial selection and the generalised U-turn criterion.
+
+    Parameters
+    ----------
+    step_size : float > 0
+        Leapfrog step size (tuned by warm-up toward a mean acceptance
+        statistic of 0.8).
+    max_depth : int in 1..20
+        At most ``max_depth`` doublings, so at most ``2**max_depth - 1``
+        leapfrog steps per transition (10 is common practice).
+    metric : Metric or array, optional
+        Inverse mass matrix (identity by default).
+    max_energy_error : float
+        Divergence threshold on ``|energy error|`` of any state in the tree,
+        as for ``HMC`` (1000, common practice). A divergent subtree is
+        discarded and the tree stops.
+
+    Notes
+    -----
+    Records beside the standard ones (``run.extras``, shaped (chain, draw)):
+    ``tree_depth`` (doublings made, the abandoned one included),
+    ``n_leapfrog`` (leapfrog steps, equal to ``n_grad``),
+    ``depth_limit_hit`` (the tree stopped only because it reached
+    ``max_depth``) and ``turned`` (it stopped at a U-turn).
+    ``accept_prob`` is the acceptance statistic: the mean over every state
+    the tree integrated of ``min(1, exp(H0 - H))`` (0 for a divergent
+    state), the quantity dual averaging steers. ``accepted`` says whether
+    the chain moved; ``energy`` is the Hamiltonian of the selected state and
+    ``energy_error`` its difference from the start's (for a divergent
+    transition, the error that crossed the threshold). ``u`` is the uniform
+    of the last merge of a subtree into the trajectory (NaN when the first
+    subtree was already abandoned).
+
+    A divergent transition is replayed by the sampler from its start with
+    the momentum pointing the way the divergent subtree grew
+    (``start_momentum``, negated for a backward doubling) for as many steps
+    as separate the start from the divergent state (``replay_steps``): the
+    leapfrog states on that side of the tree are exactly that trajectory.
+
+    Examples
+    --------
+    >>> import phaseglass as pg
+    >>> run = pg.sample(pg.demos.correlated_gaussian(), pg.NUTS(0.3), n_draws=50, warmup=0,
+    ...                 n_chains=2, seed=1)
+    >>> sorted(k for k in run.extras if k != "position")[:3]
+    ['depth_limit_hit', 'n_leapfrog', 'tree_depth']
+    """
+
+    uses_gradient = True
+    tuned_knob = "step_size"
+    default_target_accept = 0.8
+    step_size = _Knob(_positive)
+    max_depth = _Knob(_depth)
+    metric = _Knob(_metric)
+    max_energy_error = _Knob(_positive)
+
+    def __init__(self, step_size, max_depth=10, *, metric=None,
+                 max_energy_error=DEFAULT_MAX_ENERGY_ERROR):
+        self.step_size = step_size
+        self.max_depth = max_depth
+        self.metric = metric
+        self.max_energy_error = max_energy_error
+
+    def settings(self):
+        return {"kernel": "NUTS", "step_size": self.step_size, "max_depth": self.max_depth,
+                "max_energy_error": self.max_energy_error, "metric": self.metric.as_dict()}
+
+    # ----------------------------------------------------------------- transition
+    def _transition(self, target, state, streams, record):
+        n, dim = state.position.shape
+        depth_max = self.max_depth
+        eps = float(self.step_size)
+        half = 0.5 * eps
+        metric = self.metric
+        velocity, kinetic = metric.velocity, metric.kinetic
+        vg = target._value_and_grad_rows
+        limit = self.max_energy_error
+
+        start_q, start_lp = state.position, state.logp
+        p0 = metric.momentum_from_normal(streams.normal(dim))
+        uniforms = streams.uniform(3 * depth_max)  # per doubling: direction, selection, merge
+        h0 = kinetic(p0) - state.logp
+
+        # ends of the trajectory (actual momenta), and the selected state
+        left_q, left_p, left_lp, left_g = (state.position.copy(), p0.copy(), state.logp.copy(),
+                                           state.grad.copy())
+        right_q, right_p, right_lp, right_g = (left_q.copy(), left_p.copy(), left_lp.copy(),
+                                               left_g.copy())
+        sel_q, sel_lp, sel_g = left_q.copy(), left_lp.copy(), left_g.copy()
+        sel_h = h0.copy()
+        log_w = np.zeros(n)              # log of the trajectory's total weight, exp(H0 - H)
+        rho = p0.copy()                  # sum of the momenta over the trajectory
+        growing = np.ones(n, dtype=bool)
+        moved = np.zeros(n, dtype=bool)
+        divergent = np.zeros(n, dtype=bool)
+        turned = np.zeros(n, dtype=bool)
+        tree_depth = np.zeros(n, dtype=int)
+        n_leap = np.zeros(n, dtype=int)
+        sum_accept = np.zeros(n)
+        steps_side = np.zeros((n, 2), dtype=int)  # steps taken backward [0] and forward [1]
+        replay_dir = np.ones(n)
+        replay_steps = np.zeros(n, dtype=int)
+        div_error = np.full(n, np.nan)
+        last_u = np.full(n, np.nan)
+        sel_offset = np.zeros(n, dtype=int)
+        merged = np.zeros((n, depth_max), dtype=bool)
+        leaves = [] if record else None
+
+        with np.errstate(all="ignore"):
+            for j in range(depth_max):
+                rows = np.flatnonzero(growing)
+                if rows.size == 0:
+                    break
+                d = np.where(uniforms[rows, 3 * j] < 0.5, -1.0, 1.0)
+                fwd = d > 0
+                # the subtree grows from the chosen end; work in the frame where it moves forward
+                cq = np.where(fwd[:, None], right_q[rows], left_q[rows])
+                cp = np.where(fwd[:, None], right_p[rows], -left_p[rows])
+                clp = np.where(fwd, right_lp[rows], left_lp[rows])
+                cg = np.where(fwd[:, None], right_g[rows], left_g[rows])
+                sub = _Subtree(rows.size, dim, j, uniforms[rows, 3 * j + 1])
+                h0r = h0[rows]
+                live = np.ones(rows.size, dtype=bool)  # still building this subtree
+                side = np.where(fwd, 1, 0)
+                for i in range(2 ** j):
+                    idx = np.flatnonzero(live)
+                    if idx.size == 0:
+                        break
+                    everyone = idx.size == rows.size
+                    if everyone:
+                        qn, pn, lpn, gn = _kick_drift_kick(cq, cp, cg, eps, half, velocity, vg)
+                    else:
+                        qn, pn, lpn, gn = _kick_drift_kick(cq[idx], cp[idx], cg[idx], eps, half,
+                                                           velocity, vg)
+                    hn = kinetic(pn) - lpn
+                    err = hn - h0r[idx]
+                    ok = np.abs(err) <= limit  # False for NaN too
+                    r_idx = rows[idx]
+                    n_leap[r_idx] += 1
+                    offset = (d[idx] * (steps_side[r_idx, side[idx]] + i + 1)).astype(int)
+                    if leaves is not None:
+                        leaves.append((r_idx, offset, j, qn.copy(), d[idx, None] * pn, lpn.copy(),
+                                       hn + lpn))
+                    sum_accept[r_idx] += np.where(ok, np.exp(np.minimum(0.0, -err)), 0.0)
+                    if not ok.all():
+                        bad = idx[~ok]
+                        live[bad] = False
+                        sub.failed[bad] = True
+                        rb = rows[bad]
+                        divergent[rb] = True
+                        div_error[rb] = err[~ok]
+                        replay_dir[rb] = d[bad]
+                        replay_steps[rb] = steps_side[rb, side[bad]] + i + 1
+                        keep = ok
+                        idx, qn, pn, lpn, gn, hn, err, offset = (
+                            idx[keep], qn[keep], pn[keep], lpn[keep], gn[keep], hn[keep], err[keep],
+                            offset[keep])
+                        everyone = False
+                    if everyone:
+                        cq, cp, clp, cg = qn, pn, lpn, gn
+                    else:
+                        cq[idx], cp[idx], clp[idx], cg[idx] = qn, pn, lpn, gn
+                    sub.add(i, idx, qn, pn, lpn, gn, hn, -err, velocity(pn), offset)
+                    live &= ~sub.failed
+                # ---- merge the finished subtrees into their trajectories
+                ok_sub = ~sub.failed
+                stop = rows[~ok_sub]
+                growing[stop] = False
+                turned[rows[sub.turned]] = True
+                tree_depth[rows] = j + 1
+                if not ok_sub.any():
+                    continue
+                k = np.flatnonzero(ok_sub)
+                r = rows[k]
+                merged[r, j] = True
+                u = uniforms[r, 3 * j + 2]
+                last_u[r] = u
+                take = np.log(u) < sub.log_w[k] - log_w[r]  # biased progressive sampling
+                t_rows, t_k = r[take], k[take]
+                sel_q[t_rows], sel_lp[t_rows], sel_g[t_rows] = (sub.q[t_k], sub.lp[t_k],
+                                                                sub.g[t_k])
+                sel_h[t_rows] = sub.h[t_k]
+                sel_offset[t_rows] = sub.offset[t_k]
+                moved[t_rows] = True
+                log_w[r] = np.logaddexp(log_w[r], sub.log_w[k])
+                dk = d[k]
+                rho[r] += dk[:, None] * sub.rho[k]
+                steps_side[r, side[k]] += 2 ** j
+                f, b = k[dk > 0], k[dk < 0]
+                rf, rb = rows[f], rows[b]
+                right_q[rf], right_p[rf], right_lp[rf], right_g[rf] = cq[f], cp[f], clp[f], cg[f]
+                left_q[rb], left_p[rb], left_lp[rb], left_g[rb] = cq[b], -cp[b], clp[b], cg[b]
+                # the generalised U-turn criterion on the whole trajectory
+                rr = rho[r]
+                u_turn = ((np.sum(velocity(left_p[r]) * rr, axis=1) <= 0)
+                          | (np.sum(velocity(right_p[r]) * rr, axis=1) <= 0))
+                growing[r[u_turn]] = False
+                turned[r[u_turn]] = True
+
+        state.position, state.logp, state.grad = sel_q, sel_lp, sel_g
+        hit = growing & (tree_depth == depth_max)
+        energy_error = np.where(divergent, div_error, sel_h - h0)
+        tree = None
+        if leaves is not None:
+            tree = _assemble(leaves, start_q, p0, start_lp, h0, sel_offset, merged, divergent,
+                             (replay_dir * replay_steps).astype(int), eps, limit)
+        return {
+            "accepted": moved,
+            "accept_prob": sum_accept / np.maximum(n_leap, 1),
+            "energy": sel_h,
+            "energy_error": energy_error,
+            "divergent": divergent,
+            "n_grad": n_leap.copy(),
+            "u": last_u,
+            "step_size": np.full(n, eps),
+            "tree_depth": tree_depth,
+            "n_leapfrog": n_leap,
+            "depth_limit_hit": hit,
+            "turned": turned,
+            "start_momentum": p0 * replay_dir[:, None],
+            "replay_steps": replay_steps,
+            "trajectory": tree,
+        }
+
+
+class _Subtree:
+    """A subtree of ``2**depth`` leaves being built for a batch of rows (internal).
+
+    Holds the multinomial candidate, the subtree's log-weight and momentum
+    sum, and for every level of the binary tree inside it the momentum sum
+    and ``p_sharp`` at the first leaf of the node being filled, so that each
+    node is checked for a U-turn the moment its last leaf arrives.
+    """
+
+    def __init__(self, n, dim, depth, u):
+        self.depth = depth
+        self.u = u.copy()            # the recycled selection uniform
+        self.log_w = np.full(n, -np.inf)
+        self.rho = np.zeros((n, dim))
+        self.q = np.full((n, dim), np.nan)
+        self.g = np.full((n, dim), np.nan)
+        self.lp = np.full(n, np.nan)
+        self.h = np.full(n, np.nan)
+        self.offset = np.zeros(n, dtype=int)
+        self.failed = np.zeros(n, dtype=bool)   # diverged or turned
+        self.turned = np.zeros(n, dtype=bool)
+        self.first_sharp = np.zeros((depth + 1, n, dim))
+        self.rho_before = np.zeros((depth + 1, n, dim))
+
+    def add(self, i, idx, q, p, lp, g, h, log_w, sharp, offset):
+        """Add leaf ``i`` for rows ``idx`` (weights ``log_w = H0 - H``, ``sharp = M^-1 p``).
+
+        ``offset`` is the leaf's place in time relative to the start (negative backward).
+        """
+        if idx.size == 0:
+            return
+        new_w = np.logaddexp(self.log_w[idx], log_w)
+        prob = np.exp(log_w - new_w)
+        u = self.u[idx]
+        take = u < prob
+        self.u[idx] = np.where(take, u / prob, (u - prob) / (1.0 - prob))
+        self.log_w[idx] = new_w
+        t = idx[take]
+        self.q[t], self.lp[t], self.g[t], self.h[t] = q[take], lp[take], g[take], h[take]
+        self.offset[t] = offset[take]
+        for level in range(1, self.depth + 1):
+            if i % (2 ** level) == 0:  # first leaf of a node at this level
+                self.first_sharp[level, idx] = sharp
+                self.rho_before[level, idx] = self.rho[idx]
+        self.rho[idx] += p
+        for level in range(1, self.depth + 1):
+            if (i + 1) % (2 ** level) == 0:  # last leaf: check the node
+                rho = self.rho[idx] - self.rho_before[level, idx]
+                u_turn = ((np.sum(self.first_sharp[level, idx] * rho, axis=1) <= 0)
+                          | (np.sum(sharp * rho, axis=1) <= 0))
+                bad = idx[u_turn]
+                self.failed[bad] = True
+                self.turned[bad] = True
+
+
+@dataclass(frozen=True, repr=False)
+class DoublingTree(Trajectory):
+    """Every state one NUTS transition integrated, in time order, for a batch of chains.
+
+    The fields of ``Trajectory`` (batch form, a leading chain axis) hold the
+    tree's states from its earliest to its latest, NaN-padded to the longest
+    tree in the batch; ``energy_error`` is relative to the transition's start
+    (not to row 0), and ``divergence_step`` is the row of the divergent state
+    (-1 when none). Momenta are the actual momenta (backward doublings were
+    integrated with the momentum reversed and are stored turned back).
+
+    Attributes
+    ----------
+    start : ndarray of int, shape (chains,)
+        Row of the transition's start.
+    selected : ndarray of int, shape (chains,)
+        Row of the state the transition moved to.
+    doubling : ndarray of int, shape (chains, rows)
+        Which doubling (0, 1, ...) integrated each state; -1 at the start,
+        -2 on padding.
+    merged : ndarray of bool, shape (chains, rows)
+        Whether the state belongs to the trajectory the next state was drawn
+        from (False for the abandoned last subtree: it turned or diverged).
+    """
+
+    start: np.ndarray = None
+    selected: np.ndarray = None
+    doubling: np.ndarray = None
+    merged: np.ndarray = None
+
+    def __repr__(self):
+        return (f"DoublingTree(batch of {self.positions.shape[0]} chains, up to "
+                f"{self.positions.shape[1]} states, {int(np.sum(self.divergent))} divergent)")
+
+
+def _assemble(leaves, start_q, p0, start_lp, h0, sel_offset, merged, divergent, div_offset, eps,
+              limit):
+    """Gather the recorded leaves into a DoublingTree (time order, NaN-padded)."""
+    n, dim = start_q.shape
+    lo = np.zeros(n, dtype=int)
+    hi = np.zeros(n, dtype=int)
+    for rows, off, *_ in leaves:
+        np.minimum.at(lo, rows, off)
+        np.maximum.at(hi, rows, off)
+    size = int(np.max(hi - lo)) + 1
+    base = -lo
+    positions = np.full((n, size, dim), np.nan)
+    momenta = np.full((n, size, dim), np.nan)
+    potential = np.full((n, size), np.nan)
+    kinetic = np.full((n, size), np.nan)
+    doubling = np.full((n, size), -2)
+    chains = np.arange(n)
+    positions[chains, base], momenta[chains, base] = start_q, p0
+    potential[chains, base] = -start_lp
+    kinetic[chains, base] = h0 + start_lp
+    doubling[chains, base] = -1
+    is_merged = np.zeros((n, size), dtype=bool)
+    is_merged[chains, base] = True
+    for rows, off, j, q, p, lp, kin in leaves:
+        at = base[rows] + off
+        positions[rows, at], momenta[rows, at] = q, p
+        potential[rows, at], kinetic[rows, at] = -lp, kin
+        doubling[rows, at] = j
+        is_merged[rows, at] = merged[rows, j]
+    ham = potential + kinetic
+    return DoublingTree(
+        positions=positions, momenta=momenta, potential=potential, kinetic=kinetic,
+        hamiltonian=ham, energy_error=ham - h0[:, None], divergent=divergent.copy(),
+        divergence_step=np.where(divergent, base + div_offset, -1), step_size=np.full(n, eps),
+        n_steps=size - 1, max_energy_error=limit, start=base, selected=base + sel_offset,
+        doubling=doubling, merged=is_merged)
