@@ -137,7 +137,7 @@ def test_replay_controls_are_disabled_until_there_is_a_divergence():
                               warmup=0, chunk=100, seed=1)
         before = [view._play.disabled, view._step_button.disabled, view._step_slider.disabled,
                   view._replay_knob.box.disabled]
-        primary_before = "pg-primary" in view._y_pick._dom_classes
+        primary_before = "pg-primary" in view._swap_pick._dom_classes
         await view.wait()
         return view, before, primary_before
 
@@ -147,7 +147,7 @@ def test_replay_controls_are_disabled_until_there_is_a_divergence():
     assert not (view._play.disabled or view._step_button.disabled or view._step_slider.disabled)
     # the control a browser test moves is now the replay slider (and only it)
     assert "pg-primary" in view._step_slider._dom_classes
-    assert "pg-primary" not in view._y_pick._dom_classes
+    assert "pg-primary" not in view._swap_pick._dom_classes
 
 
 def test_moving_the_primary_control_changes_the_pixels_at_once(view, blank_fraction):
@@ -189,13 +189,19 @@ def test_a_run_without_divergences_says_so(tmp_path):
     assert "no divergent transitions in 2 chains &times; 60 draws" in view._readout.value
     assert "never prove convergence" in view._readout.value
     assert view._play.disabled and view._step_button.disabled and view._step_slider.disabled
-    # with nothing to replay, the coordinate picker is the control that changes the figure
-    assert "pg-primary" in view._y_pick._dom_classes
+    # with nothing to replay, swapping x and y is the control that changes the figure
+    assert "pg-primary" in view._swap_pick._dom_classes
     assert "pg-primary" not in view._step_slider._dom_classes
     before = view.render()
-    view._y_pick.value = 2  # the next choice, as a browser test picks it
-    assert view.coords == (0, 2)
+    view._swap_pick.click()  # as a browser test clicks it
+    assert view.coords == (1, 0)
     assert np.any(view.render() != before)
+    view._y_pick.box.value = "_3"  # typed in the y picker: clock_3
+    assert view.coords == (1, 2)
+    # nothing to rank: the ranked-pair list and the grid say so and stay off
+    assert view._ranked_list.disabled and view._grid_toggle.disabled
+    assert view.pair_grid(4) is None and view.grid is None
+    assert "no ranked pairs" in view.status
     view.step()
     assert "no divergence" in view.status
     view.select(0)
@@ -339,3 +345,105 @@ def test_a_targets_view_moves_to_the_top_pair_once_sampled():
     assert view.names[view.coords[0]] == "log_tau"
     kept = DivergenceView(target, coords=(0, 2), **kw)
     assert kept.coords == (0, 2) and kept.ranking is not None
+
+
+# ------------------------------------------------------ grid of top-ranked pairs
+def test_the_grid_of_top_pairs_is_drawn_only_when_asked(warm_funnel_run):
+    view = DivergenceView(warm_funnel_run)
+    assert view.grid_figure is None and view.grid is None
+    assert view._grid_slot.children == () and not view._grid_toggle.value
+    view._grid_toggle.value = True  # the "top 4 pairs" button
+    assert len(view.grid.pairs) == 4 and view._grid_slot.children == (view.grid_figure.canvas,)
+    assert "pg-pair-grid" in view.grid_figure.canvas._dom_classes
+    view._grid_toggle.value = False
+    assert view._grid_slot.children == ()
+    for bad in (0, 7, 2.5, True):
+        with pytest.raises(ValueError, match="`k` must be an integer from 1 to 6"):
+            view.pair_grid(bad)
+
+
+@pytest.mark.parametrize("k", [4, 6])
+def test_the_grid_shows_the_rankings_top_pairs_in_order(warm_funnel_run, k):
+    from phaseglass.ui._base import number
+
+    run = warm_funnel_run
+    view = DivergenceView(run)
+    fig = view.pair_grid(k)
+    assert fig is view.grid_figure and view._grid_toggle.value
+    assert view._grid_toggle.description == f"top {k} pairs"
+    ranking = pg.divergence_ranking(run)
+    top = [tuple(int(v) for v in p) for p in ranking.pairs[:k]]
+    assert view.grid.pairs == top
+    c, t = np.nonzero(run.divergent)
+    starts = {(int(a), int(b)): tr.positions[0] for a, b, tr in view.divergences}
+    for rank, (pair, panel, ax) in enumerate(zip(top, view.grid.panels, view.grid.axes)):
+        x, y = (view.names[i] for i in pair)
+        title = view.grid.titles[rank].get_text()
+        assert title.startswith(f"{rank + 1}. {x} \u00d7")  # rank, then the pair
+        assert f"= {number(ranking.pair_score[rank], 3)}" in title  # and its score
+        assert (ax.get_xlabel(), ax.get_ylabel()) == (x, y)
+        # the X markers are the draws of the divergent transitions: their starting points
+        np.testing.assert_allclose(xy(panel.divergent), run.draws[c, t][:, list(pair)])
+        if not run.target.bounded:  # on the sampler's scale too: each replay's start
+            np.testing.assert_allclose(
+                xy(panel.divergent), np.array([starts[(a, b)] for a, b in zip(c, t)])[:, list(pair)])
+        assert len(xy(panel.points)) == run.n_chains * run.n_draws - run.n_divergent
+    # the pair shown above is framed
+    assert view.grid.marked == 0 and view.grid.titles[0].get_fontweight() == "bold"
+
+
+def test_choosing_a_panel_or_a_listed_pair_shows_that_pair(warm_funnel_run, fire):
+    run = warm_funnel_run
+    view = DivergenceView(run)
+    view.pair_grid(4)
+    view.grid_figure.canvas.draw()  # settle the layout before aiming
+    ax = view.grid.axes[2]
+    x, y = ax.transData.inverted().transform(ax.transAxes.transform((0.5, 0.5)))
+    fire(view.grid_figure, ax, "button_press_event", x, y)
+    pair = view.grid.pairs[2]
+    assert view.coords == pair
+    assert view._ax_pair.get_xlabel() == view.names[pair[0]]
+    c, t = np.nonzero(run.divergent)
+    np.testing.assert_allclose(xy(view._pair.divergent), run.draws[c, t][:, list(pair)])
+    assert view.grid.marked == 2 and view._ranked_list.value == 2
+    assert (view._x_pick.box.value, view._y_pick.box.value) == tuple(view.names[i] for i in pair)
+    # the list of ranked pairs does the same
+    view._ranked_list.value = 3
+    assert view.coords == view.grid.pairs[3] and view.grid.marked == 3
+    view.show_ranked_pair(0)
+    assert view.coords == view.ranking.top_pair
+    # another pair: no panel framed, the list says so
+    view.coords = (0, 2) if (0, 2) not in view._ranked_pairs() else (2, 3)
+    assert view.grid.marked == -1 and view._ranked_list.value == -1
+    with pytest.raises(ValueError, match="`rank` must be in range"):
+        view.show_ranked_pair(99)
+
+
+@pytest.mark.parametrize("k", [3, 4, 6])
+def test_the_grid_fits_the_column_and_nothing_is_cut(warm_funnel_run, k):
+    from phaseglass.ui._base import COLUMN_WIDTH_IN
+
+    view = DivergenceView(warm_funnel_run)
+    fig = view.pair_grid(k)
+    width, height = fig.get_size_inches()
+    assert width <= COLUMN_WIDTH_IN
+    fig.canvas.draw()
+    renderer = fig.canvas.get_renderer()
+    drawn = fig.get_tightbbox(renderer)  # inches
+    assert drawn.x0 >= -0.01 and drawn.y0 >= -0.01
+    assert drawn.x1 <= width + 0.01 and drawn.y1 <= height + 0.01
+    # every panel title stays above its own panel and clear of its neighbours' titles
+    boxes = [t.get_window_extent(renderer) for t in view.grid.titles]
+    for i, a in enumerate(boxes):
+        for b in boxes[i + 1:]:
+            assert not a.overlaps(b)
+    assert view._grid_shape(k)[1] * 2.4 <= COLUMN_WIDTH_IN + 0.01  # panels of 2.4 in or more
+
+
+def test_the_grid_follows_a_targets_run_once_ranked():
+    view = DivergenceView(pg.demos.orchards("centred"), kernel=pg.HMC(0.4, 8), n_draws=300,
+                          warmup=100, seed=1, background=False)
+    assert not view._grid_toggle.disabled and len(view._ranked_list.options) == 7
+    fig = view.pair_grid(2)
+    assert view.grid.pairs == [tuple(int(v) for v in p) for p in view.ranking.pairs[:2]]
+    assert tuple(fig.get_size_inches())[0] <= 7.6

@@ -1,4 +1,4 @@
-"""Pairwise scatter of draws with divergent transitions highlighted, for one pair or a grid."""
+"""Pairwise scatter of draws with divergent transitions highlighted: one pair, chosen pairs, a grid."""
 
 from dataclasses import dataclass, field
 
@@ -9,7 +9,8 @@ from matplotlib.lines import Line2D
 from . import style
 from ._base import Drawing, as_chain_draws, check_divergent
 
-__all__ = ["draw_pair", "draw_pair_grid", "PairDrawing", "PairGridDrawing"]
+__all__ = ["draw_pair", "draw_pair_panels", "draw_pair_grid", "PairDrawing", "PairPanelsDrawing",
+           "PairGridDrawing"]
 
 
 def _pooled(x, divergent, coords):
@@ -83,6 +84,119 @@ def draw_pair(ax, draws, coords=(0, 1), *, names=None, divergent=None, markersiz
     ax.set_ylabel(names[coords[1]])
     d = PairDrawing(ax=ax, points=pts, divergent=div, coords=coords)
     return d.update(x, divergent if divergent is not None else div_run)
+
+
+@dataclass(repr=False, eq=False)
+class PairPanelsDrawing(Drawing):
+    """Returned by ``draw_pair_panels``.
+
+    Attributes
+    ----------
+    axes : list of Axes
+        One per pair, in the order of ``pairs``.
+    panels : list of PairDrawing
+        The scatter of each pair (``panels[k].divergent`` holds its ``X`` markers).
+    titles : list of Text
+        Each panel's title.
+    pairs : list of (int, int)
+        The coordinates of each panel, x first.
+    marked : int
+        Index of the panel drawn with a dark frame (-1: none); see ``mark``.
+    """
+
+    axes: list
+    panels: list
+    titles: list
+    pairs: list
+    marked: int = -1
+    ax: object = field(default=None)
+
+    @property
+    def artists(self):
+        out = list(self.titles)
+        for p in self.panels:
+            out.extend(p.artists)
+        return out
+
+    def update(self, draws, divergent=None):
+        """Show new draws in every panel with the same artists."""
+        for p in self.panels:
+            p.autoscale = self.autoscale
+            p.update(draws, divergent)
+        return self
+
+    def panel_of(self, ax):
+        """Index of the panel drawn in ``ax`` (-1 when it is none of them)."""
+        for k, a in enumerate(self.axes):
+            if a is ax:
+                return k
+        return -1
+
+    def mark(self, index):
+        """Frame panel ``index`` in black (e.g. the pair a larger view shows); -1 frames none."""
+        index = int(index)
+        if not -1 <= index < len(self.axes):
+            raise ValueError(f"`index` must be -1 or in range({len(self.axes)}), got {index}")
+        for k, (ax, title) in enumerate(zip(self.axes, self.titles)):
+            on = k == index
+            for side, spine in ax.spines.items():
+                spine.set_visible(on or side in ("left", "bottom"))
+                spine.set_color(style.TEXT if on else "#888888")
+                spine.set_linewidth(1.8 if on else 0.8)
+            title.set_fontweight("bold" if on else "normal")
+        self.marked = index
+        return self
+
+
+def draw_pair_panels(axes, draws, pairs, *, names=None, divergent=None, titles=None,
+                     markersize=2.0, fontsize=8):
+    """Scatter several chosen pairs of coordinates, one pair per Axes, divergences marked.
+
+    Each panel is a ``draw_pair``: every draw as a small dot (chains pooled), the
+    draws of divergent transitions as ``X`` markers.
+
+    Parameters
+    ----------
+    axes : sequence of Axes
+        One per pair.
+    draws : Run or array_like, shape (chain, draw, dim)
+        A Run also gives names and ``divergent``.
+    pairs : sequence of (int or str, int or str)
+        The coordinates of each panel, x first.
+    names : sequence of str, optional
+    divergent : array_like of bool, shape (chain, draw), optional
+    titles : sequence of str, optional
+        One per panel; default ``"x \u00d7 y"``.
+    markersize, fontsize : float
+        Dot size, and the size of titles and axis labels.
+
+    Returns
+    -------
+    PairPanelsDrawing
+        ``update(draws, divergent=None)`` reuses the artists; ``mark(k)`` frames panel k.
+    """
+    axes = list(np.ravel(np.asarray(axes, dtype=object)))
+    pairs = [tuple(p) for p in pairs]
+    if len(axes) != len(pairs):
+        raise ValueError(f"`axes` must hold one Axes per pair: {len(pairs)} pairs, got "
+                         f"{len(axes)} Axes")
+    x, names, div_run = as_chain_draws(draws, names)
+    div = divergent if divergent is not None else div_run
+    if titles is not None and len(titles) != len(pairs):
+        raise ValueError(f"`titles` must hold one title per pair: {len(pairs)} pairs, got "
+                         f"{len(titles)}")
+    panels, texts = [], []
+    for k, (ax, pair) in enumerate(zip(axes, pairs)):
+        panel = draw_pair(ax, x, pair, names=names, divergent=div, markersize=markersize)
+        i, j = panel.coords
+        ax.xaxis.label.set_fontsize(fontsize)
+        ax.yaxis.label.set_fontsize(fontsize)
+        ax.tick_params(labelsize=fontsize - 1)
+        text = titles[k] if titles is not None else f"{names[i]} \u00d7 {names[j]}"
+        texts.append(ax.set_title(text, loc="left", fontsize=fontsize))
+        panels.append(panel)
+    return PairPanelsDrawing(axes=axes, panels=panels, titles=texts,
+                             pairs=[p.coords for p in panels])
 
 
 @dataclass(repr=False, eq=False)

@@ -16,14 +16,17 @@ from ..core.slices import choose_limits, resolve_coords
 from ..core.target import Target
 from ..core.triage import divergence_ranking
 from ..draw import draw_energy_error, draw_log_density, draw_pair, draw_trajectory, legend
+from ..draw.pairs import draw_pair_panels
 from ..draw.style import key_handles, note
-from ._base import COLUMN_WIDTH_IN, View, guarded, number, plural
-from ._controls import KnobControl
+from ._base import COLUMN_WIDTH_IN, View, guarded, make_canvas_figure, number, plural
+from ._controls import KnobControl, box_width_px, text_width_px
 from ._shared import GridCache
 
 __all__ = ["DivergenceView"]
 
 _PICK_RADIUS_PX = 6
+#: The grid of top-ranked pairs: panels by default and at most.
+GRID_PAIRS, MAX_GRID_PAIRS = 4, 6
 
 
 class DivergenceView(View):
@@ -39,6 +42,12 @@ class DivergenceView(View):
     replay the trajectory one leapfrog step at a time (they are disabled while
     there is nothing to replay). A readout gives the number of divergences,
     which one is shown, where it diverged and its energy error.
+
+    With many coordinates, the "ranked pair" list offers the top pairs of
+    ``pg.divergence_ranking(run)`` and the "top pairs" toggle (or
+    ``pair_grid(k)``) shows the top ``k`` of them (default 4, at most 6) as small
+    panels below the figure, each titled with its rank and score; clicking a
+    panel shows that pair above. The grid is drawn only when asked for.
 
     Given a Target instead of a Run, the view samples it itself: a short
     warm-up (run at once), then ``n_draws`` draws. In a notebook (an asyncio
@@ -78,6 +87,10 @@ class DivergenceView(View):
     ranking : DivergenceRanking or None
         ``pg.divergence_ranking`` of the run (None until a Target's sampling is done).
     figure : matplotlib.figure.Figure
+    grid_figure : matplotlib.figure.Figure or None
+        The grid of top-ranked pairs (None until ``pair_grid`` or the toggle draws it).
+    grid : PairPanelsDrawing or None
+        Its panels (``grid.pairs``, ``grid.panels``).
 
     Examples
     --------
@@ -86,6 +99,9 @@ class DivergenceView(View):
     ...                 n_chains=2, seed=1)
     >>> view = pg.DivergenceView(run)        # opens on the top-ranked pair
     >>> view.coords == view.ranking.top_pair
+    True
+    >>> fig = view.pair_grid(4)              # the top 4 pairs, shown below the figure
+    >>> view.grid.pairs[0] == view.ranking.top_pair
     True
     >>> view = pg.DivergenceView(run, coords=("log_tau", "effect_1"))
     >>> len(view.divergences) == run.n_divergent
@@ -141,6 +157,8 @@ class DivergenceView(View):
         self._sampling_settings = None
         self.ranking = None
         self._auto_coords = coords is None
+        self.grid_figure = self.grid = None
+        self._grid_k = GRID_PAIRS
         if run is not None:
             self.ranking = divergence_ranking(run)
         if coords is None:
@@ -262,6 +280,7 @@ class DivergenceView(View):
         self._pick_list.add_class("pg-divergence-pick")
         self._pick_list.observe(self._on_list, "value")
         self._coordinate_pickers(self.names)
+        self._build_pair_controls()
         self._play = widgets.Play(value=0, min=0, max=0, step=1, interval=250, show_repeat=False,
                                   description="replay")
         self._play.add_class("pg-replay-play")
@@ -276,30 +295,200 @@ class DivergenceView(View):
         self._readout = widgets.HTML()
         self._readout.add_class("pg-divergence-readout")
         self._sync_controls()
+        wrap = lay(flex_flow="row wrap", align_items="center")
         self.children = [
-            widgets.HBox([self._pick_list, self._x_pick, self._y_pick]),
+            widgets.HBox([self._pick_list, self._x_pick, self._y_pick, self._swap_pick],
+                         layout=wrap),
             widgets.HBox([self._play, self._step_button, self._replay_knob]),
-            self.figure.canvas, self._readout, self._status_html,
+            widgets.HBox([self._ranked_list, self._grid_toggle], layout=wrap),
+            self.figure.canvas, self._grid_slot, self._readout, self._status_html,
         ]
 
     def _sync_controls(self):
         """Replay controls work only when there is a divergence to replay.
 
         The control marked ``pg-primary`` (the one a browser test moves) is the
-        replay slider then, and the y coordinate picker otherwise: either
+        replay slider then, and the button swapping x and y otherwise: either
         changes the figure at once.
         """
         idle = self.trajectory is None
         self._play.disabled = self._step_button.disabled = idle
         self._replay_knob.disabled = idle
         self._step_slider.remove_class("pg-primary")
-        self._y_pick.remove_class("pg-primary")
-        (self._y_pick if idle else self._step_slider).add_class("pg-primary")
+        self._swap_pick.remove_class("pg-primary")
+        (self._swap_pick if idle else self._step_slider).add_class("pg-primary")
 
     def _on_list(self, change):
         if self._syncing or change["new"] == self.selected:
             return
         self.select(change["new"])
+
+    # ------------------------------------------------------ top-ranked pairs
+    def _build_pair_controls(self):
+        lay = widgets.Layout
+        self._ranked_list = widgets.Dropdown(options=[("no divergences to rank", -1)], value=-1,
+                                             description="ranked pair",
+                                             style={"description_width": "initial"})
+        self._ranked_list.add_class("pg-ranked-pair")
+        self._ranked_list.observe(self._on_ranked_list, "value")
+        self._grid_toggle = widgets.ToggleButton(
+            value=False, description=f"top {GRID_PAIRS} pairs", icon="th",
+            tooltip="Show the top-ranked pairs as small panels below the figure; click one to "
+                    "show it above", layout=lay(width="auto", flex="0 0 auto"))
+        self._grid_toggle.add_class("pg-pair-grid-toggle")
+        self._grid_toggle.observe(self._on_grid_toggle, "value")
+        self._grid_slot = widgets.Box(layout=lay(flex_flow="column"))
+        self._fill_ranked_list()
+
+    def _ranked_pairs(self, k=MAX_GRID_PAIRS):
+        """The top ``k`` pairs of the ranking, as tuples of int (empty when none)."""
+        r = self.ranking
+        if r is None or r.empty:
+            return []
+        return [(int(a), int(b)) for a, b in r.pairs[:k]]
+
+    def _pair_words(self, rank):
+        """``("log_tau \u00d7 effect_1", "|shift| 0.8 + 0.4 = 1.2")`` for the pair ranked ``rank``."""
+        r = self.ranking
+        a, b = (int(v) for v in r.pairs[rank])
+        return (f"{self.names[a]} \u00d7 {self.names[b]}",
+                f"|shift| {number(abs(r.shift[a]), 2)} + {number(abs(r.shift[b]), 2)} = "
+                f"{number(r.pair_score[rank], 3)}")
+
+    def _fill_ranked_list(self):
+        pairs = self._ranked_pairs()
+        with self._sync():
+            if not pairs:
+                self._ranked_list.options = [("no divergences to rank", -1)]
+                self._ranked_list.value = -1
+            else:
+                labels = [(f"{k + 1}. {self._pair_words(k)[0]} "
+                           f"({number(self.ranking.pair_score[k], 3)})", k)
+                          for k in range(len(pairs))]
+                self._ranked_list.options = labels + [("another pair", -1)]
+                self._ranked_list.value = self._rank_of(self.coords)
+        # two names per choice: up to 560 px, with the 90 px description within the column
+        width = box_width_px([label for label, _ in self._ranked_list.options], chrome=44,
+                             most=560)
+        self._ranked_list.layout.width = f"{width + 90}px"
+        self._ranked_list.disabled = not pairs
+        self._grid_toggle.disabled = not pairs
+
+    def _rank_of(self, coords):
+        """Rank (0-based) of the pair ``coords`` (either order) among the listed ones, or -1."""
+        pairs = self._ranked_pairs()
+        c = tuple(int(v) for v in coords)
+        for k, p in enumerate(pairs):
+            if c in (p, p[::-1]):
+                return k
+        return -1
+
+    def _on_ranked_list(self, change):
+        if self._syncing or change["new"] < 0:
+            return
+        self.show_ranked_pair(change["new"])
+
+    def show_ranked_pair(self, rank):
+        """Show the pair ranked ``rank`` (0: the top pair) of ``ranking`` in the main figure."""
+        pairs = self._ranked_pairs(len(self.ranking.pairs) if self.ranking is not None else 0)
+        if not pairs:
+            self.status = "no divergent transitions: there are no ranked pairs"
+            return
+        if not 0 <= int(rank) < len(pairs):
+            raise ValueError(f"`rank` must be in range({len(pairs)}), got {rank}")
+        self.coords = pairs[int(rank)]
+
+    def pair_grid(self, k=GRID_PAIRS):
+        """Draw the top ``k`` ranked pairs as small panels below the figure; return their Figure.
+
+        Each panel is the main scatter for one pair (every draw, the divergent ones
+        as ``X``), titled with its rank, its score (``ranking.pair_score``) and the two
+        ``|shift|`` values it adds up; the pair shown above is framed. Clicking a
+        panel shows its pair above. Drawn only when asked for (here or with the
+        "top pairs" toggle), so opening the view stays fast.
+
+        Parameters
+        ----------
+        k : int
+            Number of panels, 1 to 6 (fewer when the run has fewer pairs).
+        """
+        if isinstance(k, bool) or not isinstance(k, (int, np.integer)) or not 1 <= k <= MAX_GRID_PAIRS:
+            raise ValueError(f"`k` must be an integer from 1 to {MAX_GRID_PAIRS}, got {k!r}")
+        self._grid_k = int(k)
+        with self._sync():
+            self._grid_toggle.value = True
+            self._grid_toggle.description = f"top {self._grid_k} pairs"
+        self._draw_grid()
+        return self.grid_figure
+
+    def _on_grid_toggle(self, change):
+        if self._syncing:
+            return
+        if change["new"]:
+            self._draw_grid()
+        else:
+            self._grid_slot.children = ()
+
+    @staticmethod
+    def _grid_shape(k):
+        """(rows, columns) of a grid of ``k`` panels in the column: two or three across."""
+        cols = 1 if k == 1 else (2 if k in (2, 4) else 3)
+        return -(-k // cols), cols
+
+    def _grid_titles(self, k, cols):
+        room = 0.9 * COLUMN_WIDTH_IN * 100 / cols - 40  # px of a panel's title line
+        titles = []
+        for rank in range(k):
+            names, score = self._pair_words(rank)
+            head = f"{rank + 1}. {names}"
+            if text_width_px(head, size=8 * 100 / 72) > room:  # 8 pt at 100 dpi
+                head = head.replace(" \u00d7 ", " \u00d7\n", 1)
+            titles.append(f"{head}\n{score}")
+        return titles
+
+    @guarded("grid of top pairs")
+    def _draw_grid(self):
+        pairs = self._ranked_pairs(self._grid_k)
+        if self._run is None or not pairs:
+            self.status = "no divergent transitions yet: there are no ranked pairs to show"
+            return
+        k = len(pairs)
+        rows, cols = self._grid_shape(k)
+        size = (COLUMN_WIDTH_IN, 0.35 + 2.55 * rows)
+        fig = self.grid_figure
+        if fig is None or tuple(fig.get_size_inches()) != size:
+            if fig is not None:
+                fig.canvas.close()
+            fig = make_canvas_figure(size, css_class="pg-pair-grid")
+            fig.canvas.mpl_connect("button_press_event", self._on_grid_click)
+            self.grid_figure = fig
+        fig.clear()
+        axes = fig.subplots(rows, cols, squeeze=False).ravel()
+        for ax in axes[k:]:
+            ax.set_visible(False)
+        self.grid = draw_pair_panels(axes[:k], self._run, pairs, names=self.names,
+                                     titles=self._grid_titles(k, cols), markersize=2.0)
+        fig.suptitle(f"top {plural(k, 'pair')} where divergent draws (\u2716) differ most; "
+                     "click a panel to show it above", fontsize=9, x=0.01, ha="left")
+        self._mark_grid()
+        self._grid_slot.children = (fig.canvas,)
+
+    def _mark_grid(self):
+        if self.grid is None:
+            return
+        c = tuple(self.coords)
+        self.grid.mark(next((k for k, p in enumerate(self.grid.pairs) if c in (p, p[::-1])), -1))
+        self.grid_figure.canvas.draw_idle()
+
+    @guarded("click on the grid of top pairs")
+    def _on_grid_click(self, event):
+        if self.grid is None or event.inaxes is None:
+            return
+        if getattr(getattr(self.grid_figure.canvas, "toolbar", None), "mode", ""):
+            return  # zooming or panning, not choosing
+        k = self.grid.panel_of(event.inaxes)
+        if k >= 0:
+            self.coords = self.grid.pairs[k]
 
     # ---------------------------------------------------------------- figure
     def _build_figure(self):
@@ -432,6 +621,7 @@ class DivergenceView(View):
 
     def _rank_when_done(self, run):
         self.ranking = divergence_ranking(run)
+        self._fill_ranked_list()
         if self._auto_coords and not self.ranking.empty:
             self.coords = self.ranking.top_pair
 
@@ -579,7 +769,9 @@ class DivergenceView(View):
         self._auto_coords = False  # chosen now: a Target's finished sampling keeps them
         with self._sync():
             self._x_pick.value, self._y_pick.value = self.coords
+            self._ranked_list.value = self._rank_of(self.coords)
         self._redo_coords()
+        self._mark_grid()
 
     @guarded("coordinate change")
     def _redo_coords(self):
