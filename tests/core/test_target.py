@@ -48,6 +48,8 @@ DEMO_POINTS = {
     "orchards-noncentred": lambda rng: np.r_[rng.uniform(-5, 5), rng.uniform(-1, 2), rng.normal(0, 1, 7)],
     "glaze": lambda rng: rng.standard_normal(2),
     "late-returns": lambda rng: rng.normal(0.0, 0.5, 20),
+    "apiaries": lambda rng: np.r_[rng.normal(3, 0.3), rng.uniform(-3, 0.5), rng.normal(3, 0.5, 48)],
+    "apiaries-noncentred": lambda rng: np.r_[rng.normal(3, 0.3), rng.uniform(-3, 0.5), rng.normal(0, 1, 48)],
 }
 
 

@@ -13,6 +13,7 @@ __all__ = [
     "orchards",
     "glaze_ridge",
     "late_returns",
+    "apiaries",
     "DEMOS",
     "get",
 ]
@@ -230,6 +231,145 @@ def late_returns(n_rows=2000, n_coef=20, seed=20261202, prior_sd=2.5):
                      f"{n_rows} bookings and {n_coef} coefficients.")
     return t
 
+# ------------------------------------------------------- many parameters
+
+#: Seed of the generator that invents the apiaries' data (kept as generator + seed).
+APIARY_SEED = 1203
+_APIARY_PRIOR_MU = (2.0, 4.0)      # mean and sd (kg) of the normal prior on mu
+_APIARY_PRIOR_TAU_SCALE = 1.5      # scale (kg) of the half-normal prior on tau
+_APIARY_HIVE_SD = 2.4              # hive-to-hive sd within an apiary (kg), taken as known
+
+
+def _apiary_data(n_groups, seed):
+    """Invent the hive weighings: (hives per apiary, every hive's gain, which apiary).
+
+    The truth behind them: a mean gain of 3.1 kg and a small spread of 0.3 kg
+    between apiaries, much smaller than the hive-to-hive spread, so the data
+    say little about each apiary and the spread's posterior reaches down to 0.
+    """
+    rng = np.random.default_rng(np.random.SeedSequence(seed))
+    true_effect = rng.normal(3.1, 0.3, n_groups)
+    hives = rng.integers(3, 9, n_groups)  # 3 to 8 hives weighed per apiary
+    group = np.repeat(np.arange(n_groups), hives)
+    gain = np.round(rng.normal(true_effect[group], _APIARY_HIVE_SD), 2)  # scales read to 10 g
+    return hives, gain, group, true_effect
+
+
+def apiaries(form="centred", n_groups=48, seed=APIARY_SEED):
+    """Hierarchical model with many parameters: honey gain at ``n_groups`` invented apiaries.
+
+    Scenario (invented, data drawn by our own seeded generator): during one week
+    of lime-tree bloom, 3 to 8 hives at each of ``n_groups`` apiaries are
+    weighed before and after; ``gain_i`` (kg) is hive i's weight gain. Hives
+    at apiary j gain ``N(apiary_j, 2.4)`` (the hive-to-hive sd is taken as known);
+    the apiaries' own means are ``apiary_j ~ N(mu, tau)``, with priors
+    ``mu ~ N(2, 4)`` and ``tau ~ half-normal(1.5)``, sampled as ``log_tau``
+    (the log-Jacobian is included).
+
+    The centred form samples ``mu, log_tau, apiary[0..n_groups-1]``: where
+    ``tau`` is small the apiaries are squeezed together (a funnel), and HMC
+    with a step size tuned for the wide part diverges there. The non-centred
+    form samples standard offsets ``z[j]`` with ``apiary_j = mu + tau z_j``,
+    which removes the funnel; both forms describe the same posterior of
+    ``(mu, tau)``.
+
+    Parameters
+    ----------
+    form : {"centred", "noncentred"}
+    n_groups : int >= 2
+        Number of apiaries (dim = n_groups + 2). The default 48 gives dim 50.
+    seed : int
+        Seed of the ``SeedSequence`` that invents the data (``APIARY_SEED``).
+
+    Returns
+    -------
+    Target
+        With ``form``, ``hives`` (n_groups,) hives per apiary, ``gain`` (n_hives,)
+        every hive's gain, ``group`` (n_hives,) its apiary, ``true_effect``
+        (n_groups,) the apiary means the data were made from, ``hive_sd``,
+        ``prior_mu`` (mean, sd) and ``prior_tau_scale``.
+
+    Examples
+    --------
+    >>> import phaseglass as pg
+    >>> t = pg.demos.apiaries("noncentred")
+    >>> t.dim, t.names[:3]
+    (50, ('mu', 'log_tau', 'z[0]'))
+    """
+    if form not in ("centred", "noncentred"):
+        raise ValueError(f"`form` must be 'centred' or 'noncentred', got {form!r}")
+    if isinstance(n_groups, bool) or not isinstance(n_groups, (int, np.integer)) or n_groups < 2:
+        raise ValueError(f"`n_groups` must be an integer >= 2, got {n_groups!r}")
+    n_groups = int(n_groups)
+    hives, gain, group, true_effect = _apiary_data(n_groups, seed)
+    J = n_groups
+    # the likelihood through each apiary's count, mean and sum of squares (exact, constants kept)
+    n = hives.astype(float)
+    ybar = np.bincount(group, weights=gain, minlength=J) / n
+    ss = float(np.sum((gain - ybar[group]) ** 2))
+    sig2 = _APIARY_HIVE_SD**2
+    w = n / sig2  # precision of each apiary's mean
+    half_log_2pi = 0.5 * np.log(2.0 * np.pi)
+    lik_const = -gain.size * (half_log_2pi + np.log(_APIARY_HIVE_SD)) - 0.5 * ss / sig2
+    m0, s0 = _APIARY_PRIOR_MU
+    scale = _APIARY_PRIOR_TAU_SCALE
+    # N(m0, s0) on mu and half-normal(scale) on tau, normalised
+    prior_const = (-half_log_2pi - np.log(s0)) + (np.log(2.0) - half_log_2pi - np.log(scale))
+
+    def hyper_terms(mu, s):
+        tau = np.exp(s)
+        lp = prior_const - 0.5 * ((mu - m0) / s0) ** 2 - 0.5 * (tau / scale) ** 2 + s
+        d_mu = -(mu - m0) / s0**2
+        d_s = 1.0 - (tau / scale) ** 2
+        return tau, lp, d_mu, d_s
+
+    if form == "centred":
+        def value_and_grad(x):
+            mu, s, th = x[:, 0], x[:, 1], x[:, 2:]
+            tau, lp, d_mu, d_s = hyper_terms(mu, s)
+            dev = (th - mu[:, None]) / tau[:, None]
+            resid = ybar - th
+            lp = (lp + lik_const - J * (half_log_2pi + s) - 0.5 * np.sum(dev * dev, axis=1)
+                  - 0.5 * np.sum(w * resid * resid, axis=1))
+            g = np.empty_like(x)
+            g[:, 0] = d_mu + np.sum(dev, axis=1) / tau
+            g[:, 1] = d_s - J + np.sum(dev * dev, axis=1)
+            g[:, 2:] = -dev / tau[:, None] + w * resid
+            return lp, g
+
+        names = ["mu", "log_tau"] + [f"apiary[{j}]" for j in range(J)]
+    else:
+        def value_and_grad(x):
+            mu, s, z = x[:, 0], x[:, 1], x[:, 2:]
+            tau, lp, d_mu, d_s = hyper_terms(mu, s)
+            resid = ybar - (mu[:, None] + tau[:, None] * z)
+            lp = (lp + lik_const - J * half_log_2pi - 0.5 * np.sum(z * z, axis=1)
+                  - 0.5 * np.sum(w * resid * resid, axis=1))
+            dth = w * resid  # d lp / d apiary_j
+            g = np.empty_like(x)
+            g[:, 0] = d_mu + np.sum(dth, axis=1)
+            g[:, 1] = d_s + tau * np.sum(dth * z, axis=1)
+            g[:, 2:] = -z + tau[:, None] * dth
+            return lp, g
+
+        names = ["mu", "log_tau"] + [f"z[{j}]" for j in range(J)]
+
+    def log_density(x):
+        return value_and_grad(x)[0]
+
+    t = Target(log_density, dim=J + 2, vectorized=True, value_and_grad=value_and_grad,
+               names=names)
+    t.form = form
+    t.hives, t.gain, t.group, t.true_effect = hives, gain, group, true_effect
+    t.hive_sd = _APIARY_HIVE_SD
+    t.prior_mu = _APIARY_PRIOR_MU
+    t.prior_tau_scale = _APIARY_PRIOR_TAU_SCALE
+    t.description = (
+        f"Honey gain at {J} apiaries in a week of lime-tree bloom (invented data, {gain.size} "
+        f"hives weighed), {form} form: apiary means partially pooled, dim {J + 2}."
+    )
+    return t
+
 
 DEMOS = {
     "gaussian": correlated_gaussian,
@@ -237,6 +377,8 @@ DEMOS = {
     "orchards-noncentred": lambda: orchards("noncentred"),
     "glaze": glaze_ridge,
     "late-returns": late_returns,
+    "apiaries": lambda: apiaries("centred"),
+    "apiaries-noncentred": lambda: apiaries("noncentred"),
 }
 
 
