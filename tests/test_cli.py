@@ -276,7 +276,7 @@ def test_a_later_report_replaces_and_removes_only_the_earlier_reports_files(tmp_
 
 def test_a_crash_midway_leaves_whole_files_and_a_folder_the_next_run_accepts(tmp_path, monkeypatch,
                                                                             capsys):
-    from phaseglass import report
+    from phaseglass.report import render
 
     out = tmp_path / "rep"
     assert main(["report", *FAST, "--kernel", "walk", "--out", str(out)]) == 0
@@ -285,7 +285,7 @@ def test_a_crash_midway_leaves_whole_files_and_a_folder_the_next_run_accepts(tmp
     def broken(*a, **k):
         raise RuntimeError("the drawing code fell over")
 
-    monkeypatch.setattr(report, "_figure_energy", broken)  # HMC draws it after several new figures
+    monkeypatch.setattr(render, "figure_energy", broken)  # HMC draws it after several new figures
     with pytest.raises(RuntimeError, match="fell over"):
         main(["report", *FAST, "--out", str(out)])
     assert (out / "report.html").read_bytes() == html_before  # the old page, whole
@@ -300,6 +300,7 @@ def test_a_crash_midway_leaves_whole_files_and_a_folder_the_next_run_accepts(tmp
 
 def test_atomic_write_leaves_the_old_file_when_writing_fails(tmp_path, monkeypatch):
     from phaseglass import report
+    from phaseglass.report import files
 
     target = tmp_path / "summary.json"
     target.write_text('{"old": 1}')
@@ -307,7 +308,7 @@ def test_atomic_write_leaves_the_old_file_when_writing_fails(tmp_path, monkeypat
     def fail_fsync(fd):
         raise OSError(28, "No space left on device")
 
-    monkeypatch.setattr(report.os, "fsync", fail_fsync)  # fails after the data went to the temp file
+    monkeypatch.setattr(files.os, "fsync", fail_fsync)  # fails after the data went to the temp file
     with pytest.raises(OSError, match="No space left"):
         report.atomic_write(target, '{"new": "\u26a0"}')
     assert target.read_text() == '{"old": 1}'
@@ -317,7 +318,7 @@ def test_atomic_write_leaves_the_old_file_when_writing_fails(tmp_path, monkeypat
     def fail_replace(src, dst):
         raise KeyboardInterrupt  # even Ctrl-C at the last moment
 
-    monkeypatch.setattr(report.os, "replace", fail_replace)
+    monkeypatch.setattr(files.os, "replace", fail_replace)
     with pytest.raises(KeyboardInterrupt):
         report.atomic_write(target, b"new bytes")
     assert target.read_text() == '{"old": 1}'
