@@ -4,6 +4,7 @@ Pure numpy/scipy; never imports matplotlib or ipywidgets, so it works from a pla
 """
 
 from . import demos
+from .compare import KernelComparison, compare_kernels
 from .diagnostics import autocorrelation, ebfmi, ess, mcse, rhat
 from .gibbs import Gibbs
 from .kernels import HMC, Kernel, PartialRefreshHMC, RandomWalk, kernel_from_settings
@@ -28,4 +29,5 @@ __all__ = [
     "ess", "rhat", "mcse", "autocorrelation", "ebfmi", "demos",
     "log_density_grid",
     "divergence_ranking", "DivergenceRanking",
+    "compare_kernels", "KernelComparison",
 ]
