@@ -1,5 +1,6 @@
 """TuningMap: short runs over a grid of sampler knobs, computed in the background."""
 
+import concurrent.futures
 import functools
 import html
 import threading
@@ -10,11 +11,12 @@ import numpy as np
 import traitlets
 
 from ..core._validate import MAX_STEPS
+from ..core.compare import (CellAborted, check_executor, pack, run_fixed, run_fixed_portable,
+                            run_packed)
 from ..core.efficiency import ess_per_gradient, evaluation_cost
 from ..core.kernels import HMC, PartialRefreshHMC, RandomWalk
 from ..core.metric import Metric
 from ..core.run import CAUTION
-from ..core.sampling import Sampler
 from ..draw import draw_knob_grid
 from ._base import View, check_range, check_target, guarded, number, plural
 from ._shared import pilot
@@ -39,12 +41,11 @@ _KERNEL_TITLES = {"hmc": "HMC", "partial": "HMC with partial momentum refresh",
                   "walk": "random-walk Metropolis"}
 _DEFAULT_N_STEPS = (1, 2, 4, 8, 16, 32)
 _DEFAULT_PERSISTENCE = (0.0, 0.8, 0.95)
-_CHUNK = 1  # transitions between checks of the stop/abort flags: a stop acts within one
 _DRAW_EVERY = 0.5  # seconds between canvas updates from the background thread
 
 
-class _Aborted(Exception):
-    """A cell was abandoned because its results are no longer wanted."""
+_Aborted = CellAborted  # a cell abandoned because its results are no longer wanted
+_POLL = 0.1  # seconds between checks of the stop/abort flags while futures run
 
 
 def make_cell_kernel(kernel, step_size, n_steps, persistence=None, uniform="fresh", metric=None):
@@ -119,21 +120,9 @@ def measure_cell(target, kernel, *, n_draws, n_chains, burn_in=0, seed=0, initia
     >>> sorted(q)
     ['ESS per gradient', 'acceptance', 'divergence rate']
     """
-    sampler = Sampler(target, kernel, initial, n_chains=n_chains, seed=seed)
-
-    def advance(n):
-        while n > 0:
-            if should_abort is not None and should_abort():
-                raise _Aborted
-            k = min(_CHUNK, n)
-            sampler.step(k)
-            n -= k
-
-    if burn_in:
-        advance(burn_in)
-        sampler.reset_records()
-    advance(n_draws)
-    return cell_quantities(sampler.run)
+    run = run_fixed(target, kernel, n_draws=n_draws, n_chains=n_chains, burn_in=burn_in,
+                    seed=seed, initial=initial, should_abort=should_abort)
+    return cell_quantities(run)
 
 
 def _round3(values):
@@ -186,6 +175,17 @@ class TuningMap(View):
     in the calling thread (scripts, tests). Changing a setting discards the
     results and, with ``autorun`` (the default), starts a new pass.
 
+    The cells are independent runs, so they can also run on an ``executor``
+    (any ``concurrent.futures.Executor``: a ``ProcessPoolExecutor``, or a
+    cluster's ``dask.distributed.Client(address).get_executor()``). Every cell
+    is then submitted as a future and the map fills in as they finish, with
+    the same numbers as computed here. The target travels to the workers
+    pickled with cloudpickle (when installed; lambdas and closures travel too);
+    one that cannot be pickled is refused when the map is built. Stop cancels
+    the cells not yet started; a cell already running on a worker cannot be
+    interrupted there: it finishes on its worker and its result is discarded
+    (the cell stays blank, as here).
+
     Parameters
     ----------
     target : Target
@@ -215,6 +215,9 @@ class TuningMap(View):
         Mass matrix of every cell's kernel (e.g. ``run.kernel.metric``; see also
         ``TuningMap.from_run``). Identity when None, as before; step sizes are then
         on the unscaled coordinates.
+    executor : concurrent.futures.Executor, optional
+        Where the cells run; None (the default) computes them one by one in the
+        background thread. Not part of ``settings``.
 
     Attributes
     ----------
@@ -266,8 +269,12 @@ class TuningMap(View):
     def __init__(self, target, *, kernel="hmc", step_sizes=None, n_steps=None, persistence=None,
                  n_draws=150, n_chains=4, burn_in=25, seed=0, quantity="acceptance",
                  uniform="fresh", opens="trajectory", persistence_index=0, autorun=True,
-                 metric=None, mass_matrix=None):
+                 metric=None, mass_matrix=None, executor=None):
         check_target(target)
+        #: Where the cells run (None: here, in the background thread). Not part of ``settings``.
+        self.executor = check_executor(executor)
+        # pickled once, here, so a target that cannot travel is refused at once
+        self._target_blob = None if executor is None else pack(target, "target")
         if mass_matrix is not None:
             if not isinstance(mass_matrix, Metric):
                 raise ValueError("`mass_matrix` must be a pg.Metric (e.g. run.kernel.metric or "
@@ -532,7 +539,11 @@ class TuningMap(View):
         return self
 
     def stop(self):
-        """Stop the background pass within one transition; unfinished cells stay NaN."""
+        """Stop the background pass within one transition; unfinished cells stay NaN.
+
+        With an ``executor``: cells not yet started are cancelled; a cell running on
+        a worker finishes there (it cannot be interrupted) and its result is ignored.
+        """
         job = self._job
         if job is not None:
             job.stop.set()
@@ -558,6 +569,9 @@ class TuningMap(View):
         try:
             pilot = self._pilot()
             initial = None if pilot is None else pilot.initial
+            if self.executor is not None:
+                self._work_on_executor(job, background, initial)
+                return
             for k, i, j in job.cells:
                 if job.stop.is_set() or job.abort.is_set():
                     break
@@ -576,11 +590,14 @@ class TuningMap(View):
                 except Exception as exc:
                     self.report_error("tuning map redraw", exc)
 
+    @staticmethod
+    def _cell_kernel(c, k, i, j):
+        return make_cell_kernel(c["kernel"], c["step_sizes"][j], c["n_steps"][i], c["slices"][k],
+                                c["uniform"], metric=c.get("mass_matrix"))
+
     def _compute_cell(self, job, k, i, j, initial):
         c = job.config
-        eps, n_steps, a = c["step_sizes"][j], c["n_steps"][i], c["slices"][k]
-        kernel = make_cell_kernel(c["kernel"], eps, n_steps, a, c["uniform"],
-                                  metric=c.get("mass_matrix"))
+        kernel = self._cell_kernel(c, k, i, j)
         try:
             out = measure_cell(self.target, kernel, n_draws=c["n_draws"], n_chains=c["n_chains"],
                                burn_in=c["burn_in"], seed=c["seed"], initial=initial,
@@ -590,6 +607,50 @@ class TuningMap(View):
             return
         except Exception as exc:  # user code (their log-density) can raise anything
             out, error = None, exc
+        self._store_cell(job, k, i, j, out, error)
+
+    def _work_on_executor(self, job, background, initial):
+        """Submit every cell as a future; store results as they finish; Stop cancels the rest.
+
+        Workers return the cell's Run (without its target) and the quantities are
+        computed here by ``cell_quantities``, the same function as for a cell
+        computed in this process, so the numbers are the same.
+        """
+        c = job.config
+        futures = {}
+        try:
+            for k, i, j in job.cells:
+                if job.stop.is_set() or job.abort.is_set():
+                    break
+                call = pack((run_fixed_portable, (self._cell_kernel(c, k, i, j),),
+                             {"n_draws": c["n_draws"], "n_chains": c["n_chains"],
+                              "burn_in": c["burn_in"], "seed": c["seed"], "initial": initial}),
+                            "kernel")
+                futures[self.executor.submit(run_packed, self._target_blob, call)] = (k, i, j)
+            pending = set(futures)
+            last_draw = time.perf_counter()
+            while pending and not (job.stop.is_set() or job.abort.is_set()):
+                done, pending = concurrent.futures.wait(
+                    pending, timeout=_POLL, return_when=concurrent.futures.FIRST_COMPLETED)
+                for fut in done:
+                    try:
+                        out, error = cell_quantities(fut.result()), None
+                    except concurrent.futures.CancelledError:
+                        continue
+                    except Exception as exc:  # user code, or the worker itself, failed
+                        out, error = None, exc
+                    self._store_cell(job, *futures[fut], out, error)
+                if background and done and time.perf_counter() - last_draw > _DRAW_EVERY:
+                    self._refresh(draw=True)
+                    last_draw = time.perf_counter()
+        finally:
+            # Stop, a settings change or an error: cells not started are not wanted; a
+            # running one cannot be interrupted on its worker and its result is ignored
+            for fut in futures:
+                fut.cancel()
+
+    def _store_cell(self, job, k, i, j, out, error):
+        c = job.config
         with self._lock:
             if self._job is not job:
                 return  # stale: settings changed while this cell ran
@@ -681,12 +742,12 @@ class TuningMap(View):
         return cls(target, **args)
 
     @classmethod
-    def from_settings(cls, target, settings, *, autorun=True):
+    def from_settings(cls, target, settings, *, autorun=True, executor=None):
         """Build a map on ``target`` with saved ``settings`` (from ``map.settings``)."""
         s = cls.checked_settings(settings)
         if s.get("kernel", "hmc") != "partial":
             s.pop("persistence", None)
-        return cls(target, autorun=autorun, **s)
+        return cls(target, autorun=autorun, executor=executor, **s)
 
     # ---------------------------------------------------------------- figure
     def _lock_canvas(self):
