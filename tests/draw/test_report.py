@@ -103,7 +103,14 @@ def test_random_walk_report_leaves_out_leapfrog_views(tmp_path):
     assert any("no leapfrog trajectories" in n for n in files.notes)
     html = files.html.read_text()
     assert "no leapfrog trajectories" in html
-    assert "No problem detected" in html or "\u26a0" in html
+    # 2 x 40 random-walk draws: ESS far below 100 per chain, so there are warnings to show
+    assert files.warnings and files.warnings == run.summary().warnings
+    parser = _Collect()
+    parser.feed(html)
+    text = " ".join(parser.text)
+    for w in files.warnings:
+        assert w in text
+    assert "No problem detected" not in html
 
 
 def test_rewriting_a_folder_drops_only_the_earlier_reports_stale_figures(tmp_path):
@@ -141,3 +148,56 @@ def test_gibbs_report_shows_paths_and_spread(tmp_path):
     files = write_report(tmp_path, run, dpi=30)
     assert "gibbs" in files.figures and "uniforms" not in files.figures
     assert "trajectory" not in files.figures and "ess_per_gradient" not in files.figures
+
+
+def test_page_says_all_clear_only_without_warnings(funnel_report):
+    from phaseglass.report.html import page
+
+    run, files = funnel_report
+    digest = run.summary()
+    summary = json.loads(files.summary.read_text())
+    with_warnings = page(digest, summary, {}, {}, n_chains=run.n_chains, notes=[])
+    assert "No problem detected" not in with_warnings
+    digest.warnings = []
+    clear = page(digest, summary, {}, {}, n_chains=run.n_chains, notes=[])
+    assert "No problem detected by these checks" in clear and "not proof of convergence" in clear
+
+
+def test_diagnostics_table_headings_and_summary_columns_come_from_one_definition(funnel_report):
+    from phaseglass.core.run import COLUMNS
+
+    run, files = funnel_report
+    s = json.loads(files.summary.read_text())
+    keys = [c.key for c in COLUMNS]
+    assert list(s["diagnostics"]["columns"]) == keys
+    for cells in s["diagnostics"]["parameters"].values():
+        assert list(cells) == keys
+    html = files.html.read_text()
+    # every column heading carries its description, in the digest's order
+    at = [html.index(f'<th title="{c.describe()}">{c.heading()}</th>') for c in COLUMNS]
+    assert at == sorted(at)
+    assert '<th title="the lower quantile of the draws (5%)">5%</th>' in html
+    # the divergent funnel run has R-hat or ESS cells that need attention, and they are marked
+    digest = run.summary()
+    flagged = sum(c.needs_attention(v, run.n_chains) for c in COLUMNS for v in digest[c.key])
+    assert flagged > 0 and html.count('<td class="flag">') == flagged
+
+
+def test_plan_is_data_and_follows_the_kernel():
+    from phaseglass.core.efficiency import MIN_ESS_DRAWS
+    from phaseglass.report.decide import FIGURE_NAMES, plan
+
+    t = pg.demos.correlated_gaussian()
+    hmc = pg.sample(t, pg.HMC(0.3, 4), n_draws=30, n_chains=2, seed=1, warmup=0)
+    p = plan(hmc, hmc.summary(), grid=True, grid_draws=25)
+    assert p.names == [n for n in FIGURE_NAMES if n in p.names]  # page order
+    assert {"trajectory", "traces", "running_ess", "ess_per_gradient", "energy", "tuning"} <= set(p.names)
+    tuning = p.figures[p.names.index("tuning")]
+    assert tuning.options == {"step_sizes": [0.15, 0.3, 0.48], "steps": [2, 4, 8], "draws": 25}
+    assert p.coords == (0, 1) and not p.notes
+    short = pg.sample(t, pg.RandomWalk(1.0), n_draws=12, n_chains=2, seed=1, warmup=0)
+    q = plan(short, short.summary(), grid=True)
+    assert not {"trajectory", "running_ess", "ess_per_gradient", "energy", "tuning"} & set(q.names)
+    assert {"uniforms", "traces", "autocorrelation", "pairs"} <= set(q.names)
+    assert any(f"Fewer than {MIN_ESS_DRAWS} draws per chain" in n for n in q.notes)
+    assert any("needs a leapfrog kernel" in n for n in q.notes)
