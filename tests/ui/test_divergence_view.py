@@ -201,7 +201,7 @@ def test_a_run_without_divergences_says_so(tmp_path):
     # nothing to rank: the ranked-pair list and the grid say so and stay off
     assert view._ranked_list.disabled and view._grid_toggle.disabled
     assert view.pair_grid(4) is None and view.grid is None
-    assert "no ranked pairs" in view.status
+    assert "no ranked pairs" in view.status and not view._grid_toggle.value
     view.step()
     assert "no divergence" in view.status
     view.select(0)
@@ -357,6 +357,10 @@ def test_the_grid_of_top_pairs_is_drawn_only_when_asked(warm_funnel_run):
     assert "pg-pair-grid" in view.grid_figure.canvas._dom_classes
     view._grid_toggle.value = False
     assert view._grid_slot.children == ()
+    grid = view.grid
+    view._grid_toggle.value = True  # shown again as drawn: nothing has changed
+    assert view.grid is grid and view._grid_slot.children == (view.grid_figure.canvas,)
+    assert view.pair_grid(3) is view.grid_figure and len(view.grid.pairs) == 3
     for bad in (0, 7, 2.5, True):
         with pytest.raises(ValueError, match="`k` must be an integer from 1 to 6"):
             view.pair_grid(bad)

@@ -106,6 +106,18 @@ def test_coords_set_from_code_show_in_the_pickers(view):
         view._x_pick.value = 120
 
 
+def test_text_widths_are_at_least_what_matplotlib_lays_out():
+    from matplotlib.font_manager import FontProperties
+    from matplotlib.textpath import TextToPath
+
+    prop = FontProperties(family="DejaVu Sans", size=13)
+    for text in ("site[117]", "log_tau", "AVATAR", "effect_of_fertiliser_on_orchard[119]",
+                 "\u03c3_\u03b1 \u00d7 mu"):
+        # matplotlib's own layout of the string (with kerning) in the same face
+        laid_out = TextToPath().get_text_width_height_descent(text, prop, ismath=False)[0]
+        assert laid_out - 0.01 <= text_width_px(text) <= 1.1 * laid_out
+
+
 def test_the_box_holds_the_longest_name_and_two_pickers_fit_the_column():
     width = box_width_px(NAMES)
     # the box: the longest name in DejaVu Sans (wider than notebook fonts), padding, the arrow

@@ -196,17 +196,31 @@ class KnobControl(widgets.HBox):
 _FONT_PX = 13  # JupyterLab's widget font size (--jp-widgets-font-size)
 
 
+_ADVANCES = {}  # (size, character) -> advance width in px
+_FONT = []  # the DejaVu Sans face, loaded on first use
+
+
 def text_width_px(text, size=_FONT_PX):
-    """Width of ``text`` in pixels at ``size`` px, measured in DejaVu Sans.
+    """Width of ``text`` in pixels at ``size`` px: the sum of its characters' advances in DejaVu Sans.
 
-    DejaVu Sans is wider than the sans-serif faces notebooks usually show, so a
-    box sized with it holds the text in any of them.
+    DejaVu Sans is wider than the sans-serif faces notebooks usually show, and the
+    sum leaves out kerning (which only narrows), so a box sized with it holds the
+    text in any of them. Advances are measured once per character (a model's
+    hundreds of names cost a dictionary look-up each).
     """
-    from matplotlib.font_manager import FontProperties
-    from matplotlib.textpath import TextToPath
+    width = 0.0
+    for ch in str(text):
+        key = (size, ch)
+        if key not in _ADVANCES:
+            if not _FONT:
+                from matplotlib.font_manager import FontProperties, findfont
+                from matplotlib.ft2font import FT2Font
 
-    prop = FontProperties(family="DejaVu Sans", size=size)
-    return TextToPath().get_text_width_height_descent(str(text), prop, ismath=False)[0]
+                _FONT.append(FT2Font(findfont(FontProperties(family="DejaVu Sans"))))
+            _FONT[0].set_size(size, 72)  # 72 dpi: one point is one pixel
+            _ADVANCES[key] = _FONT[0].load_char(ord(ch)).linearHoriAdvance / 65536
+        width += _ADVANCES[key]
+    return width
 
 
 #: Room a text box needs besides its text: padding, borders and the suggestion arrow

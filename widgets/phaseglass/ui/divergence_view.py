@@ -96,7 +96,7 @@ class DivergenceView(View):
     --------
     >>> import phaseglass as pg
     >>> run = pg.sample(pg.demos.orchards("centred"), pg.HMC(0.4, 8), n_draws=300,
-    ...                 n_chains=2, seed=1)
+    ...                 n_chains=2, warmup=0, seed=1)
     >>> view = pg.DivergenceView(run)        # opens on the top-ranked pair
     >>> view.coords == view.ranking.top_pair
     True
@@ -159,6 +159,7 @@ class DivergenceView(View):
         self._auto_coords = coords is None
         self.grid_figure = self.grid = None
         self._grid_k = GRID_PAIRS
+        self._grid_of = None  # (run, ranking, pairs) the grid shows
         if run is not None:
             self.ranking = divergence_ranking(run)
         if coords is None:
@@ -415,19 +416,20 @@ class DivergenceView(View):
         if isinstance(k, bool) or not isinstance(k, (int, np.integer)) or not 1 <= k <= MAX_GRID_PAIRS:
             raise ValueError(f"`k` must be an integer from 1 to {MAX_GRID_PAIRS}, got {k!r}")
         self._grid_k = int(k)
+        self._grid_toggle.description = f"top {self._grid_k} pairs"
+        shown = bool(self._draw_grid())
         with self._sync():
-            self._grid_toggle.value = True
-            self._grid_toggle.description = f"top {self._grid_k} pairs"
-        self._draw_grid()
-        return self.grid_figure
+            self._grid_toggle.value = shown
+        return self.grid_figure if shown else None
 
     def _on_grid_toggle(self, change):
         if self._syncing:
             return
-        if change["new"]:
-            self._draw_grid()
-        else:
+        if not change["new"]:
             self._grid_slot.children = ()
+        elif not self._draw_grid():  # nothing to show: the status says why
+            with self._sync():
+                self._grid_toggle.value = False
 
     @staticmethod
     def _grid_shape(k):
@@ -448,10 +450,17 @@ class DivergenceView(View):
 
     @guarded("grid of top pairs")
     def _draw_grid(self):
+        """Draw (or show again) the grid of the top ``_grid_k`` pairs; True when shown."""
         pairs = self._ranked_pairs(self._grid_k)
         if self._run is None or not pairs:
             self.status = "no divergent transitions yet: there are no ranked pairs to show"
-            return
+            return False
+        drawn = (self._run, self.ranking, pairs)
+        last = self._grid_of
+        if last is not None and last[0] is drawn[0] and last[1] is drawn[1] and last[2] == pairs:
+            self._grid_slot.children = (self.grid_figure.canvas,)  # unchanged: no redraw
+            self._mark_grid()
+            return True
         k = len(pairs)
         rows, cols = self._grid_shape(k)
         size = (COLUMN_WIDTH_IN, 0.35 + 2.55 * rows)
@@ -470,8 +479,10 @@ class DivergenceView(View):
                                      titles=self._grid_titles(k, cols), markersize=2.0)
         fig.suptitle(f"top {plural(k, 'pair')} where divergent draws (\u2716) differ most; "
                      "click a panel to show it above", fontsize=9, x=0.01, ha="left")
+        self._grid_of = drawn
         self._mark_grid()
         self._grid_slot.children = (fig.canvas,)
+        return True
 
     def _mark_grid(self):
         if self.grid is None:
