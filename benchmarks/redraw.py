@@ -16,6 +16,15 @@ for the two other views whose knobs act on every move:
 Both are timed the same way (trait change -> frame handed to ipympl) against the same
 30 ms goal; they have no naive counterpart here.
 
+Many parameters (issue 11's goal: a DivergenceView on 4 chains x 1000 draws at dim 50 opens in
+under 2 s and replays a divergence as fast as on a 2-D demo): the centred ``apiaries`` demo
+(48 apiaries, dim 50) sampled with a fixed step size and no warm-up so that it diverges,
+against the 2-D ``glaze_ridge`` demo run the same way (4 x 1000, fixed step size, diverging).
+For each: the time to open (``DivergenceView.from_run(run)`` and the first full draw of its
+figure, in this process after other views were made, median of a few) and the time of one
+replay step, printed with the dim-50 / 2-D ratio. The first open in a fresh Python process
+(imports of ipywidgets and ipympl, font loading included) is measured once in a subprocess.
+
 * fast path: what the view does (recompute the trajectory, update the artists in place,
   restore the cached background, draw the changed artists, hand the frame to ipympl).
   Goal: median <= 30 ms.
@@ -40,6 +49,8 @@ for _var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
 
 import argparse  # noqa: E402
 import platform  # noqa: E402
+import subprocess  # noqa: E402
+import sys  # noqa: E402
 import time  # noqa: E402
 
 import numpy as np  # noqa: E402
@@ -47,10 +58,11 @@ import numpy as np  # noqa: E402
 import phaseglass as pg  # noqa: E402
 from phaseglass.core.slices import log_density_grid  # noqa: E402
 from phaseglass.draw import draw_energy_error, draw_log_density, draw_trajectory  # noqa: E402
-from phaseglass.ui._base import make_canvas_figure  # noqa: E402
+from phaseglass.ui._base import make_canvas_figure, plural  # noqa: E402
 
 FAST_GOAL_MS = 30.0
 RATIO_GOAL = 5.0
+OPEN_GOAL_S = 2.0
 
 
 def machine():
@@ -147,6 +159,7 @@ def main():
           f"{_met(ratio >= RATIO_GOAL)} / {_met(ratio_cpu >= RATIO_GOAL)} |")
     print(_row("ChainView: step-size change -> preview frame", *chain_view_preview(repeats)))
     print(_row("DivergenceView: one replay step -> frame", *divergence_replay(repeats)))
+    many_parameters(repeats, opens=3 if args.quick else 5, cold=not args.quick)
 
 
 def time_changes(view, change, n):
@@ -190,6 +203,133 @@ def divergence_replay(repeats):
         v.replay_step = k % (steps + 1)
 
     return time_changes(view, change, repeats)
+
+
+# ------------------------------------------------------------- many parameters
+MANY_DRAWS, MANY_CHAINS = 1000, 4
+
+
+def diverging_run(name):
+    """4 chains x 1000 draws, fixed step size, no warm-up, on a demo where that diverges.
+
+    ``"apiaries"``: the centred 48-apiary demo (dim 50), HMC(0.1, 10) from the apiaries'
+    own means (about a quarter of the transitions diverge, in the funnel's neck).
+    ``"glaze"``: the 2-D glaze ridge, HMC(0.08, 20) (about a third diverge).
+    """
+    if name == "apiaries":
+        target = pg.demos.apiaries("centred", n_groups=48)
+        means = np.bincount(target.group, weights=target.gain) / target.hives
+        kernel, initial = pg.HMC(0.1, 10), np.r_[means.mean(), -1.0, means]
+    else:
+        target, kernel, initial = pg.demos.glaze_ridge(), pg.HMC(0.08, 20), None
+    run = pg.sample(target, kernel, initial, n_draws=MANY_DRAWS, n_chains=MANY_CHAINS,
+                    warmup=0, seed=1)
+    if not run.n_divergent:
+        raise SystemExit(f"the {name} run had no divergence to replay; change its step size")
+    return run
+
+
+def open_view(run):
+    """Open a DivergenceView on ``run`` and draw its figure once (what a notebook cell shows)."""
+    view = pg.DivergenceView.from_run(run)
+    view.figure.canvas.syncing_data_url = False
+    view.render()
+    return view
+
+
+def time_opens(run, n):
+    walls, cpus, view = [], [], None
+    for _ in range(n):
+        if view is not None:
+            view.close()
+        t0, c0 = time.perf_counter(), time.thread_time()
+        view = open_view(run)
+        cpus.append(time.thread_time() - c0)
+        walls.append(time.perf_counter() - t0)
+    if view.status.startswith("error"):
+        raise SystemExit(f"the DivergenceView reported a problem: {view.status}")
+    return view, np.asarray(walls), np.asarray(cpus)
+
+
+def time_replay(view, repeats):
+    steps = int(view.trajectory.divergence_step)
+
+    def change(v, k):
+        v.replay_step = k % (steps + 1)
+
+    return time_changes(view, change, repeats)
+
+
+_COLD = """
+import os, sys, time
+for v in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
+    os.environ.setdefault(v, "1")
+sys.path.insert(0, {here!r})
+import redraw
+run = redraw.diverging_run("apiaries")
+t0 = time.perf_counter()
+if {stats_first}:
+    import scipy.stats
+t1 = time.perf_counter()
+redraw.open_view(run)
+print(t1 - t0, time.perf_counter() - t1)
+"""
+
+
+def cold_open_seconds(stats_first):
+    """The first DivergenceView of a fresh process on the dim-50 run.
+
+    The views are imported already (this module imports ``phaseglass.ui``); the first
+    ``divergence_ranking`` imports ``scipy.stats`` (so does a first ``run.summary()``).
+    With ``stats_first`` that import is made and timed before the view is opened.
+    Returns (seconds of the scipy.stats import, seconds of the open).
+    """
+    here = os.path.dirname(os.path.abspath(__file__))
+    code = _COLD.format(here=here, stats_first=bool(stats_first))
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    a, b = out.stdout.strip().splitlines()[-1].split()
+    return float(a), float(b)
+
+
+def many_parameters(repeats, opens=5, cold=True):
+    runs = {name: diverging_run(name) for name in ("glaze", "apiaries")}
+    rows = {}
+    for name, run in runs.items():
+        view, wall, cpu = time_opens(run, opens)
+        rwall, rcpu = time_replay(view, repeats)
+        rows[name] = (run, view, wall, cpu, rwall, rcpu)
+    print(f"\n## DivergenceView with many parameters ({MANY_CHAINS} chains x {MANY_DRAWS} draws, "
+          "fixed step size, no warm-up)\n")
+    for name, (run, view, *_) in rows.items():
+        shown = ", ".join(view.names[k] for k in view.coords)
+        print(f"- {name}: dim {run.dim}, {plural(run.n_divergent, 'divergent transition')} "
+              f"({len(view.divergences)} with replays), opens on ({shown})")
+    print()
+    print("| measure | 2-D glaze | dim-50 apiaries | dim 50 / 2-D | goal | met (wall / CPU) |")
+    print("|---|---|---|---|---|---|")
+    g, a = rows["glaze"], rows["apiaries"]
+    for label, k, unit, scale, goal in (("open: from_run + first full draw, median", 2, "s", 1.0,
+                                         OPEN_GOAL_S),
+                                        ("one replay step -> frame, median", 4, "ms", 1e3, None)):
+        gw, aw = scale * np.median(g[k]), scale * np.median(a[k])
+        gc, ac = scale * np.median(g[k + 1]), scale * np.median(a[k + 1])
+        if goal is None:  # the goal is the 2-D speed itself; 20 % slack for timing noise
+            met = f"{_met(aw / gw <= 1.2)} / {_met(ac / gc <= 1.2)}"
+            goal_text = "ratio <= 1.2"
+        else:
+            met = f"{_met(aw <= goal)} / {_met(ac <= goal)}"
+            goal_text = f"<= {goal:g} {unit}"
+        print(f"| {label} (wall; CPU) ({unit}) | {gw:.3g}; {gc:.3g} | {aw:.3g}; {ac:.3g} | "
+              f"{aw / gw:.2f}; {ac / gc:.2f} | {goal_text} | {met} |")
+    if cold:
+        _, first = cold_open_seconds(stats_first=False)
+        imp, after = cold_open_seconds(stats_first=True)
+        print(f"| first open in a fresh process (s) | | {first:.3g} | | <= {OPEN_GOAL_S:g} s | "
+              f"{_met(first <= OPEN_GOAL_S)} / - |")
+        print(f"| ... of which `import scipy.stats` (first ranking or summary) (s) | | {imp:.3g} | "
+              "| | |")
+        print(f"| first open in a fresh process once scipy.stats is imported (s) | | {after:.3g} | "
+              f"| <= {OPEN_GOAL_S:g} s | {_met(after <= OPEN_GOAL_S)} / - |")
 
 
 def _row(label, wall, cpu):
