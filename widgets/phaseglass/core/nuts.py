@@ -25,13 +25,15 @@ subtree uses one uniform per subtree, recycled after each decision (if
 uniform given the decision), so no stream depends on the tree's size.
 """
 
-import numpy as np
-
-from ._validate import check_int
-from .kernels import Kernel, _Knob, _metric, _positive
 from dataclasses import dataclass
 
+import numpy as np
+
+from ._validate import as_points, check_finite, check_int
+from .kernels import ChainState, Kernel, _Knob, _metric, _positive
 from .leapfrog import DEFAULT_MAX_ENERGY_ERROR, Trajectory, _kick_drift_kick
+from .streams import Streams
+from .target import Target
 
 __all__ = ["NUTS", "DoublingTree", "MAX_DEPTH_LIMIT"]
 
@@ -73,9 +75,9 @@ class NUTS(Kernel):
     state), the quantity dual averaging steers. ``accepted`` says whether
     the chain moved; ``energy`` is the Hamiltonian of the selected state and
     ``energy_error`` its difference from the start's (for a divergent
-    transition, the error that crossed the threshold). ``u`` is the uniform
-    of the last merge of a subtree into the trajectory (NaN when the first
-    subtree was already abandoned).
+    transition, the error that crossed the threshold). ``u`` is the merge
+    uniform of the chain's last doubling (it decided whether that subtree's
+    candidate replaced the selected state, when the subtree was merged).
 
     A divergent transition is replayed by the sampler from its start with
     the momentum pointing the way the divergent subtree grew
@@ -83,13 +85,18 @@ class NUTS(Kernel):
     as separate the start from the divergent state (``replay_steps``): the
     leapfrog states on that side of the tree are exactly that trajectory.
 
+    With ``Sampler.step(record=True)`` the sampler's ``last_trajectory`` is a
+    ``DoublingTree``: every state the tree integrated, in time order, with
+    the start, the selected state, the doubling each state came from and
+    whether it was merged.
+
     Examples
     --------
     >>> import phaseglass as pg
     >>> run = pg.sample(pg.demos.correlated_gaussian(), pg.NUTS(0.3), n_draws=50, warmup=0,
     ...                 n_chains=2, seed=1)
-    >>> sorted(k for k in run.extras if k != "position")[:3]
-    ['depth_limit_hit', 'n_leapfrog', 'tree_depth']
+    >>> sorted(run.extras)
+    ['depth_limit_hit', 'n_leapfrog', 'tree_depth', 'turned']
     """
 
     uses_gradient = True
@@ -111,8 +118,69 @@ class NUTS(Kernel):
         return {"kernel": "NUTS", "step_size": self.step_size, "max_depth": self.max_depth,
                 "max_energy_error": self.max_energy_error, "metric": self.metric.as_dict()}
 
+    # ----------------------------------------------------------------- one tree
+    def build_tree(self, target, position, momentum, *, seed=None):
+        """Grow one transition's tree from a given start and momentum, for looking at it.
+
+        The directions and the multinomial choices come from ``seed``
+        (the same seed gives the same tree); evaluations are not counted
+        on ``target`` (a preview is not sampling work).
+
+        Parameters
+        ----------
+        target : Target
+        position, momentum : array_like, shape (dim,)
+            On the sampler's (unconstrained) scale.
+        seed : None, int, SeedSequence or Generator
+
+        Returns
+        -------
+        tree : DoublingTree
+            One chain's tree (a batch of one: fields keep their leading axis).
+        info : dict
+            The transition's records (``tree_depth``, ``n_leapfrog``, ...), each shaped (1,).
+
+        Examples
+        --------
+        >>> import phaseglass as pg
+        >>> tree, info = pg.NUTS(0.3).build_tree(pg.demos.correlated_gaussian(), [1.0, 0.0],
+        ...                                      [0.0, 1.0], seed=2)
+        >>> int(info["n_leapfrog"][0]) == int(np.sum(tree.doubling[0] >= 0))
+        True
+        """
+        if not isinstance(target, Target):
+            raise TypeError(f"`target` must be a phaseglass Target, got {type(target).__name__}")
+        q, _ = as_points("position", position, target.dim)
+        p, _ = as_points("momentum", momentum, target.dim)
+        check_finite("position", q)
+        check_finite("momentum", p)
+        if q.shape != (1, target.dim) or p.shape != (1, target.dim):
+            raise ValueError(f"`position` and `momentum` must each have shape ({target.dim},), "
+                             f"got {np.shape(position)} and {np.shape(momentum)}")
+        self.prepare(target)
+        counts = (target.n_density, target.n_grad)
+        try:
+            with np.errstate(all="ignore"):
+                logp, grad = target._value_and_grad_rows(q)
+            if not (np.isfinite(logp).all() and np.isfinite(grad).all()):
+                raise ValueError(f"`position` {q[0]} has a non-finite log-density or gradient; "
+                                 f"start inside the support")
+            streams = Streams(seed, 1)
+            state = ChainState(q, logp, grad)
+            info = self._grow(target, state, p, streams.uniform(3 * self.max_depth), True)
+        finally:
+            target.n_density, target.n_grad = counts
+        return info.pop("trajectory"), info
+
     # ----------------------------------------------------------------- transition
     def _transition(self, target, state, streams, record):
+        dim = state.position.shape[1]
+        p0 = self.metric.momentum_from_normal(streams.normal(dim))
+        uniforms = streams.uniform(3 * self.max_depth)  # per doubling: direction, selection, merge
+        return self._grow(target, state, p0, uniforms, record)
+
+    def _grow(self, target, state, p0, uniforms, record):
+        """Grow the tree from ``state`` with momentum ``p0``; move the chains; return records."""
         n, dim = state.position.shape
         depth_max = self.max_depth
         eps = float(self.step_size)
@@ -123,8 +191,6 @@ class NUTS(Kernel):
         limit = self.max_energy_error
 
         start_q, start_lp = state.position, state.logp
-        p0 = metric.momentum_from_normal(streams.normal(dim))
-        uniforms = streams.uniform(3 * depth_max)  # per doubling: direction, selection, merge
         h0 = kinetic(p0) - state.logp
 
         # ends of the trajectory (actual momenta), and the selected state
@@ -147,7 +213,7 @@ class NUTS(Kernel):
         replay_dir = np.ones(n)
         replay_steps = np.zeros(n, dtype=int)
         div_error = np.full(n, np.nan)
-        last_u = np.full(n, np.nan)
+        last_u = uniforms[:, 2].copy()
         sel_offset = np.zeros(n, dtype=int)
         merged = np.zeros((n, depth_max), dtype=bool)
         leaves = [] if record else None
@@ -214,13 +280,13 @@ class NUTS(Kernel):
                 growing[stop] = False
                 turned[rows[sub.turned]] = True
                 tree_depth[rows] = j + 1
+                last_u[rows] = uniforms[rows, 3 * j + 2]
                 if not ok_sub.any():
                     continue
                 k = np.flatnonzero(ok_sub)
                 r = rows[k]
                 merged[r, j] = True
                 u = uniforms[r, 3 * j + 2]
-                last_u[r] = u
                 take = np.log(u) < sub.log_w[k] - log_w[r]  # biased progressive sampling
                 t_rows, t_k = r[take], k[take]
                 sel_q[t_rows], sel_lp[t_rows], sel_g[t_rows] = (sub.q[t_k], sub.lp[t_k],
