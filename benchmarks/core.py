@@ -22,6 +22,15 @@ Three questions, each against a goal:
    value-and-gradient call for 4 chains through the Target, against the same model's
    hand-written NumPy gradient and against central finite differences (no goal; the
    one-time compilation is reported apart).
+5. Gibbs conditionals (``--gibbs-only`` runs just this): ms per sweep, 4 chains, shift
+   0.381966, on a 2-D correlated Gaussian and the same Gaussian truncated to a box, with
+   (a) a frozen ``scipy.stats`` distribution per chain and coordinate (the form the
+   Gibbs docstring suggests), (b) a hand-written object whose ``cdf``/``ppf`` call
+   ``scipy.special.ndtr``/``ndtri`` (same draws), (c) numeric conditionals
+   (``conditionals=None``), also on ``demos.orchards()`` (dim 9) and on a non-vectorised
+   2-D target. Goals: (a) / (b) <= 3; numeric >= 5 x faster per sweep than before. With
+   ``--before DIR`` (a checkout's ``widgets/`` folder, e.g. ``git worktree add /tmp/pg-old
+   <commit>``) the same section also runs, in a child process, against that code.
 
 Each time is the best of several repeats (the minimum is the least noisy estimate of
 the cost on a shared machine). Ratios are given for wall time and, in parentheses,
@@ -37,7 +46,10 @@ for _var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
     os.environ.setdefault(_var, "1")  # before numpy is imported
 
 import argparse  # noqa: E402
+import json  # noqa: E402
 import platform  # noqa: E402
+import subprocess  # noqa: E402
+import sys  # noqa: E402
 import time  # noqa: E402
 
 import numpy as np  # noqa: E402
@@ -153,6 +165,179 @@ def batching_row(n_batch, n_single, n_draws, repeats):
             "speedup": t_single / t_batch, "n_batch": n_batch, "n_draws": n_draws}
 
 
+# ------------------------------------------------------------------- 5. Gibbs conditionals
+_MU = np.array([0.5, -0.3])
+_COV = np.array([[1.0, 0.9], [0.9, 2.25]])  # sd 1 and 1.5, correlation 0.6
+_PREC = np.linalg.inv(_COV)
+_LO, _HI = np.array([-0.4, -1.5]), np.array([2.2, 3.0])
+
+
+def _gaussian_log_density(x):
+    d = x - _MU
+    return -0.5 * np.einsum("ni,ij,nj->n", d, _PREC, d)
+
+
+def _box_log_density(x):
+    inside = np.all((x >= _LO) & (x <= _HI), axis=-1)
+    return np.where(inside, _gaussian_log_density(x), -np.inf)
+
+
+def _conditional(i, x):
+    """Location and scale of x[i] given x[1 - i] under N(_MU, _COV) (Gaussian conditioning)."""
+    j = 1 - i
+    loc = _MU[i] + _COV[i, j] / _COV[j, j] * (x[j] - _MU[j])
+    return loc, np.sqrt(_COV[i, i] - _COV[i, j] ** 2 / _COV[j, j])
+
+
+class _Normal:
+    """The hand-written conditional: cdf/ppf straight from scipy.special (same numbers as norm)."""
+
+    def __init__(self, loc, scale):
+        self.loc, self.scale = loc, scale
+
+    def cdf(self, v):
+        from scipy.special import ndtr
+
+        return ndtr((v - self.loc) / self.scale)
+
+    def ppf(self, u):
+        from scipy.special import ndtri
+
+        return ndtri(u) * self.scale + self.loc
+
+
+class _TruncNormal:
+    """Hand-written truncated normal: Phi and Phi^-1 rescaled to the box's interval."""
+
+    def __init__(self, lo, hi, loc, scale):
+        from scipy.special import ndtr
+
+        self.loc, self.scale = loc, scale
+        self.p_lo, self.p_hi = ndtr((lo - loc) / scale), ndtr((hi - loc) / scale)
+
+    def cdf(self, v):
+        from scipy.special import ndtr
+
+        return (ndtr((v - self.loc) / self.scale) - self.p_lo) / (self.p_hi - self.p_lo)
+
+    def ppf(self, u):
+        from scipy.special import ndtri
+
+        return ndtri(self.p_lo + u * (self.p_hi - self.p_lo)) * self.scale + self.loc
+
+
+def _frozen_norm(i, x):
+    import scipy.stats
+
+    return scipy.stats.norm(*_conditional(i, x))
+
+
+def _hand_norm(i, x):
+    return _Normal(*_conditional(i, x))
+
+
+def _frozen_truncnorm(i, x):
+    import scipy.stats
+
+    loc, scale = _conditional(i, x)
+    return scipy.stats.truncnorm((_LO[i] - loc) / scale, (_HI[i] - loc) / scale, loc=loc, scale=scale)
+
+
+def _hand_truncnorm(i, x):
+    return _TruncNormal(_LO[i], _HI[i], *_conditional(i, x))
+
+
+def gibbs_rows(sweeps, repeats):
+    """{case: {"ms": (wall, cpu) ms per sweep, "evals": log-density evaluations per sweep}}."""
+    import scipy.stats
+
+    gauss = pg.Target(_gaussian_log_density, lambda x: -(x - _MU) @ _PREC, dim=2, vectorized=True)
+    box = pg.Target(_box_log_density, lambda x: -(x - _MU) @ _PREC, dim=2, vectorized=True)
+    loop = pg.Target(lambda x: float(_gaussian_log_density(np.asarray(x)[None])[0]),
+                     lambda x: -(np.asarray(x) - _MU) @ _PREC, dim=2)  # called once per point
+    starts = np.array([[0.0, -1.0], [2.0, 2.5], [1.0, 0.0], [-0.3, 1.0]])
+    cases = {
+        "gaussian: frozen scipy.stats.norm": (gauss, _frozen_norm, sweeps),
+        "gaussian: hand-written ndtr/ndtri": (gauss, _hand_norm, sweeps),
+        "gaussian: numeric": (gauss, None, max(sweeps // 10, 3)),
+        "box: frozen scipy.stats.truncnorm": (box, _frozen_truncnorm, sweeps),
+        "box: hand-written ndtr/ndtri": (box, _hand_truncnorm, sweeps),
+        "box: numeric": (box, None, max(sweeps // 10, 3)),
+        "gaussian, non-vectorised target: numeric": (loop, None, max(sweeps // 40, 2)),
+        "orchards (dim 9): numeric": (pg.demos.orchards(), None, max(sweeps // 40, 2)),
+    }
+    out = {name: {"wall": [], "cpu": []} for name in cases}
+    for _ in range(repeats):  # interleaved, so a burst of load elsewhere hits every case alike
+        for name, (target, cond, n) in cases.items():
+            init = starts if target.dim == 2 else None
+            target.n_density = 0
+            t = best_of(lambda: pg.sample(target, pg.Gibbs(cond, shift=0.381966), init, n_draws=n,
+                                          n_chains=4, seed=0, warmup=0), 1)
+            out[name]["wall"].append(1e3 * t.wall / n)
+            out[name]["cpu"].append(1e3 * t.cpu / n)
+            out[name]["evals"] = target.n_density / n
+    # the floor under (a): freezing one scipy.stats distribution, times chains x coordinates
+    n_freeze = 200
+    t = best_of(lambda: [scipy.stats.norm(0.1, 1.2) for _ in range(n_freeze)], repeats)
+    freeze = {"wall": [1e3 * t.wall / n_freeze * 8], "cpu": [1e3 * t.cpu / n_freeze * 8], "evals": 0}
+    out["freezing scipy.stats.norm(loc, scale) 8 times (4 chains x 2 coordinates)"] = freeze
+    return {name: {"ms": (min(v["wall"]), min(v["cpu"])), "evals": v["evals"]} for name, v in out.items()}
+
+
+def _gibbs_before(before, sweeps, repeats):
+    """The same rows measured in a child process that imports phaseglass from ``before``."""
+    env = {**os.environ, "PYTHONPATH": before + os.pathsep + os.environ.get("PYTHONPATH", "")}
+    proc = subprocess.run([sys.executable, os.path.abspath(__file__), "--gibbs-json",
+                           "--sweeps", str(sweeps), "--repeats", str(repeats)],
+                          capture_output=True, text=True, env=env, timeout=3600)
+    if proc.returncode != 0:
+        raise SystemExit(f"--before run failed:\n{proc.stderr}")
+    return json.loads(proc.stdout.strip().splitlines()[-1])
+
+
+def print_gibbs(sweeps, repeats, before=None):
+    rows = gibbs_rows(sweeps, repeats)
+    old = _gibbs_before(before, sweeps, repeats) if before else None
+    print("## Gibbs conditionals: ms per sweep, 4 chains, shift 0.381966\n")
+    print("Best of the repeats; wall time, CPU time in parentheses" +
+          (f"; before = phaseglass from {before}, measured in a child process right after." if before else ".")
+          + "\n")
+    head = "| case | ms per sweep | evaluations per sweep |"
+    if old:
+        head += " before: ms per sweep | before: evaluations | before / now |"
+    print(head)
+    print("|" + "---|" * (head.count("|") - 1))
+    for name, r in rows.items():
+        line = f"| {name} | {r['ms'][0]:.3f} ({r['ms'][1]:.3f}) | {r['evals']:.0f} |"
+        if old and name in old:
+            o = old[name]
+            line += (f" {o['ms'][0]:.3f} ({o['ms'][1]:.3f}) | {o['evals']:.0f} | "
+                     f"{o['ms'][0] / r['ms'][0]:.2f} ({o['ms'][1] / r['ms'][1]:.2f}) |")
+        elif old:
+            line += " | | |"
+        print(line)
+    print()
+    for kind in ("gaussian", "box"):
+        frozen = next(v for k, v in rows.items() if k.startswith(f"{kind}: frozen"))
+        hand = rows[f"{kind}: hand-written ndtr/ndtri"]
+        ratio = frozen["ms"][0] / hand["ms"][0]
+        print(f"- {kind}: frozen / hand-written = {ratio:.1f} ({frozen['ms'][1] / hand['ms'][1]:.1f} CPU); "
+              f"goal <= 3: {'met' if ratio <= 3 else 'MISSED'}")
+    freeze = next(v for k, v in rows.items() if k.startswith("freezing"))
+    print(f"- freezing alone costs {freeze['ms'][0]:.2f} ms per sweep here, "
+          f"{freeze['ms'][0] / rows['gaussian: hand-written ndtr/ndtri']['ms'][0]:.1f} x a whole "
+          "hand-written sweep: the user's function builds a frozen distribution per chain and "
+          "coordinate, which Gibbs cannot skip")
+    if old:
+        for name in rows:
+            if name.endswith("numeric") and name in old:
+                speedup = old[name]["ms"][0] / rows[name]["ms"][0]
+                print(f"- {name}: {speedup:.1f} x faster than before (goal >= 5: "
+                      f"{'met' if speedup >= 5 else 'MISSED'}), "
+                      f"{old[name]['evals'] / max(rows[name]['evals'], 1):.1f} x fewer evaluations")
+    print()
+
+
 def jax_models():
     """(name, jax log-density for one point, numpy Target, finite-difference Target, points (4, dim))."""
     import warnings
@@ -264,7 +449,16 @@ def main():
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--quick", action="store_true", help="small sizes, one repeat (smoke run)")
     parser.add_argument("--jax-only", action="store_true", help="only question 4, gradients from JAX")
+    parser.add_argument("--gibbs-only", action="store_true", help="only question 5, Gibbs conditionals")
+    parser.add_argument("--before", default=None,
+                        help="question 5 also against phaseglass imported from this widgets/ folder")
+    parser.add_argument("--sweeps", type=int, default=None, help=argparse.SUPPRESS)
+    parser.add_argument("--repeats", type=int, default=None, help=argparse.SUPPRESS)
+    parser.add_argument("--gibbs-json", action="store_true", help=argparse.SUPPRESS)  # for --before
     args = parser.parse_args()
+    if args.gibbs_json:
+        print(json.dumps(gibbs_rows(args.sweeps, args.repeats)))
+        return
     repeats = 1 if args.quick else 5
     scale = 0.1 if args.quick else 1.0
 
@@ -275,6 +469,10 @@ def main():
     print()
     if args.jax_only:
         print_autodiff(n_calls=30 if args.quick else 300, repeats=repeats)
+        return
+    gibbs = dict(sweeps=20 if args.quick else 200, repeats=repeats, before=args.before)
+    if args.gibbs_only:
+        print_gibbs(**gibbs)
         return
 
     cases = []
@@ -320,6 +518,7 @@ def main():
     print()
 
     print_autodiff(n_calls=30 if args.quick else 300, repeats=repeats)
+    print_gibbs(**gibbs)
 
 
 if __name__ == "__main__":

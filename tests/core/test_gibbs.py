@@ -273,6 +273,19 @@ def test_numeric_conditional_cdf_matches_scipy_stats(case):
     np.testing.assert_allclose(back, u, atol=1e-12)  # cdf and ppf are exact inverses
 
 
+def test_numeric_conditional_costs_the_documented_evaluations():
+    # Gibbs Notes: 35 + grid_size // 8 + grid_size // 4 per chain and conditional when the
+    # first bracketing window suffices and nothing is re-gridded or truncated (a Gaussian),
+    # plus one per chain and transition for the new state
+    target = pg.demos.correlated_gaussian()
+    sampler = pg.Sampler(target, pg.Gibbs(shift=GOLDEN), np.zeros((3, 2)), n_chains=3, seed=1)
+    sampler.step()
+    start = target.n_density
+    sampler.step()
+    per_conditional = 35 + 512 // 8 + 512 // 4  # 227, against 163 + 2 * 512 before issue 13
+    assert target.n_density - start == 3 * 2 * per_conditional + 3
+
+
 def test_numeric_conditional_finds_truncation_edges():
     target = _NUMERIC_CASES["truncnorm, -inf outside"][0]
     cond = GridConditional.from_target(target, np.array([[0.1], [1.79], [-0.49]]), 0)
@@ -322,6 +335,91 @@ def test_frozen_scipy_distribution_works_as_conditional():
     a = pg.sample(box_target(), pg.Gibbs(frozen, shift=GOLDEN), **kw)
     b = pg.sample(box_target(), pg.Gibbs(exact_conditionals, shift=GOLDEN), **kw)
     np.testing.assert_allclose(a.draws, b.draws, rtol=1e-12)
+
+
+# parameters (shapes, then loc/scale keywords) of one frozen distribution per chain
+_FAMILY_PARAMETERS = {
+    "norm": lambda r: ((), dict(loc=r.normal(), scale=r.uniform(0.1, 3))),
+    "truncnorm": lambda r: ((r.uniform(-3, 0), r.uniform(0.1, 3)), dict(loc=r.normal(), scale=r.uniform(0.1, 3))),
+    "uniform": lambda r: ((), dict(loc=r.normal(), scale=r.uniform(0.1, 3))),
+    "expon": lambda r: ((), dict(loc=r.normal(), scale=r.uniform(0.1, 3))),
+    "gamma": lambda r: ((r.uniform(0.3, 5),), dict(scale=r.uniform(0.1, 3))),
+    "invgamma": lambda r: ((r.uniform(0.3, 5),), dict(scale=r.uniform(0.1, 3))),
+    "beta": lambda r: ((r.uniform(0.3, 5), r.uniform(0.3, 5)), {}),
+    "lognorm": lambda r: ((r.uniform(0.1, 2),), dict(scale=r.uniform(0.1, 3))),
+    "t": lambda r: ((r.uniform(1, 10),), dict(loc=r.normal(), scale=r.uniform(0.1, 3))),
+    "cauchy": lambda r: ((), dict(loc=r.normal(), scale=r.uniform(0.1, 3))),
+    "laplace": lambda r: ((), dict(loc=r.normal(), scale=r.uniform(0.1, 3))),
+    "logistic": lambda r: ((), dict(loc=r.normal(), scale=r.uniform(0.1, 3))),
+    "halfnorm": lambda r: ((), dict(loc=r.normal(), scale=r.uniform(0.1, 3))),
+    "chi2": lambda r: ((r.uniform(0.5, 8),), {}),
+    "weibull_min": lambda r: ((r.uniform(0.5, 4),), dict(scale=r.uniform(0.1, 3))),
+}
+
+
+def test_every_batched_family_has_a_test_case():
+    assert set(_FAMILY_PARAMETERS) == set(pg.core.gibbs._BATCHED_FAMILIES)
+
+
+@pytest.mark.parametrize("family", sorted(_FAMILY_PARAMETERS))
+def test_frozen_family_is_evaluated_for_all_chains_at_once_with_the_same_numbers(family):
+    from phaseglass.core.gibbs import _frozen_batch
+
+    rng = np.random.default_rng(sorted(_FAMILY_PARAMETERS).index(family))
+    dists = []
+    for _ in range(7):
+        args, kwds = _FAMILY_PARAMETERS[family](rng)
+        dists.append(getattr(scipy.stats, family)(*args, **kwds))
+    q = rng.uniform(size=7)
+    v = np.array([float(d.ppf(p)) for d, p in zip(dists, rng.uniform(size=7))])
+    batch = _frozen_batch(dists, q, v)
+    assert batch is not None  # recognised: one call for all chains
+    # bit for bit what the per-chain calls give (the path the draws took before batching)
+    np.testing.assert_array_equal(batch[0], [float(d.ppf(p)) for d, p in zip(dists, q)])
+    np.testing.assert_array_equal(batch[1], [float(d.cdf(x)) for d, x in zip(dists, v)])
+
+
+@pytest.mark.parametrize("make", [
+    lambda k: scipy.stats.norm(0.1 * k, 1.0) if k % 2 else scipy.stats.logistic(0.1 * k, 1.0),
+    lambda k: scipy.stats.norm(loc=[0.1 * k], scale=1.0),  # an array-valued parameter
+    lambda k: scipy.stats.norm(0.1 * k, 1.0) if k % 2 else scipy.stats.norm(loc=0.1 * k, scale=1.0),
+    lambda k: scipy.stats.poisson(3.0),  # discrete
+    lambda k: scipy.stats.gumbel_r(0.1 * k),  # a family not in the list
+], ids=["mixed-families", "array-parameter", "positional-and-keyword", "discrete", "unlisted"])
+def test_frozen_distributions_that_cannot_be_batched_take_the_per_chain_path(make):
+    from phaseglass.core.gibbs import _frozen_batch
+
+    dists = [make(k) for k in range(4)]
+    assert _frozen_batch(dists, np.full(4, 0.3), np.zeros(4)) is None
+
+
+@pytest.mark.parametrize("bounds", [None, list(zip(LO, HI))], ids=["plain", "declared-bounds"])
+def test_batched_frozen_conditionals_give_the_per_chain_draws_exactly(bounds):
+    class PerChain:  # the same frozen distribution behind a plain object: not recognised
+        def __init__(self, dist):
+            self.cdf, self.ppf = dist.cdf, dist.ppf
+
+    def frozen(i, x):
+        loc, scale = conditional_normal(i, x)
+        return scipy.stats.truncnorm((LO[i] - loc) / scale, (HI[i] - loc) / scale, loc=loc, scale=scale)
+
+    target = pg.Target(box_log_density, lambda x: -(x - MU) @ PREC, dim=2, vectorized=True, bounds=bounds)
+    kw = dict(initial=STARTS, n_draws=6, n_chains=4, warmup=0, seed=24)
+    for shift in (None, GOLDEN):
+        a = pg.sample(target, pg.Gibbs(frozen, shift=shift), **kw)
+        b = pg.sample(target, pg.Gibbs(lambda i, x: PerChain(frozen(i, x)), shift=shift), **kw)
+        np.testing.assert_array_equal(a.draws, b.draws)
+        np.testing.assert_array_equal(a.u, b.u)
+
+
+def test_a_bad_frozen_distribution_is_still_reported_with_its_chain():
+    # scale < 0: scipy answers nan, which the batch path hands to the per-chain checks
+    bad = lambda i, x: scipy.stats.norm(0.0, -1.0 if i == 1 else 1.0)  # noqa: E731
+    with pytest.raises(ValueError, match=r"`conditionals\(1, x\)\.ppf\(.*\)` returned nan for chain 0"):
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", UserWarning)  # the start-of-run check warns too
+            pg.sample(pg.demos.correlated_gaussian(), pg.Gibbs(bad), initial=np.zeros((2, 2)),
+                      n_draws=1, n_chains=2, seed=1, warmup=0)
 
 
 def test_user_conditionals_on_a_bounded_target_use_the_users_scale():

@@ -15,6 +15,7 @@ uniform. Where the uniform comes from is the knob a widget turns:
 """
 
 import numbers
+import sys
 import warnings
 
 import numpy as np
@@ -29,8 +30,12 @@ DEFAULT_GRID_SIZE = 512
 
 _DROP = 25.0                            # nats below the maximum where the support search stops
 _BRACKET_POWERS = np.arange(-40.0, 41.0)  # bracketing offsets are scale * 2**j
-_EDGE_POINTS = 128                      # points per multisection pass at a truncation edge
-_EDGE_PASSES = 4                        # 129**4 ~ 3e8: the edge is found to ~4e-9 of its bracket
+_FIRST_POWERS = slice(32, 49)           # j = -8..8, tried first: where nearly every search stops
+_EDGE_POINTS = 32                       # points per multisection pass at a truncation edge
+_EDGE_PASSES = 6                        # 33**6 ~ 1.3e9: the edge is found to ~8e-10 of its bracket
+_COARSE_SHARE = 8                       # the equispaced pass has grid_size // 8 nodes (at least 16)
+_REFINE = 4                             # grid_size // 4 evaluated nodes, interpolated to grid_size
+_GRADED = 3                             # nodes halving the distance to each end of the grid
 _MAX_REGRID = 8                         # re-grids onto the region that holds the mass
 _FLAT = 1e-9                            # |log-density step| below which a segment is uniform
 _UNIFORM_SHARE = 0.2                    # share of adapted nodes kept evenly spread
@@ -113,6 +118,38 @@ def _no_inf(target, lp, pts, i):
         )
 
 
+def _bracket_log_density(target, position, i, z0, offsets):
+    """Log-density at ``z0`` and at ``z0 - offsets``, ``z0 + offsets``: (m, 1 + 2 J).
+
+    The offsets j = -8..8 (``_FIRST_POWERS``) are evaluated first, in one batch. A row whose
+    search (``_first_stop``) stops inside that window, past its first offset, needs no
+    more: its smaller offsets are filled with its log-density at ``z0`` (never a stop) and
+    its larger ones with -inf (never reached). Other rows are evaluated at every offset.
+    """
+    m, J = offsets.shape
+    w = np.arange(J)[_FIRST_POWERS]
+    lpw = _evaluate(target, position, i, np.concatenate(
+        [z0[:, None], z0[:, None] - offsets[:, w], z0[:, None] + offsets[:, w]], axis=1),
+        allow_inf=True)
+    lp0 = lpw[:, 0]
+    lp = np.full((m, 1 + 2 * J), -np.inf)
+    lp[:, 0] = lp0
+    redo = np.zeros(m, dtype=bool)
+    for side in (0, 1):
+        side_lp = lpw[:, 1 + side * len(w):1 + (side + 1) * len(w)]
+        j, found = _first_stop(side_lp, lp0)
+        redo |= ~found | (j == 0)
+        lp[:, 1 + side * J:1 + side * J + w[0]] = lp0[:, None]
+        lp[:, 1 + side * J + w[0]:1 + side * J + w[-1] + 1] = side_lp
+    redo &= np.isfinite(lp0)  # a non-finite start is reported by the caller
+    if redo.any():
+        r = np.flatnonzero(redo)
+        lp[r] = _evaluate(target, position[r], i, np.concatenate(
+            [z0[r, None], z0[r, None] - offsets[r], z0[r, None] + offsets[r]], axis=1),
+            allow_inf=True)
+    return lp
+
+
 def _first_stop(lp, lp0):
     """Index of the first outward offset where ``lp`` falls _DROP below the running maximum.
 
@@ -144,8 +181,8 @@ def _find_edges(target, position, i, z0, inner, outer, sign):
     return inner
 
 
-def _adapted_nodes(nodes, logp):
-    """Redistribute grid nodes (same ends, same count) to even out interpolation error.
+def _adapted_nodes(nodes, logp, count):
+    """Redistribute grid nodes (same ends, ``count`` of them) to even out interpolation error.
 
     Interpolating the log-density linearly on a segment of width ``h`` misplaces
     about ``p h**3 |l''| / 12`` of probability (``p`` the density, ``l''`` the
@@ -173,10 +210,64 @@ def _adapted_nodes(nodes, logp):
     rho = rho + np.where(mass > 0, _UNIFORM_SHARE, 1.0) / width
     q = np.concatenate([np.zeros((n, 1)), np.cumsum(rho * h, axis=1)], axis=1)
     q /= q[:, -1:]
-    t = np.linspace(0.0, 1.0, g)
+    t = np.linspace(0.0, 1.0, count)
     out = np.array([np.interp(t, q[k], nodes[k]) for k in range(n)])
     out[:, 0], out[:, -1] = nodes[:, 0], nodes[:, -1]
     return out
+
+
+def _graded_ends(nodes):
+    """Add ``_GRADED`` nodes in each end segment, halving the distance to the end each time.
+
+    At a truncation edge the log-density may fall like ``a log(distance)`` (a gamma at 0):
+    geometric spacing resolves that at every scale, where even spacing cannot.
+    """
+    h_lo = (nodes[:, 1] - nodes[:, 0])[:, None]
+    h_hi = (nodes[:, -1] - nodes[:, -2])[:, None]
+    halves = 0.5 ** np.arange(_GRADED, 0, -1)[None, :]  # 1/64 ... 1/2
+    return np.concatenate([nodes[:, :1], nodes[:, :1] + h_lo * halves, nodes[:, 1:-1],
+                           nodes[:, -1:] - h_hi * halves[:, ::-1], nodes[:, -1:]], axis=1)
+
+
+def _refined(nodes, logp, size):
+    """``size`` nodes along the polygon of ``nodes`` (n, m), with cubic log-densities.
+
+    The new nodes split each segment evenly (about ``(size - 1) / (m - 1)`` pieces); the
+    log-density there is the cubic through the four nearest evaluated nodes (error
+    ``~h**4``, exact for a Gaussian), or the straight line between the segment's ends
+    where one of the four is not finite (-inf at both ends' sides of a hole stays -inf).
+    """
+    n, m = nodes.shape
+    if size == m:
+        return nodes, logp
+    pos = np.linspace(0.0, m - 1.0, size)
+    j = np.minimum(pos.astype(int), m - 2)  # the segment of each new node
+    s = pos - j
+    x = nodes[:, j] + s * (nodes[:, j + 1] - nodes[:, j])
+    finite = np.isfinite(logp)
+    y = np.where(finite, logp, 0.0)
+    # Newton's divided differences of every run of four nodes k..k+3
+    d1 = np.diff(y, axis=1) / np.diff(nodes, axis=1)
+    d2 = np.diff(d1, axis=1) / (nodes[:, 2:] - nodes[:, :-2])
+    d3 = np.diff(d2, axis=1) / (nodes[:, 3:] - nodes[:, :-3])
+    ok = finite[:, :-3] & finite[:, 1:-2] & finite[:, 2:-1] & finite[:, 3:]
+
+    def cubic(k):  # the cubic through nodes k..k+3, at x
+        return y[:, k] + (x - nodes[:, k]) * (
+            d1[:, k] + (x - nodes[:, k + 1]) * (d2[:, k] + (x - nodes[:, k + 2]) * d3[:, k]))
+
+    # the two runs of four nodes around segment j (shifted inwards at the ends); where they
+    # disagree the log-density is not smooth at this spacing (a power-law edge, a kink):
+    # the straight line is safer there
+    left, right = np.clip(j - 1, 0, m - 4), np.clip(j, 0, m - 4)
+    with np.errstate(all="ignore"):
+        c_left, c_right = cubic(left), cubic(right)
+        la, lb = logp[:, j], logp[:, j + 1]
+        line = np.where(np.isfinite(la) & np.isfinite(lb), la + s * (lb - la), -np.inf)
+        mid = 0.5 * (c_left + c_right)
+        smooth = ok[:, left] & ok[:, right] & (np.abs(c_left - c_right) <= np.abs(mid - line))
+    out = np.where(smooth, mid, line)
+    return x, out
 
 
 class GridConditional:
@@ -194,7 +285,9 @@ class GridConditional:
     nodes : ndarray, shape (n_chains, grid_size)
         Grid on the sampler's scale (increasing in each row).
     log_density : ndarray, shape (n_chains, grid_size)
-        Log-density at the nodes, shifted so each row's maximum is 0.
+        Log-density at the nodes, shifted so each row's maximum is 0 (from
+        ``from_target``: evaluated at a quarter of the nodes, interpolated at
+        the others).
     cum : ndarray, shape (n_chains, grid_size)
         The approximate CDF at the nodes (0 at the first node, 1 at the last).
     """
@@ -237,12 +330,11 @@ class GridConditional:
         n = position.shape[0]
         z0 = position[:, i].astype(float)
         rows = np.arange(n)
-        # 1. bracket: offsets scale * 2**j, j = -40..40, on both sides, in one batch
+        # 1. bracket: offsets scale * 2**j, j = -40..40, on both sides (j = -8..8 first)
         scale = np.maximum(1.0, np.abs(z0))
         offsets = scale[:, None] * 2.0 ** _BRACKET_POWERS[None, :]
         J = offsets.shape[1]
-        values = np.concatenate([z0[:, None], z0[:, None] - offsets, z0[:, None] + offsets], axis=1)
-        lp = _evaluate(target, position, i, values, allow_inf=True)
+        lp = _bracket_log_density(target, position, i, z0, offsets)
         lp0 = lp[:, 0]
         if not np.all(np.isfinite(lp0)):
             k = int(np.flatnonzero(~np.isfinite(lp0))[0])
@@ -282,11 +374,12 @@ class GridConditional:
             ends[0][e[side == 0]] = found[side == 0]
             ends[1][e[side == 1]] = found[side == 1]
         lo, hi = z0 - ends[0], z0 + ends[1]
-        # 2. equispaced grid, re-gridded onto the region within _DROP nats of the maximum
-        #    while that region is narrow (a bracket far wider than the mass)
-        t = np.linspace(0.0, 1.0, grid_size)
-        nodes = np.empty((n, grid_size))
-        logp = np.empty((n, grid_size))
+        # 2. coarse equispaced grid, re-gridded onto the region within _DROP nats of the
+        #    maximum while that region is narrow (a bracket far wider than the mass)
+        coarse = max(16, grid_size // _COARSE_SHARE)
+        t = np.linspace(0.0, 1.0, coarse)
+        nodes = np.empty((n, coarse))
+        logp = np.empty((n, coarse))
         active = rows
         for _ in range(_MAX_REGRID + 1):
             nd = lo[active, None] + (hi - lo)[active, None] * t[None, :]
@@ -294,16 +387,18 @@ class GridConditional:
             nodes[active], logp[active] = nd, lpa
             keep = lpa >= np.max(lpa, axis=1, keepdims=True) - _DROP
             a = np.maximum(np.argmax(keep, axis=1) - 1, 0)
-            b = np.minimum(grid_size - np.argmax(keep[:, ::-1], axis=1), grid_size - 1)
-            narrow = (b - a) < (grid_size - 1) // 4
+            b = np.minimum(coarse - np.argmax(keep[:, ::-1], axis=1), coarse - 1)
+            narrow = (b - a) < (coarse - 1) // 4
             if not narrow.any():
                 break
             r = np.arange(len(active))[narrow]
             active = active[narrow]
             lo[active], hi[active] = nd[r, a[narrow]], nd[r, b[narrow]]
-        # 3. move the nodes to where interpolation error lives, and evaluate once more
-        nodes = _adapted_nodes(nodes, logp)
+        # 3. place grid_size // 4 nodes where interpolation error lives, evaluate there, and
+        #    interpolate (cubic) to grid_size nodes
+        nodes = _graded_ends(_adapted_nodes(nodes, logp, max(16, grid_size // _REFINE) - 2 * _GRADED))
         logp = _evaluate(target, position, i, nodes)
+        nodes, logp = _refined(nodes, logp, grid_size)
         return cls(i, nodes, logp)
 
     def cdf(self, z):
@@ -365,8 +460,16 @@ class Gibbs(Kernel):
         the user's scale, returns the conditional distribution of ``x[i]`` given
         the rest as an object with ``cdf`` and ``ppf`` methods (a frozen
         ``scipy.stats`` distribution works). It is called once per chain and
-        coordinate (a plain loop: clarity over speed). ``None`` builds each
-        conditional numerically from the target's log-density (see Notes).
+        coordinate. When every chain gets a frozen ``scipy.stats`` distribution
+        of one common family (normal, truncated normal, uniform, exponential,
+        gamma, inverse gamma, beta, log-normal, Student t, Cauchy, Laplace,
+        logistic, half-normal, chi-squared, Weibull), its ``ppf`` and ``cdf``
+        are called once for all chains with their parameters stacked: the same
+        numbers, bit for bit, as one call per chain. Building a frozen
+        distribution still costs scipy ~0.4 ms per call (inside your function),
+        so an object with ``cdf``/``ppf`` on ``scipy.special`` is much faster
+        (``benchmarks/core.py --gibbs-only``). ``None`` builds each conditional
+        numerically from the target's log-density (see Notes).
     shift : None, "random" or float in [0, 1)
         ``None`` for ordinary Gibbs sampling, else the shift ``c`` of the driving
         uniforms. ``shift=0`` is allowed so the failure it causes can be shown:
@@ -380,7 +483,7 @@ class Gibbs(Kernel):
         (x, u).
     grid_size : int >= 16
         Nodes of the grid of each numeric conditional (ignored with
-        ``conditionals``); the error falls as ``grid_size**-2`` (see Notes).
+        ``conditionals``); a quarter of them are evaluated (see Notes).
 
     Attributes
     ----------
@@ -432,35 +535,43 @@ class Gibbs(Kernel):
     is then the user-scale CDF value, or one minus it for an upper-bound-only
     coordinate). For each coordinate, vectorised over chains:
 
-    1. bracket the support: evaluate offsets ``+-max(1, |z|) * 2**j``,
-       ``j = -40..40``, in one batch; on each side stop at the first offset
-       that falls 25 nats below the running maximum. A stop where the
-       log-density is -inf (outside a truncation; nan counts as -inf) is
-       refined to the edge by multisection (4 passes of 128 points, to ~4e-9
-       of its bracket);
-    2. evaluate ``grid_size`` equispaced nodes across the bracket (one
-       ``log_density`` call on an (n_chains * grid_size, dim) batch),
-       re-gridding onto the region within 25 nats of the maximum while that
-       spans under a quarter of the grid;
-    3. move the nodes to where interpolation error lives (node density
-       ``~ (p |(log p)''|)**(1/3)`` for 80% of them, even spacing for the rest)
-       and evaluate once more;
-    4. interpolate the log-density linearly between nodes and integrate the
-       resulting piecewise-exponential density exactly; ``F`` and ``F^-1`` are
-       then exact inverses of each other (to ~1e-15).
+    1. bracket the support: offsets ``+-max(1, |z|) * 2**j``, ``j = -40..40``;
+       on each side stop at the first offset that falls 25 nats below the
+       running maximum. ``j = -8..8`` are evaluated first, in one batch; only a
+       chain whose search does not stop inside that window (past its first
+       offset) is evaluated at all 81 offsets. A stop where the log-density is
+       -inf (outside a truncation; nan counts as -inf) is refined to the edge
+       by multisection (6 passes of 32 points, to ~8e-10 of its bracket);
+    2. evaluate ``grid_size // 8`` equispaced nodes across the bracket (one
+       ``log_density`` call on an (n_chains * nodes, dim) batch), re-gridding
+       onto the region within 25 nats of the maximum while that spans under a
+       quarter of the grid;
+    3. place ``grid_size // 4`` nodes where interpolation error lives (node
+       density ``~ (p |(log p)''|)**(1/3)`` for 80% of them, even spacing for
+       the rest; 3 more in each end segment, halving the distance to the end,
+       for power-law edges) and evaluate there;
+    4. interpolate the log-density to ``grid_size`` nodes, each evaluated
+       segment split evenly, by the cubics through the four nearest evaluated
+       nodes (the mean of the two such runs; the straight line where they
+       disagree by more than the cubic's correction to the line, i.e. where
+       the log-density is not smooth at this spacing); between those nodes
+       the log-density is linear and the resulting piecewise-exponential
+       density is integrated exactly; ``F`` and ``F^-1`` are then exact
+       inverses of each other (to ~1e-15).
 
-    A conditional costs ``163 + 2 * grid_size`` evaluations (``grid_size``
-    more per re-grid, 512 more per truncation edge); one more per chain and
-    transition gives the new state's log-density.
+    A conditional costs ``35 + grid_size // 8 + grid_size // 4`` evaluations
+    (227 for the default; 163 more for a chain whose bracket needs all the
+    offsets, ``grid_size // 8`` more per re-grid, 192 more per truncation
+    edge); one more per chain and transition gives the new state's
+    log-density. (Before issue 13: ``163 + 2 * grid_size``, 5.2 times more.)
 
     Accuracy, the largest CDF error against ``scipy.stats`` (measured; the
     tests check it): with the default 512 nodes, 5e-8 for a normal truncated
-    by -inf outside, 2.5e-7 for the same with declared bounds (logit scale),
-    2e-6 for gammas of shape 2.5 and 0.7, 2e-5 for a Student t with 3 degrees
-    of freedom (heavy tails, a very wide bracket). The error falls roughly as
-    ``grid_size**-2`` (with 128 nodes: 7e-7 to 3e-5 for the same gammas and
-    truncated normals). Mass beyond the 25-nat cut-off (~1e-11) is dropped; a
-    current value beyond it gets ``F = 0`` or ``1``.
+    by -inf outside, 1.2e-6 for the same with declared bounds (logit scale),
+    2e-6 for gammas of shape 2.5 (-inf below 0, or declared bounds) and 0.7.
+    With 128 nodes (32 evaluated): 9e-7 to 3e-4 for the same cases. Mass
+    beyond the 25-nat cut-off (~1e-11) is dropped; a current value beyond it
+    gets ``F = 0`` or ``1``.
 
     Limits: the grid follows the current value of ``x_i``, so the
     approximation differs slightly from update to update and the shift
@@ -629,28 +740,39 @@ class Gibbs(Kernel):
         return f_old
 
     def _user_step(self, target, x, i, u):
-        """Update coordinate ``i`` of ``x`` (user scale, in place), one chain at a time."""
+        """Update coordinate ``i`` of ``x`` (user scale, in place); return F(old x_i).
+
+        ``conditionals`` is called once per chain. When every chain's answer is a frozen
+        scipy.stats distribution of one recognised family (``_BATCHED_FAMILIES``), the
+        ``ppf``/``cdf`` of all chains are one call of the family's vectorised methods with
+        the chains' parameters stacked: the same numbers as one call per chain (elementwise
+        arithmetic; the tests check it bit for bit) without scipy's per-call overhead.
+        """
         lo, hi = target.bounds
         # open (0, 1): u = 0 happens with probability 2**-53 and would give ppf = -inf
         u = np.clip(u, np.nextafter(0.0, 1.0), np.nextafter(1.0, 0.0))
-        f_old = np.empty(len(x))
-        for k in range(len(x)):
-            dist = self._user_conditional(i, k, x[k])
-            new = _scalar(dist.ppf, u[k], "ppf", i, k, x[k])
-            f = _scalar(dist.cdf, x[k, i], "cdf", i, k, x[k])
-            if not np.isfinite(new):
-                raise ValueError(
-                    f"`conditionals({i}, x).ppf({u[k]!r})` returned {new} for chain {k} at "
-                    f"x = {x[k]}; expected a finite value"
-                )
-            if not 0.0 <= f <= 1.0:
-                raise ValueError(
-                    f"`conditionals({i}, x).cdf(x[{i}])` returned {f} for chain {k} at "
-                    f"x = {x[k]}; expected a value in [0, 1]"
-                )
-            # a draw on a declared bound would map to an infinite unconstrained value
-            x[k, i] = min(max(new, np.nextafter(lo[i], np.inf)), np.nextafter(hi[i], -np.inf))
-            f_old[k] = f
+        dists = [self._user_conditional(i, k, x[k]) for k in range(len(x))]
+        batch = _frozen_batch(dists, u, x[:, i])
+        if batch is not None and np.all(np.isfinite(batch[0])) and np.all(
+                (batch[1] >= 0.0) & (batch[1] <= 1.0)):
+            new, f_old = batch
+        else:  # one chain at a time, which also names the chain that went wrong
+            new, f_old = np.empty(len(x)), np.empty(len(x))
+            for k, dist in enumerate(dists):
+                new[k] = _scalar(dist.ppf, u[k], "ppf", i, k, x[k])
+                f_old[k] = _scalar(dist.cdf, x[k, i], "cdf", i, k, x[k])
+                if not np.isfinite(new[k]):
+                    raise ValueError(
+                        f"`conditionals({i}, x).ppf({u[k]!r})` returned {new[k]} for chain {k} at "
+                        f"x = {x[k]}; expected a finite value"
+                    )
+                if not 0.0 <= f_old[k] <= 1.0:
+                    raise ValueError(
+                        f"`conditionals({i}, x).cdf(x[{i}])` returned {f_old[k]} for chain {k} at "
+                        f"x = {x[k]}; expected a value in [0, 1]"
+                    )
+        # a draw on a declared bound would map to an infinite unconstrained value
+        x[:, i] = np.minimum(np.maximum(new, np.nextafter(lo[i], np.inf)), np.nextafter(hi[i], -np.inf))
         return f_old
 
     def _user_conditional(self, i, k, x):
@@ -709,6 +831,54 @@ class Gibbs(Kernel):
             )
         return cls(conditionals, shift=s.get("shift"), shared_stream=s.get("shared_stream", False),
                    grid_size=s.get("grid_size", DEFAULT_GRID_SIZE))
+
+
+#: scipy.stats families whose frozen distributions are evaluated for all chains in one call.
+#: Each is checked in the tests to give, chain by chain, exactly the per-chain call's numbers.
+_BATCHED_FAMILIES = frozenset({
+    "norm", "truncnorm", "uniform", "expon", "gamma", "invgamma", "beta", "lognorm", "t",
+    "cauchy", "laplace", "logistic", "halfnorm", "chi2", "weibull_min",
+})
+
+
+def _frozen_batch(dists, q, v):
+    """``(ppf(q), cdf(v))`` of per-chain frozen scipy.stats distributions in one call each.
+
+    ``dists`` holds one distribution per chain, ``q`` and ``v`` are (n_chains,). Returns
+    None unless every distribution is a frozen scipy.stats continuous distribution of the
+    same recognised family (the module's own generator, not a subclass or a re-configured
+    instance) with scalar parameters given the same way (positional or keyword).
+    """
+    infra = sys.modules.get("scipy.stats._distn_infrastructure")  # no scipy: nothing frozen
+    stats = sys.modules.get("scipy.stats")
+    if infra is None or stats is None:
+        return None
+    frozen = infra.rv_continuous_frozen
+    first = dists[0]
+    if type(first) is not frozen:
+        return None
+    name = getattr(first.dist, "name", None)
+    family = getattr(stats, name, None) if name in _BATCHED_FAMILIES else None
+    if family is None:
+        return None
+    kind, n_args, keys = type(family), len(first.args), first.kwds.keys()
+    support = (family.a, family.b, family.badvalue)
+    for d in dists:
+        if (type(d) is not frozen or type(d.dist) is not kind or len(d.args) != n_args
+                or d.kwds.keys() != keys or (d.dist.a, d.dist.b, d.dist.badvalue) != support):
+            return None
+    try:
+        args = [np.array([d.args[j] for d in dists], dtype=float) for j in range(n_args)]
+        kwds = {key: np.array([d.kwds[key] for d in dists], dtype=float) for key in keys}
+    except (TypeError, ValueError):  # an array-valued or non-numeric parameter
+        return None
+    if any(a.ndim != 1 for a in args) or any(a.ndim != 1 for a in kwds.values()):
+        return None
+    try:
+        return (np.asarray(family.ppf(q, *args, **kwds), dtype=float),
+                np.asarray(family.cdf(v, *args, **kwds), dtype=float))
+    except Exception:  # let the per-chain path report it with the chain's context
+        return None
 
 
 def _scalar(method, arg, what, i, k, x):
