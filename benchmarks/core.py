@@ -35,9 +35,11 @@ Three questions, each against a goal:
 Each time is the best of several repeats (the minimum is the least noisy estimate of
 the cost on a shared machine). Ratios are given for wall time and, in parentheses,
 for process CPU time, which other processes on a busy machine disturb much less.
-BLAS runs single-threaded unless OPENBLAS_NUM_THREADS / OMP_NUM_THREADS are set:
-one chain's matrix-vector products are too small to gain from threads, and on a
-shared 2-core machine threaded BLAS makes the timings erratic.
+BLAS is pinned to one thread: OPENBLAS_NUM_THREADS=1, OMP_NUM_THREADS=1 and
+MKL_NUM_THREADS=1 are set before numpy is imported (a value already in the environment
+is kept, and the header prints what is in force). One chain's matrix-vector products are
+too small to gain from threads, and on a shared 2-core machine threaded BLAS makes the
+timings erratic.
 """
 
 import os
@@ -437,9 +439,11 @@ def machine():
         lines.append(f"- BLAS: {'; '.join(blas)}")
     except ImportError:
         pass
-    env = {k: os.environ[k] for k in ("OPENBLAS_CORETYPE", "OPENBLAS_L2_SIZE", "OPENBLAS_NUM_THREADS")
+    env = {k: os.environ[k] for k in ("OPENBLAS_CORETYPE", "OPENBLAS_L2_SIZE")
            if k in os.environ}
     lines.append(f"- environment: {env}")
+    lines.append("- BLAS pinned: " + ", ".join(
+        f"{k}={os.environ[k]}" for k in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS")))
     if hasattr(os, "getloadavg"):
         lines.append(f"- load average at start (1, 5, 15 min): {os.getloadavg()}")
     return "\n".join(lines)
