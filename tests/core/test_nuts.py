@@ -79,6 +79,29 @@ def test_nuts_marginals_pass_ks_against_scipy_norm(gaussian_run):
 
 
 @pytest.mark.slow
+def test_a_dense_metric_that_whitens_the_target_shortens_the_trees(gaussian):
+    # With M^-1 = cov the Gaussian becomes isotropic in the metric's geometry, so the
+    # U-turn (measured with p_sharp = M^-1 p) comes after about half an orbit: short
+    # trees and nearly independent draws. Over seeds 100-109: ESS per draw 0.86-1.09
+    # with the metric against 0.15-0.21 with the identity, ESS per gradient 14x higher.
+    start = exact_start(gaussian, 4, 100)
+    dense = pg.sample(gaussian, pg.NUTS(0.5, metric=gaussian.cov), start, n_draws=500,
+                      n_chains=4, seed=100, warmup=0)
+    plain = pg.sample(gaussian, pg.NUTS(0.15), start, n_draws=500, n_chains=4, seed=100,
+                      warmup=0)
+    ess_dense, ess_plain = pg.ess(dense.draws).min(), pg.ess(plain.draws).min()
+    assert ess_dense / 2000 > 0.6
+    assert ess_dense / dense.total_grad > 4 * ess_plain / plain.total_grad
+    assert dense.extras["n_leapfrog"].mean() < 0.5 * plain.extras["n_leapfrog"].mean()
+    # and the whitened run still keeps the moments (4.5 MCSE; worst over seeds 100-119: 3.5)
+    x = dense.draws
+    assert np.all(np.abs(x.mean(axis=(0, 1))) < 4.5 * pg.mcse(x))
+    i, j = np.triu_indices(3)
+    products = x[..., i] * x[..., j]
+    assert np.all(np.abs(products.mean(axis=(0, 1)) - gaussian.cov[i, j]) < 4.5 * pg.mcse(products))
+
+
+@pytest.mark.slow
 @pytest.mark.parametrize("make, reference", [
     (gamma_target, scipy.stats.gamma(3, scale=2)),
     (beta_target, scipy.stats.beta(2, 5)),
