@@ -257,6 +257,28 @@ def test_depth_limit_is_honoured():
     assert deep.extras["tree_depth"].max() > 3
 
 
+def test_a_divergence_on_the_first_step_leaves_the_chain_in_place(gaussian):
+    s = pg.Sampler(gaussian, pg.NUTS(50.0), n_chains=3, seed=2)  # far beyond stability
+    start = s.state.position.copy()
+    info = s.step()
+    assert info["divergent"].all() and not info["accepted"].any()
+    np.testing.assert_array_equal(info["n_leapfrog"], 1)
+    np.testing.assert_array_equal(info["tree_depth"], 1)
+    np.testing.assert_array_equal(info["accept_prob"], 0.0)
+    assert np.all(np.abs(info["energy_error"]) > 1000)
+    np.testing.assert_array_equal(s.state.position, start)
+    assert [c for c, _, _ in s.divergences] == [0, 1, 2]
+    assert all(tr.n_steps == 1 and tr.divergence_step == 1 for _, _, tr in s.divergences)
+
+
+def test_max_depth_one_is_one_leapfrog_step(gaussian):
+    run = pg.sample(gaussian, pg.NUTS(0.3, max_depth=1), n_draws=50, n_chains=2, seed=1, warmup=0)
+    np.testing.assert_array_equal(run.extras["n_leapfrog"], 1)
+    # it stops at the limit unless the two states already point apart
+    np.testing.assert_array_equal(run.extras["depth_limit_hit"], ~run.extras["turned"])
+    assert run.extras["depth_limit_hit"].mean() > 0.5
+
+
 @pytest.fixture(scope="module")
 def orchard_runs():
     return {form: pg.sample(pg.demos.orchards(form), pg.NUTS(0.2), n_draws=300, warmup=300,
