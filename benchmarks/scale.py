@@ -13,7 +13,8 @@ about 1 ms, computed
 
 and the speed-up of each over the serial pass (goal >= 1.6 with 2 workers on a
 2-core machine), with the CPU time this process spent meanwhile (with an executor:
-sending cells, summarising the returned runs and, for Dask, the scheduler). It also checks that every map holds the same numbers, cell for cell.
+sending cells, summarising the returned runs and, for Dask, the scheduler). It also
+checks that every map holds the same numbers, cell for cell.
 Pools and the cluster are started, and their workers have imported phaseglass, before
 the clock starts (their start-up time is printed apart); the pilot run the map's
 cells start from is computed once beforehand, so only the cells are timed. It is not
@@ -88,7 +89,8 @@ def timed_map(target, settings, executor):
 
 def main():
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("--quick", action="store_true", help="short smoke run (numbers meaningless)")
+    parser.add_argument("--quick", action="store_true",
+                        help="short smoke run (numbers meaningless)")
     args = parser.parse_args()
     from dask.distributed import Client, LocalCluster
 

@@ -14,7 +14,7 @@ import numpy as np
 import pytest
 
 import phaseglass as pg
-from phaseglass.core.compare import QUANTITIES, pack, run_packed
+from phaseglass.core.compare import QUANTITIES, pack, run_packed, submit_packed
 
 # small on purpose: CI has two cores
 RUN = dict(n_seeds=2, n_draws=40, n_chains=2, warmup=30)
@@ -183,3 +183,24 @@ def test_errors_name_the_argument_and_a_failing_cell_names_itself(pool):
         notes = getattr(info.value, "__notes__", [])
         if sys.version_info >= (3, 11):
             assert any("comparison cell 'wide', seed" in n for n in notes), notes
+
+
+def test_every_submission_is_distinct_so_cancelling_one_never_cancels_another():
+    # Dask merges calls with equal arguments into one task: equal cells of two passes would
+    # share it, and cancelling the abandoned pass would cancel the new one's cell too
+    class Recorder(concurrent.futures.Executor):
+        def __init__(self):
+            self.args = []
+
+        def submit(self, fn, *args, **kwargs):
+            self.args.append(args)
+            fut = concurrent.futures.Future()
+            fut.set_result(fn(*args))
+            return fut
+
+    ex = Recorder()
+    blob = pack(lambda_target())
+    a = submit_packed(ex, blob, lambda t, x: t.log_density(np.array(x)), ([1.0, 0.0],))
+    b = submit_packed(ex, blob, lambda t, x: t.log_density(np.array(x)), ([1.0, 0.0],))
+    assert a.result() == b.result() == pytest.approx(-0.5 * 0.25)
+    assert ex.args[0][:1] == ex.args[1][:1] and ex.args[0][2] != ex.args[1][2]

@@ -7,7 +7,7 @@ tests/conftest.py (Dask is an optional extra: skipped without it, except under C
 """
 
 import concurrent.futures
-import threading
+import time
 
 import numpy as np
 import pytest
@@ -60,17 +60,25 @@ def test_partial_refresh_slices_and_a_mass_matrix_travel_too():
         np.testing.assert_array_equal(remote.values_all[q], v, err_msg=q)
 
 
+def wait_for(condition, timeout=120.0):
+    """Poll ``condition`` until it holds (True) or ``timeout`` seconds pass (False)."""
+    deadline = time.monotonic() + timeout
+    while not condition():
+        if time.monotonic() > deadline:
+            return False
+        time.sleep(0.02)
+    return True
+
+
 class HeldExecutor(concurrent.futures.Executor):
     """Futures that stay pending until ``finish(n)`` runs the first n calls here."""
 
     def __init__(self):
         self.calls = []  # (future, fn, args)
-        self.submitted = threading.Event()
 
     def submit(self, fn, *args, **kwargs):
         fut = concurrent.futures.Future()
         self.calls.append((fut, fn, args))
-        self.submitted.set()
         return fut
 
     def finish(self, n):
@@ -82,16 +90,10 @@ class HeldExecutor(concurrent.futures.Executor):
 def test_progress_counts_finished_futures_and_stop_cancels_the_pending_ones():
     held = HeldExecutor()
     m = TuningMap(lambda_target(), executor=held, **MAP).compute()
-    for _ in range(600):  # every cell submitted (the pilot runs first, here)
-        if len(held.calls) == 4:
-            break
-        held.submitted.wait(0.5)
-    assert len(held.calls) == 4 and m.running
+    assert wait_for(lambda: len(held.calls) == 4)  # every cell submitted (after the pilot)
+    assert m.running
     held.finish(1)
-    for _ in range(600):
-        if m.n_done == 1:
-            break
-        threading.Event().wait(0.05)
+    assert wait_for(lambda: m.n_done == 1)
     assert m.n_done == 1 and m._progress.value == 1 and not m._stop_button.disabled
     m.stop()
     assert m.wait(timeout=60)
@@ -108,11 +110,7 @@ def test_progress_counts_finished_futures_and_stop_cancels_the_pending_ones():
     held2 = HeldExecutor()
     m.executor = held2
     m.compute(resume=True)
-    for _ in range(600):
-        if len(held2.calls) == 3:
-            break
-        held2.submitted.wait(0.5)
-    assert len(held2.calls) == 3
+    assert wait_for(lambda: len(held2.calls) == 3)
     held2.finish(3)
     assert m.wait(timeout=60)
     for q, v in serial.values_all.items():
@@ -122,17 +120,10 @@ def test_progress_counts_finished_futures_and_stop_cancels_the_pending_ones():
 def test_a_settings_change_cancels_the_pending_futures():
     held = HeldExecutor()
     m = TuningMap(lambda_target(), executor=held, **MAP).compute()
-    for _ in range(600):
-        if len(held.calls) == 4:
-            break
-        held.submitted.wait(0.5)
+    assert wait_for(lambda: len(held.calls) == 4)
     first = [f for f, _, _ in held.calls]
     m.n_draws = 24  # autorun=False: the old pass is abandoned, nothing new starts
-    for _ in range(600):
-        if all(f.cancelled() for f in first):
-            break
-        threading.Event().wait(0.05)
-    assert all(f.cancelled() for f in first)
+    assert wait_for(lambda: all(f.cancelled() for f in first))
     assert m.n_done == 0
 
 
@@ -159,3 +150,17 @@ def test_a_cell_failing_on_a_worker_lands_in_the_status_line():
         m.compute(background=False)
     assert m.n_done == 1 and m._state[0, 0, 0] == 2  # failed, left blank
     assert "model code failed" in m.status and "step size 0.3" in m.status
+
+
+def test_a_new_pass_on_dask_is_not_cancelled_with_the_abandoned_one(dask_client):
+    # Dask merges calls with equal arguments into one task; without a token per submission
+    # the first pass's cancelled cells took the second pass's identical cells with them
+    # (seen: 0 of 9 cells done after wait())
+    serial = TuningMap(lambda_target(), **MAP).compute(background=False)
+    m = TuningMap(lambda_target(), executor=dask_client.get_executor(), **MAP)
+    m.compute()
+    m.compute()
+    assert m.wait(timeout=300)
+    assert m.n_done == 4
+    for q, v in serial.values_all.items():
+        np.testing.assert_array_equal(m.values_all[q], v, err_msg=q)

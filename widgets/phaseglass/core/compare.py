@@ -8,11 +8,12 @@ on any ``concurrent.futures.Executor`` (a ``ProcessPoolExecutor``, or a
 cluster's executor such as ``dask.distributed.Client(...).get_executor()``);
 the numbers are identical cell for cell either way.
 
-The helpers ``pack`` and ``run_packed`` carry a target and a call to another
-process; ``TuningMap`` uses them too.
+The helpers ``pack``, ``submit_packed`` and ``run_packed`` carry a target and a call
+to another process; ``TuningMap`` uses them too.
 """
 
 import pickle
+import uuid
 from dataclasses import dataclass
 
 import numpy as np
@@ -23,8 +24,8 @@ from .kernels import Kernel
 from .streams import seed_sequence
 from .target import Target
 
-__all__ = ["compare_kernels", "KernelComparison", "QUANTITIES", "pack", "run_packed",
-           "check_executor", "run_fixed", "run_fixed_portable", "CellAborted"]
+__all__ = ["compare_kernels", "KernelComparison", "QUANTITIES", "pack", "submit_packed",
+           "run_packed", "check_executor", "run_fixed", "run_fixed_portable", "CellAborted"]
 
 #: The numbers measured in every cell (the keys of ``KernelComparison.cells``).
 QUANTITIES = ("ESS per gradient", "acceptance", "divergences", "step size", "R-hat max")
@@ -44,7 +45,7 @@ _PER_KERNEL = ("warmup", "target_accept", "metric_adaptation")
 # ------------------------------------------------------------ sending work away
 
 def check_executor(executor):
-    """``executor`` itself when it is None or a ``concurrent.futures.Executor``, else a clear error."""
+    """``executor`` when it is None or a ``concurrent.futures.Executor``, else a clear error."""
     import concurrent.futures  # here: it imports logging, which `import phaseglass` need not pay
 
     if executor is None or isinstance(executor, concurrent.futures.Executor):
@@ -111,15 +112,28 @@ def pack(obj, name="target"):
             f"be. {fix}") from exc
 
 
-def run_packed(target_blob, call_blob):
+def run_packed(target_blob, call_blob, token=None):
     """Worker side of ``pack``: ``fn(target, *args, **kwargs)`` from the two pickles.
 
     ``call_blob`` holds ``(fn, args, kwargs)``. Only bytes cross the executor, so
     any executor's own pickling (plain pickle for ``ProcessPoolExecutor``) carries them.
+    ``token`` is not used: it makes every submission distinct (see ``submit_packed``).
     """
     target = pickle.loads(target_blob)
     fn, args, kwargs = pickle.loads(call_blob)
     return fn(target, *args, **kwargs)
+
+
+def submit_packed(executor, target_blob, fn, args=(), kwargs=None, name="kernel"):
+    """Submit ``fn(target, *args, **kwargs)`` to ``executor``; returns its Future.
+
+    The call is packed here (``pack``; ``name`` is the argument an error names). Each
+    submission carries a fresh token: an executor that merges identical calls into one
+    task (Dask does, by hashing the arguments) would otherwise let the cancelling of an
+    abandoned pass cancel a new pass's identical cell too.
+    """
+    call = pack((fn, tuple(args), dict(kwargs or {})), name)
+    return executor.submit(run_packed, target_blob, call, uuid.uuid4().hex)
 
 
 # ------------------------------------------------------------ fixed-knob runs
@@ -309,7 +323,10 @@ class KernelComparison:
                 row.append(text)
             rows.append(row)
         widths = [max(len(str(r[i])) for r in [heads] + rows) for i in range(len(heads))]
-        line = lambda r: "  ".join(str(c).ljust(w) for c, w in zip(r, widths)).rstrip()  # noqa: E731
+
+        def line(cells):
+            return "  ".join(str(c).ljust(w) for c, w in zip(cells, widths)).rstrip()
+
         out = [f"{self.n_kernels} kernels x {self.n_seeds} seeds, {self.n_chains} chains x "
                f"{self.n_draws} draws per run (mean \u00b1 sd over seeds)",
                line(heads), line(["-" * w for w in widths])]
@@ -484,8 +501,8 @@ def _run_cells(target, jobs, executor, entries):
     futures = {}
     try:
         for key, args in jobs:
-            call = pack((_measure, args, {}), f"kernels ({entries[key[0]][0]!r})")
-            futures[executor.submit(run_packed, blob, call)] = key
+            futures[submit_packed(executor, blob, _measure, args,
+                                  name=f"kernels ({entries[key[0]][0]!r})")] = key
         out = {}
         for fut in concurrent.futures.as_completed(futures):
             key = futures[fut]

@@ -12,7 +12,7 @@ import traitlets
 
 from ..core._validate import MAX_STEPS
 from ..core.compare import (CellAborted, check_executor, pack, run_fixed, run_fixed_portable,
-                            run_packed)
+                            submit_packed)
 from ..core.efficiency import ess_per_gradient, evaluation_cost
 from ..core.kernels import HMC, PartialRefreshHMC, RandomWalk
 from ..core.metric import Metric
@@ -622,11 +622,12 @@ class TuningMap(View):
             for k, i, j in job.cells:
                 if job.stop.is_set() or job.abort.is_set():
                     break
-                call = pack((run_fixed_portable, (self._cell_kernel(c, k, i, j),),
-                             {"n_draws": c["n_draws"], "n_chains": c["n_chains"],
-                              "burn_in": c["burn_in"], "seed": c["seed"], "initial": initial}),
-                            "kernel")
-                futures[self.executor.submit(run_packed, self._target_blob, call)] = (k, i, j)
+                fut = submit_packed(
+                    self.executor, self._target_blob, run_fixed_portable,
+                    (self._cell_kernel(c, k, i, j),),
+                    {"n_draws": c["n_draws"], "n_chains": c["n_chains"], "burn_in": c["burn_in"],
+                     "seed": c["seed"], "initial": initial})
+                futures[fut] = (k, i, j)
             pending = set(futures)
             last_draw = time.perf_counter()
             while pending and not (job.stop.is_set() or job.abort.is_set()):
@@ -636,7 +637,9 @@ class TuningMap(View):
                     try:
                         out, error = cell_quantities(fut.result()), None
                     except concurrent.futures.CancelledError:
-                        continue
+                        # not by us (we cancel only after leaving this loop): the executor
+                        # dropped the cell, e.g. a cluster shutting down
+                        out, error = None, RuntimeError("the executor cancelled this cell")
                     except Exception as exc:  # user code, or the worker itself, failed
                         out, error = None, exc
                     self._store_cell(job, *futures[fut], out, error)
