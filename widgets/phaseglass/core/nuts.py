@@ -235,29 +235,37 @@ class NUTS(Kernel):
                 cg = np.where(fwd[:, None], right_g[rows], left_g[rows])
                 sub = _Subtree(rows.size, dim, j, uniforms[rows, 3 * j + 1])
                 h0r = h0[rows]
-                live = np.ones(rows.size, dtype=bool)  # still building this subtree
+                m = rows.size
                 side = np.where(fwd, 1, 0)
+                step_dir = np.where(fwd, 1, -1)
+                base_off = steps_side[rows, side]  # steps already taken on that side
+                leap = n_leap[rows]
+                acc = sum_accept[rows]  # summed leaf by leaf, in the order of the leaves
+                live = np.ones(m, dtype=bool)  # still building this subtree
+                n_live = m
                 for i in range(2 ** j):
-                    idx = np.flatnonzero(live)
-                    if idx.size == 0:
+                    if n_live == 0:
                         break
-                    everyone = idx.size == rows.size
-                    if everyone:
+                    # every row alive: slices (views) instead of index arrays, the common case
+                    if n_live == m:
+                        idx, ix = None, slice(None)
                         qn, pn, lpn, gn = _kick_drift_kick(cq, cp, cg, eps, half, velocity, vg)
                     else:
+                        idx = ix = np.flatnonzero(live)
                         qn, pn, lpn, gn = _kick_drift_kick(cq[idx], cp[idx], cg[idx], eps, half,
                                                            velocity, vg)
                     hn = kinetic(pn) - lpn
-                    err = hn - h0r[idx]
+                    err = hn - h0r[ix]
                     ok = np.abs(err) <= limit  # False for NaN too
-                    r_idx = rows[idx]
-                    n_leap[r_idx] += 1
-                    offset = (d[idx] * (steps_side[r_idx, side[idx]] + i + 1)).astype(int)
+                    leap[ix] += 1
+                    acc[ix] += np.where(ok, np.exp(np.minimum(0.0, -err)), 0.0)
+                    offset = step_dir[ix] * (base_off[ix] + i + 1)
                     if leaves is not None:
-                        leaves.append((r_idx, offset, j, qn.copy(), d[idx, None] * pn, lpn.copy(),
-                                       hn + lpn))
-                    sum_accept[r_idx] += np.where(ok, np.exp(np.minimum(0.0, -err)), 0.0)
+                        leaves.append((rows[ix], offset, j, qn.copy(), d[ix, None] * pn,
+                                       lpn.copy(), hn + lpn))
                     if not ok.all():
+                        if idx is None:
+                            idx = np.arange(m)
                         bad = idx[~ok]
                         live[bad] = False
                         sub.failed[bad] = True
@@ -265,18 +273,19 @@ class NUTS(Kernel):
                         divergent[rb] = True
                         div_error[rb] = err[~ok]
                         replay_dir[rb] = d[bad]
-                        replay_steps[rb] = steps_side[rb, side[bad]] + i + 1
-                        keep = ok
-                        idx, qn, pn, lpn, gn, hn, err, offset = (
-                            idx[keep], qn[keep], pn[keep], lpn[keep], gn[keep], hn[keep], err[keep],
-                            offset[keep])
-                        everyone = False
-                    if everyone:
+                        replay_steps[rb] = base_off[bad] + i + 1
+                        idx = ix = idx[ok]
+                        qn, pn, lpn, gn, hn, err, offset = (qn[ok], pn[ok], lpn[ok], gn[ok],
+                                                            hn[ok], err[ok], offset[ok])
+                    if idx is None:
                         cq, cp, clp, cg = qn, pn, lpn, gn
                     else:
                         cq[idx], cp[idx], clp[idx], cg[idx] = qn, pn, lpn, gn
-                    sub.add(i, idx, qn, pn, lpn, gn, hn, -err, velocity(pn), offset)
+                    sub.add(i, ix, qn, pn, lpn, gn, hn, -err, velocity(pn), offset)
                     live &= ~sub.failed
+                    n_live = np.count_nonzero(live)
+                n_leap[rows] = leap
+                sum_accept[rows] = acc
                 # ---- merge the finished subtrees into their trajectories
                 ok_sub = ~sub.failed
                 stop = rows[~ok_sub]
@@ -373,9 +382,11 @@ class _Subtree:
     def add(self, i, idx, q, p, lp, g, h, log_w, sharp, offset):
         """Add leaf ``i`` for rows ``idx`` (weights ``log_w = H0 - H``, ``sharp = M^-1 p``).
 
-        ``offset`` is the leaf's place in time relative to the start (negative backward).
+        ``idx`` is an index array or ``slice(None)`` (every row); ``offset`` is
+        the leaf's place in time relative to the start (negative backward).
         """
-        if idx.size == 0:
+        every = isinstance(idx, slice)
+        if not every and idx.size == 0:
             return
         new_w = np.logaddexp(self.log_w[idx], log_w)
         prob = np.exp(log_w - new_w)
@@ -383,7 +394,7 @@ class _Subtree:
         take = u < prob
         self.u[idx] = np.where(take, u / prob, (u - prob) / (1.0 - prob))
         self.log_w[idx] = new_w
-        t = idx[take]
+        t = np.flatnonzero(take) if every else idx[take]
         self.q[t], self.lp[t], self.g[t], self.h[t] = q[take], lp[take], g[take], h[take]
         self.offset[t] = offset[take]
         for level in range(1, self.depth + 1):
@@ -395,7 +406,7 @@ class _Subtree:
             if (i + 1) % (2 ** level) == 0:  # last leaf: check the node
                 rho = self.rho[idx] - self.rho_before[level, idx]
                 u_turn = _turned_back(self.first_sharp[level, idx], sharp, rho)
-                bad = idx[u_turn]
+                bad = np.flatnonzero(u_turn) if every else idx[u_turn]
                 self.failed[bad] = True
                 self.turned[bad] = True
 
