@@ -266,7 +266,7 @@ def test_numeric_conditional_cdf_matches_scipy_stats(case):
         warnings.simplefilter("ignore", RuntimeWarning)  # logpdf at 0 under the logit map
         err_default, cond = _max_cdf_error(target, reference, start, pg.core.gibbs.DEFAULT_GRID_SIZE)
         err_coarse, _ = _max_cdf_error(target, reference, start, 128)
-    assert err_default < 1e-5  # measured: 5e-8 to 2.2e-6
+    assert err_default < 1e-5  # measured: 5e-8 to 2.2e-6 (4.7e-6 since issue 13)
     assert err_coarse / err_default > 8.0  # error ~ grid_size**-2 (measured ratio 14-24)
     u = np.linspace(0.0, 1.0, 101)
     back = np.array([cond.cdf(cond.ppf(np.array([v])))[0] for v in u])
@@ -274,7 +274,7 @@ def test_numeric_conditional_cdf_matches_scipy_stats(case):
 
 
 def test_numeric_conditional_costs_the_documented_evaluations():
-    # Gibbs Notes: 35 + grid_size // 8 + grid_size // 4 per chain and conditional when the
+    # Gibbs Notes: 35 + grid_size // 16 + grid_size // 4 per chain and conditional when the
     # first bracketing window suffices and nothing is re-gridded or truncated (a Gaussian),
     # plus one per chain and transition for the new state
     target = pg.demos.correlated_gaussian()
@@ -282,7 +282,7 @@ def test_numeric_conditional_costs_the_documented_evaluations():
     sampler.step()
     start = target.n_density
     sampler.step()
-    per_conditional = 35 + 512 // 8 + 512 // 4  # 227, against 163 + 2 * 512 before issue 13
+    per_conditional = 35 + 512 // 16 + 512 // 4  # 195, against 163 + 2 * 512 before issue 13
     assert target.n_density - start == 3 * 2 * per_conditional + 3
 
 
@@ -412,6 +412,62 @@ def test_batched_frozen_conditionals_give_the_per_chain_draws_exactly(bounds):
         np.testing.assert_array_equal(a.u, b.u)
 
 
+@pytest.mark.parametrize("shift", [None, GOLDEN])
+def test_vectorized_conditionals_give_the_per_chain_draws(shift):
+    def frozen(i, x):  # written for one chain; x[j] is a row of all chains when vectorized
+        loc, scale = conditional_normal(i, x)
+        return scipy.stats.truncnorm((LO[i] - loc) / scale, (HI[i] - loc) / scale, loc=loc, scale=scale)
+
+    calls = []
+
+    def counted(i, x):
+        calls.append(np.shape(x))
+        return frozen(i, x)
+
+    kw = dict(initial=STARTS, n_draws=6, n_chains=4, warmup=0, seed=25)
+    a = pg.sample(box_target(), pg.Gibbs(counted, shift=shift, vectorized=True), **kw)
+    b = pg.sample(box_target(), pg.Gibbs(frozen, shift=shift), **kw)
+    np.testing.assert_array_equal(a.draws, b.draws)
+    np.testing.assert_array_equal(a.u, b.u)
+    # one call per coordinate and sweep with x shaped (dim, n_chains), plus the start's checks
+    assert calls.count((2, 4)) == 2 * 6 + 2
+
+
+def test_vectorized_conditionals_that_mix_chains_are_refused_at_the_start():
+    def mixing(i, x):  # np.mean(x[j]) is x[j] for one chain, the mean of all chains at once
+        loc, scale = conditional_normal(i, np.array([np.mean(x[0]), np.mean(x[1])]))
+        return scipy.stats.norm(loc, scale)
+
+    with pytest.raises(ValueError, match=r"vectorized=True: called for all chains at once .* "
+                                         r"Does it mix chains"):
+        pg.sample(box_target(), pg.Gibbs(mixing, vectorized=True), initial=STARTS, n_draws=1,
+                  n_chains=4, seed=1, warmup=0)
+
+
+def test_error_in_vectorized_conditionals_says_all_chains_were_asked_at_once():
+    def scalar_only(i, x):
+        return scipy.stats.norm(float(x[1 - i]), 1.0)  # float() of a row of 4 chains raises
+
+    with pytest.raises(RuntimeError, match=r"`conditionals\(0, x\)` raised TypeError: .*"
+                                           r"\(coordinate 0, all 4 chains at once, x of shape \(2, 4\)"):
+        pg.sample(box_target(), pg.Gibbs(scalar_only, vectorized=True), initial=STARTS, n_draws=1,
+                  n_chains=4, seed=1, warmup=0)
+
+
+def test_vectorized_conditionals_must_answer_one_value_per_chain():
+    class OneValue:
+        def cdf(self, v):
+            return 0.5
+
+        def ppf(self, u):
+            return 0.1
+
+    with pytest.raises(ValueError, match=r"`conditionals\(0, x\)\.ppf` must return one value per "
+                                         r"chain, shape \(4,\), with vectorized=True; got shape \(\)"):
+        pg.sample(box_target(), pg.Gibbs(lambda i, x: OneValue(), vectorized=True), initial=STARTS,
+                  n_draws=1, n_chains=4, seed=1, warmup=0)
+
+
 def test_a_bad_frozen_distribution_is_still_reported_with_its_chain():
     # scale < 0: scipy answers nan, which the batch path hands to the per-chain checks
     bad = lambda i, x: scipy.stats.norm(0.0, -1.0 if i == 1 else 1.0)  # noqa: E731
@@ -457,6 +513,9 @@ def test_settings_round_trip():
     np.testing.assert_array_equal(pg.sample(box_target(), kernel, **kw).draws,
                                   pg.sample(box_target(), again, **kw).draws)
     assert repr(again) == "Gibbs(shift=0.2, shared_stream=True, grid_size=64, conditionals=None)"
+    vectorized = pg.Gibbs(exact_conditionals, vectorized=True).settings()
+    assert vectorized["vectorized"] is True
+    assert pg.Gibbs.from_settings(vectorized, conditionals=exact_conditionals).vectorized
 
 
 def test_settings_name_user_conditionals_which_must_be_passed_back():

@@ -33,7 +33,7 @@ _BRACKET_POWERS = np.arange(-40.0, 41.0)  # bracketing offsets are scale * 2**j
 _FIRST_POWERS = slice(32, 49)           # j = -8..8, tried first: where nearly every search stops
 _EDGE_POINTS = 32                       # points per multisection pass at a truncation edge
 _EDGE_PASSES = 6                        # 33**6 ~ 1.3e9: the edge is found to ~8e-10 of its bracket
-_COARSE_SHARE = 8                       # the equispaced pass has grid_size // 8 nodes (at least 16)
+_COARSE_SHARE = 16                      # the equispaced pass has grid_size // 16 nodes (at least 16)
 _REFINE = 4                             # grid_size // 4 evaluated nodes, interpolated to grid_size
 _GRADED = 3                             # nodes halving the distance to each end of the grid
 _MAX_REGRID = 8                         # re-grids onto the region that holds the mass
@@ -484,10 +484,21 @@ class Gibbs(Kernel):
     grid_size : int >= 16
         Nodes of the grid of each numeric conditional (ignored with
         ``conditionals``); a quarter of them are evaluated (see Notes).
+    vectorized : bool
+        Call ``conditionals(i, x)`` once per coordinate for all chains at once,
+        with ``x`` of shape (dim, n_chains): ``x[j]`` holds coordinate ``j`` of
+        every chain, so a function written for one chain that reads ``x[j]``
+        and uses elementwise numpy (a frozen ``scipy.stats`` distribution with
+        array parameters, say) usually works unchanged. What it returns must
+        give ``ppf``/``cdf`` one value per chain, shape (n_chains,). A function
+        that mixes chains (``np.sum(x)``, ``x @ A``) samples something else:
+        the start of a run compares one batched call with per-chain calls at
+        the starting states and refuses a mismatch. Ignored with numeric
+        conditionals.
 
     Attributes
     ----------
-    conditionals, shift, shared_stream, grid_size
+    conditionals, shift, shared_stream, grid_size, vectorized
         Validated on assignment; a widget may change ``shift`` (or switch
         between modes) between transitions.
 
@@ -542,7 +553,7 @@ class Gibbs(Kernel):
        offset) is evaluated at all 81 offsets. A stop where the log-density is
        -inf (outside a truncation; nan counts as -inf) is refined to the edge
        by multisection (6 passes of 32 points, to ~8e-10 of its bracket);
-    2. evaluate ``grid_size // 8`` equispaced nodes across the bracket (one
+    2. evaluate ``grid_size // 16`` equispaced nodes across the bracket (one
        ``log_density`` call on an (n_chains * nodes, dim) batch), re-gridding
        onto the region within 25 nats of the maximum while that spans under a
        quarter of the grid;
@@ -559,16 +570,17 @@ class Gibbs(Kernel):
        density is integrated exactly; ``F`` and ``F^-1`` are then exact
        inverses of each other (to ~1e-15).
 
-    A conditional costs ``35 + grid_size // 8 + grid_size // 4`` evaluations
-    (227 for the default; 163 more for a chain whose bracket needs all the
-    offsets, ``grid_size // 8`` more per re-grid, 192 more per truncation
+    A conditional costs ``35 + grid_size // 16 + grid_size // 4`` evaluations
+    (195 for the default; 163 more for a chain whose bracket needs all the
+    offsets, ``grid_size // 16`` more per re-grid, 192 more per truncation
     edge); one more per chain and transition gives the new state's
-    log-density. (Before issue 13: ``163 + 2 * grid_size``, 5.2 times more.)
+    log-density. (Before issue 13: ``163 + 2 * grid_size``, 6 times more.)
 
     Accuracy, the largest CDF error against ``scipy.stats`` (measured; the
     tests check it): with the default 512 nodes, 5e-8 for a normal truncated
-    by -inf outside, 1.2e-6 for the same with declared bounds (logit scale),
-    2e-6 for gammas of shape 2.5 (-inf below 0, or declared bounds) and 0.7.
+    by -inf outside, 3e-6 for the same with declared bounds (logit scale),
+    2e-6 to 5e-6 for gammas of shape 2.5 (-inf below 0, or declared bounds)
+    and 0.7.
     With 128 nodes (32 evaluated): 9e-7 to 3e-4 for the same cases. Mass
     beyond the 25-nat cut-off (~1e-11) is dropped; a current value beyond it
     gets ``F = 0`` or ``1``.
@@ -599,13 +611,15 @@ class Gibbs(Kernel):
     shift = _Knob(_check_shift)
     shared_stream = _Knob(_check_flag)
     grid_size = _Knob(_check_grid_size)
+    vectorized = _Knob(_check_flag)
 
     def __init__(self, conditionals=None, shift=None, shared_stream=False, *,
-                 grid_size=DEFAULT_GRID_SIZE):
+                 grid_size=DEFAULT_GRID_SIZE, vectorized=False):
         self.conditionals = conditionals
         self.shift = shift
         self.shared_stream = shared_stream
         self.grid_size = grid_size
+        self.vectorized = vectorized
 
     # ---------------------------------------------------------------- state
     def prepare(self, target):
@@ -619,6 +633,8 @@ class Gibbs(Kernel):
 
     def init_extra(self, target, state, streams):
         """The driving uniforms ``u``, shape (n_chains, dim), drawn from the stream."""
+        if self.conditionals is not None and self.vectorized:
+            self._check_vectorized(target, target.to_user(state.position))
         if self.conditionals is not None:
             problems = self.check_conditionals(target, target.to_user(state.position[0]))
             if problems:
@@ -681,6 +697,55 @@ class Gibbs(Kernel):
             target.n_density, target.n_grad = counts  # a check is not sampling work
         return problems
 
+    def _check_vectorized(self, target, x):
+        """Refuse ``vectorized=True`` conditionals whose batched answers differ from per-chain ones.
+
+        ``x`` (n_chains, dim) on the user's scale: the starting states.
+        """
+        n = len(x)
+        q = np.linspace(0.2, 0.8, n) if n > 1 else np.array([0.3])
+        for i in range(target.dim):
+            with np.errstate(all="ignore"):
+                batch = self._batched_values(target, x, i, q)
+                single = np.array([[_scalar(d.ppf, q[k], "ppf", i, k, x[k]),
+                                    _scalar(d.cdf, x[k, i], "cdf", i, k, x[k])]
+                                   for k, d in enumerate(self._user_conditional(i, k, x[k])
+                                                         for k in range(n))]).T
+            same = np.isclose(batch, single, rtol=1e-10, atol=1e-300) | (
+                np.isnan(batch) & np.isnan(single))
+            if not same.all():
+                what, k = np.argwhere(~same)[0]
+                name = ("ppf", "cdf")[what]
+                raise ValueError(
+                    f"`conditionals` with vectorized=True: called for all chains at once (x of shape "
+                    f"(dim, n_chains)), coordinate {i}'s {name} gives {batch[what, k]!r} for chain {k}, "
+                    f"called with that chain alone {single[what, k]!r}. Does it mix chains (a sum "
+                    "over x, x @ A)? Write it with x[j] and elementwise operations, or pass "
+                    "vectorized=False"
+                )
+
+    def _batched_values(self, target, x, i, u):
+        """``(ppf(u), cdf(x[:, i]))`` (2, n_chains) from one ``conditionals(i, x.T)`` call."""
+        n = len(x)
+        dist = self._user_conditional(i, None, x.T, context=(
+            f"all {n} chains at once, x of shape {(x.shape[1], n)}: vectorized=True"))
+        out = np.empty((2, n))
+        for row, (what, arg) in enumerate((("ppf", u), ("cdf", x[:, i]))):
+            try:
+                v = np.asarray(getattr(dist, what)(arg), dtype=float)
+            except Exception as err:
+                raise RuntimeError(
+                    f"`conditionals({i}, x).{what}` raised {type(err).__name__}: {err} "
+                    f"(coordinate {i}, all {n} chains at once: vectorized=True)"
+                ) from err
+            if v.shape != (n,):
+                raise ValueError(
+                    f"`conditionals({i}, x).{what}` must return one value per chain, shape ({n},), "
+                    f"with vectorized=True; got shape {v.shape} (coordinate {i})"
+                )
+            out[row] = v
+        return out
+
     # ----------------------------------------------------------- transition
     def _transition(self, target, state, streams, record):
         n, dim = state.position.shape
@@ -740,48 +805,64 @@ class Gibbs(Kernel):
         return f_old
 
     def _user_step(self, target, x, i, u):
-        """Update coordinate ``i`` of ``x`` (user scale, in place); return F(old x_i).
-
-        ``conditionals`` is called once per chain. When every chain's answer is a frozen
-        scipy.stats distribution of one recognised family (``_BATCHED_FAMILIES``), the
-        ``ppf``/``cdf`` of all chains are one call of the family's vectorised methods with
-        the chains' parameters stacked: the same numbers as one call per chain (elementwise
-        arithmetic; the tests check it bit for bit) without scipy's per-call overhead.
-        """
+        """Update coordinate ``i`` of ``x`` (user scale, in place); return F(old x_i)."""
         lo, hi = target.bounds
         # open (0, 1): u = 0 happens with probability 2**-53 and would give ppf = -inf
         u = np.clip(u, np.nextafter(0.0, 1.0), np.nextafter(1.0, 0.0))
-        dists = [self._user_conditional(i, k, x[k]) for k in range(len(x))]
-        batch = _frozen_batch(dists, u, x[:, i])
-        if batch is not None and np.all(np.isfinite(batch[0])) and np.all(
-                (batch[1] >= 0.0) & (batch[1] <= 1.0)):
-            new, f_old = batch
-        else:  # one chain at a time, which also names the chain that went wrong
-            new, f_old = np.empty(len(x)), np.empty(len(x))
-            for k, dist in enumerate(dists):
-                new[k] = _scalar(dist.ppf, u[k], "ppf", i, k, x[k])
-                f_old[k] = _scalar(dist.cdf, x[k, i], "cdf", i, k, x[k])
-                if not np.isfinite(new[k]):
-                    raise ValueError(
-                        f"`conditionals({i}, x).ppf({u[k]!r})` returned {new[k]} for chain {k} at "
-                        f"x = {x[k]}; expected a finite value"
-                    )
-                if not 0.0 <= f_old[k] <= 1.0:
-                    raise ValueError(
-                        f"`conditionals({i}, x).cdf(x[{i}])` returned {f_old[k]} for chain {k} at "
-                        f"x = {x[k]}; expected a value in [0, 1]"
-                    )
+        if self.vectorized:
+            new, f_old = self._batched_values(target, x, i, u)
+            bad = np.flatnonzero(~np.isfinite(new) | ~((f_old >= 0.0) & (f_old <= 1.0)))
+            if len(bad):
+                k = int(bad[0])
+                raise ValueError(
+                    f"`conditionals({i}, x)` (vectorized=True) gave ppf {new[k]} and cdf {f_old[k]} "
+                    f"for chain {k} at x = {x[k]}; expected a finite value and a value in [0, 1]"
+                )
+        else:
+            new, f_old = self._per_chain_values(x, i, u)
         # a draw on a declared bound would map to an infinite unconstrained value
         x[:, i] = np.minimum(np.maximum(new, np.nextafter(lo[i], np.inf)), np.nextafter(hi[i], -np.inf))
         return f_old
 
-    def _user_conditional(self, i, k, x):
+    def _per_chain_values(self, x, i, u):
+        """``(ppf(u), cdf(x[:, i]))`` with ``conditionals`` called once per chain.
+
+        When every chain's answer is a frozen scipy.stats distribution of one recognised
+        family (``_BATCHED_FAMILIES``), the ``ppf``/``cdf`` of all chains are one call of
+        the family's vectorised methods with the chains' parameters stacked: the same
+        numbers as one call per chain (elementwise arithmetic; the tests check it bit for
+        bit) without scipy's per-call overhead.
+        """
+        dists = [self._user_conditional(i, k, x[k]) for k in range(len(x))]
+        batch = _frozen_batch(dists, u, x[:, i])
+        if batch is not None and np.all(np.isfinite(batch[0])) and np.all(
+                (batch[1] >= 0.0) & (batch[1] <= 1.0)):
+            return batch
+        # one chain at a time, which also names the chain that went wrong
+        new, f_old = np.empty(len(x)), np.empty(len(x))
+        for k, dist in enumerate(dists):
+            new[k] = _scalar(dist.ppf, u[k], "ppf", i, k, x[k])
+            f_old[k] = _scalar(dist.cdf, x[k, i], "cdf", i, k, x[k])
+            if not np.isfinite(new[k]):
+                raise ValueError(
+                    f"`conditionals({i}, x).ppf({u[k]!r})` returned {new[k]} for chain {k} at "
+                    f"x = {x[k]}; expected a finite value"
+                )
+            if not 0.0 <= f_old[k] <= 1.0:
+                raise ValueError(
+                    f"`conditionals({i}, x).cdf(x[{i}])` returned {f_old[k]} for chain {k} at "
+                    f"x = {x[k]}; expected a value in [0, 1]"
+                )
+        return new, f_old
+
+    def _user_conditional(self, i, k, x, context=None):
+        """``conditionals(i, x)`` for chain ``k`` (or the ``context`` of a batched call), checked."""
         try:
             dist = self.conditionals(i, x.copy())
         except Exception as err:
             raise RuntimeError(
                 f"`conditionals({i}, x)` raised {type(err).__name__}: {err} "
-                f"(coordinate {i}, chain {k}, x = {x})"
+                f"(coordinate {i}, {context or f'chain {k}, x = {x}'})"
             ) from err
         if not (callable(getattr(dist, "cdf", None)) and callable(getattr(dist, "ppf", None))):
             raise TypeError(
@@ -795,8 +876,11 @@ class Gibbs(Kernel):
         """JSON-friendly description; a user's ``conditionals`` is recorded by name only."""
         cond = self.conditionals
         name = None if cond is None else getattr(cond, "__qualname__", type(cond).__name__)
-        return {"kernel": "Gibbs", "shift": self.shift, "shared_stream": self.shared_stream,
-                "grid_size": self.grid_size, "conditionals": name}
+        out = {"kernel": "Gibbs", "shift": self.shift, "shared_stream": self.shared_stream,
+               "grid_size": self.grid_size, "conditionals": name}
+        if self.vectorized:  # only when set, so existing settings and reprs read as before
+            out["vectorized"] = True
+        return out
 
     @classmethod
     def from_settings(cls, settings, *, conditionals=None):
@@ -819,7 +903,7 @@ class Gibbs(Kernel):
         s = dict(settings)
         s.pop("kernel", None)
         recorded = s.pop("conditionals", None)
-        unknown = sorted(set(s) - {"shift", "shared_stream", "grid_size"})
+        unknown = sorted(set(s) - {"shift", "shared_stream", "grid_size", "vectorized"})
         if unknown:
             raise ValueError(f"`settings` has unknown Gibbs keys {unknown}")
         if recorded is not None and conditionals is None:
@@ -830,7 +914,7 @@ class Gibbs(Kernel):
                 UserWarning, stacklevel=2,
             )
         return cls(conditionals, shift=s.get("shift"), shared_stream=s.get("shared_stream", False),
-                   grid_size=s.get("grid_size", DEFAULT_GRID_SIZE))
+                   grid_size=s.get("grid_size", DEFAULT_GRID_SIZE), vectorized=s.get("vectorized", False))
 
 
 #: scipy.stats families whose frozen distributions are evaluated for all chains in one call.
