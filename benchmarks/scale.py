@@ -13,10 +13,13 @@ about 1 ms, computed
 
 and the speed-up of each over the serial pass (goal >= 1.6 with 2 workers on a
 2-core machine), with the CPU time this process spent meanwhile (with an executor:
-sending cells, summarising the returned runs and, for Dask, the scheduler). It also
-checks that every map holds the same numbers, cell for cell.
-Pools and the cluster are started, and their workers have imported phaseglass, before
-the clock starts (their start-up time is printed apart); the pilot run the map's
+sending cells, summarising the returned runs and, for Dask, the scheduler) and the CPU
+time its worker processes got (divided by the wall time: the cores they had; on an idle
+2-core machine close to 2, less when other processes compete). It also checks that
+every map holds the same numbers, cell for cell.
+The three ways take turns for ``--repeats`` rounds (default 2) and the best wall time of
+each is shown, with all of them. Pools and the cluster are started, and their workers
+have imported phaseglass, before the clock starts (their start-up time is printed apart); the pilot run the map's
 cells start from is computed once beforehand, so only the cells are timed. It is not
 a test and asserts nothing; other processes on the machine slow it down, so read the
 load average printed with it.
@@ -33,10 +36,12 @@ for _var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
 
 import argparse  # noqa: E402
 import concurrent.futures  # noqa: E402
+import contextlib  # noqa: E402
 import platform  # noqa: E402
 import time  # noqa: E402
 
 import numpy as np  # noqa: E402
+import psutil  # noqa: E402  (a dependency of dask.distributed)
 
 import phaseglass as pg  # noqa: E402
 from phaseglass.ui._shared import pilot  # noqa: E402
@@ -79,18 +84,34 @@ def _warm(_=None):
     return os.getpid()
 
 
+def _cpu_seconds(procs):
+    total = 0.0
+    for p in procs:
+        try:
+            c = p.cpu_times()
+            total += c.user + c.system
+        except psutil.Error:  # a process that has gone counts nothing
+            pass
+    return total
+
+
 def timed_map(target, settings, executor):
-    """Wall seconds of one pass over the cells, CPU seconds of this process meanwhile, the map."""
+    """Wall seconds of one pass over the cells, CPU seconds of this process and of its
+    child processes (the workers, their nannies) meanwhile, and the map."""
     m = TuningMap(target, executor=executor, autorun=False, **settings)
-    t, cpu = time.perf_counter(), time.process_time()
+    children = psutil.Process().children(recursive=True)
+    t, cpu, child = time.perf_counter(), time.process_time(), _cpu_seconds(children)
     m.compute(background=False)
-    return time.perf_counter() - t, time.process_time() - cpu, m
+    wall = time.perf_counter() - t
+    return wall, time.process_time() - cpu, _cpu_seconds(children) - child, m
 
 
 def main():
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--quick", action="store_true",
                         help="short smoke run (numbers meaningless)")
+    parser.add_argument("--repeats", type=int, default=2,
+                        help="rounds of the three ways (the best wall time of each is shown)")
     args = parser.parse_args()
     from dask.distributed import Client, LocalCluster
 
@@ -108,31 +129,44 @@ def main():
           f"{gradient_ms(target):.2f} ms; map: {n_cells} cells, {settings['n_chains']} chains x "
           f"{settings['burn_in'] + settings['n_draws']} transitions per cell\n")
 
-    serial_s, cpu, serial = timed_map(target, settings, None)
-    rows = [("serial (executor=None)", serial_s, cpu, serial, None)]
-
-    t = time.perf_counter()
-    with concurrent.futures.ProcessPoolExecutor(2) as pool:
+    with contextlib.ExitStack() as stack:
+        t = time.perf_counter()
+        pool = stack.enter_context(concurrent.futures.ProcessPoolExecutor(2))
         list(pool.map(_warm, range(4)))  # workers up, imports done
-        startup = time.perf_counter() - t
-        s, cpu, m = timed_map(target, settings, pool)
-    rows.append(("ProcessPoolExecutor(2)", s, cpu, m, startup))
-
-    t = time.perf_counter()
-    with LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1",
-                      dashboard_address=None) as cluster, Client(cluster) as client:
+        pool_startup = time.perf_counter() - t
+        t = time.perf_counter()
+        cluster = stack.enter_context(LocalCluster(
+            n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1",
+            dashboard_address=None))
+        client = stack.enter_context(Client(cluster))
         client.run(_warm)
-        startup = time.perf_counter() - t
-        s, cpu, m = timed_map(target, settings, client.get_executor())
-    rows.append(("Dask LocalCluster, 2 workers", s, cpu, m, startup))
+        dask_startup = time.perf_counter() - t
+        ways = [("serial (executor=None)", None, None),
+                ("ProcessPoolExecutor(2)", pool, pool_startup),
+                ("Dask LocalCluster, 2 workers", client.get_executor(), dask_startup)]
+        best, walls = {}, {name: [] for name, _, _ in ways}
+        for r in range(args.repeats):
+            # the order turns each round, so a burst of load elsewhere hits each way in turn
+            for name, executor, startup in ways[r % 3:] + ways[:r % 3]:
+                wall, cpu, workers, m = timed_map(target, settings, executor)
+                walls[name].append(wall)
+                if name not in best or wall < best[name][0]:
+                    best[name] = (wall, cpu, None if executor is None else workers, m, startup)
 
-    print("| cells computed on | wall time of the map | speed-up | CPU time of this process | "
-          "start-up (not timed) | same numbers |")
-    print("|---|---|---|---|---|---|")
-    for name, s, cpu, m, startup in rows:
+    serial_s, serial = best[ways[0][0]][0], best[ways[0][0]][3]
+    print(f"best of {args.repeats} rounds each (all walls: "
+          + "; ".join(f"{name.split(' (')[0].split(',')[0]} "
+                      + ", ".join(f"{w:.1f}" for w in ws) + " s" for name, ws in walls.items())
+          + ")\n")
+    print("| cells computed on | wall time of the map | speed-up | CPU here | CPU of the workers "
+          "(cores they got) | start-up (not timed) | same numbers |")
+    print("|---|---|---|---|---|---|---|")
+    for name, _, _ in ways:
+        s, cpu, workers, m, startup = best[name]
         same = all(np.array_equal(m.values_all[q], serial.values_all[q], equal_nan=True)
                    for q in serial.values_all)
-        print(f"| {name} | {s:.1f} s | {serial_s / s:.2f}x | {cpu:.1f} s | "
+        got = "-" if workers is None else f"{workers:.1f} s ({workers / s:.2f})"
+        print(f"| {name} | {s:.1f} s | {serial_s / s:.2f}x | {cpu:.1f} s | {got} | "
               f"{'-' if startup is None else f'{startup:.1f} s'} | {'yes' if same else 'NO'} |")
     print(f"\nload average after: {' '.join(f'{v:.2f}' for v in os.getloadavg())} "
           f"(goal: speed-up >= 1.6 with 2 workers on 2 cores; other processes lower it)")
