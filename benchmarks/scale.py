@@ -17,12 +17,13 @@ sending cells, summarising the returned runs and, for Dask, the scheduler) and t
 time its worker processes got (divided by the wall time: the cores they had; on an idle
 2-core machine close to 2, less when other processes compete). It also checks that
 every map holds the same numbers, cell for cell.
+
 The three ways take turns for ``--repeats`` rounds (default 2) and the best wall time of
 each is shown, with all of them. Pools and the cluster are started, and their workers
-have imported phaseglass, before the clock starts (their start-up time is printed apart); the pilot run the map's
-cells start from is computed once beforehand, so only the cells are timed. It is not
-a test and asserts nothing; other processes on the machine slow it down, so read the
-load average printed with it.
+have imported phaseglass, before the clock starts (their start-up time is printed
+apart); the pilot run the map's cells start from is computed once beforehand, so only
+the cells are timed. It is not a test and asserts nothing; other processes on the
+machine slow it down, so read the load average printed with it.
 
 BLAS runs single-threaded (here and in the workers): one chain's matrix-vector
 products are too small to gain from threads, and threads of two workers on two cores
