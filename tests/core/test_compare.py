@@ -204,3 +204,18 @@ def test_every_submission_is_distinct_so_cancelling_one_never_cancels_another():
     b = submit_packed(ex, blob, lambda t, x: t.log_density(np.array(x)), ([1.0, 0.0],))
     assert a.result() == b.result() == pytest.approx(-0.5 * 0.25)
     assert ex.args[0][:1] == ex.args[1][:1] and ex.args[0][2] != ex.args[1][2]
+
+
+def test_ctrl_c_stops_the_whole_comparison_not_only_the_running_cell():
+    calls = []
+
+    def log_density(x):
+        calls.append(1)
+        if len(calls) == 300:
+            raise KeyboardInterrupt  # what Ctrl-C raises in the user's code
+        return -0.5 * float(x @ x)
+
+    target = pg.Target(log_density, lambda x: -x, dim=2)
+    with pytest.raises(KeyboardInterrupt):
+        pg.compare_kernels(target, [pg.RandomWalk(1.0), pg.RandomWalk(0.5)], **RUN)
+    assert len(calls) == 300  # no later cell started

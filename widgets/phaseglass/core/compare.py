@@ -14,6 +14,7 @@ to another process; ``TuningMap`` uses them too.
 
 import pickle
 import uuid
+import warnings
 from dataclasses import dataclass
 
 import numpy as np
@@ -203,7 +204,12 @@ def _measure(target, kernel, entropy, spawn_key, n_draws, n_chains, options, ini
 
     # a fresh SeedSequence per cell: spawning from a shared one would advance it
     seed = np.random.SeedSequence(entropy, spawn_key=spawn_key)
-    run = sample(target, kernel, initial, n_draws, n_chains=n_chains, seed=seed, **options)
+    with warnings.catch_warnings():
+        # sample() turns Ctrl-C into a shortened Run and a warning; a comparison stops instead
+        warnings.filterwarnings("ignore", message="sampling interrupted")
+        run = sample(target, kernel, initial, n_draws, n_chains=n_chains, seed=seed, **options)
+    if run.stopped == "interrupted":
+        raise KeyboardInterrupt
     knob = run.kernel.tuned_knob
     r = np.atleast_1d(rhat(run.draws)) if run.n_draws >= 8 else np.array([np.nan])
     return {
