@@ -879,7 +879,8 @@ class TuningMap(View):
         if failed:
             done += f" ({failed} failed: see the status line)"
         if running:
-            done += ", computing in the background"
+            done += (", computing in the background" if self.executor is None else
+                     f", computing on {html.escape(type(self.executor).__name__)}'s workers")
         if best is None:
             found = f"best for {html.escape(q)}: none yet"
         else:
