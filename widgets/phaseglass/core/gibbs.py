@@ -229,45 +229,46 @@ def _graded_ends(nodes):
                            nodes[:, -1:] - h_hi * halves[:, ::-1], nodes[:, -1:]], axis=1)
 
 
-def _refined(nodes, logp, size):
-    """``size`` nodes along the polygon of ``nodes`` (n, m), with cubic log-densities.
+def _refined(nodes, logp, pieces):
+    """Split every segment of ``nodes`` (n, m) into ``pieces``; log-densities by local cubics.
 
-    The new nodes split each segment evenly (about ``(size - 1) / (m - 1)`` pieces); the
-    log-density there is the cubic through the four nearest evaluated nodes (error
-    ``~h**4``, exact for a Gaussian), or the straight line between the segment's ends
-    where one of the four is not finite (-inf at both ends' sides of a hole stays -inf).
+    Returns nodes and log-densities (n, (m - 1) * pieces + 1). The log-density at a new
+    node is the mean of the two cubics through four neighbouring evaluated nodes (nodes
+    ``j-1..j+2`` and ``j..j+3`` for segment ``j``, shifted inwards at the ends; error
+    ``~h**4``, exact for a Gaussian), or the straight line between the segment's ends where
+    those two disagree by more than their correction to the line (the log-density is not
+    smooth at this spacing: a power-law edge, a kink) or a node is not finite (-inf at an
+    end of the segment stays -inf).
     """
     n, m = nodes.shape
-    if size == m:
-        return nodes, logp
-    pos = np.linspace(0.0, m - 1.0, size)
-    j = np.minimum(pos.astype(int), m - 2)  # the segment of each new node
-    s = pos - j
-    x = nodes[:, j] + s * (nodes[:, j + 1] - nodes[:, j])
+    h = np.diff(nodes, axis=1)
+    t = h[:, :, None] * (np.arange(pieces) / pieces)  # (n, m - 1, pieces): offsets in the segment
     finite = np.isfinite(logp)
     y = np.where(finite, logp, 0.0)
     # Newton's divided differences of every run of four nodes k..k+3
-    d1 = np.diff(y, axis=1) / np.diff(nodes, axis=1)
+    d1 = np.diff(y, axis=1) / h
     d2 = np.diff(d1, axis=1) / (nodes[:, 2:] - nodes[:, :-2])
     d3 = np.diff(d2, axis=1) / (nodes[:, 3:] - nodes[:, :-3])
     ok = finite[:, :-3] & finite[:, 1:-2] & finite[:, 2:-1] & finite[:, 3:]
+    seg = np.arange(m - 1)
+    start = nodes[:, :-1]
 
-    def cubic(k):  # the cubic through nodes k..k+3, at x
-        return y[:, k] + (x - nodes[:, k]) * (
-            d1[:, k] + (x - nodes[:, k + 1]) * (d2[:, k] + (x - nodes[:, k + 2]) * d3[:, k]))
+    def cubic(k):  # the cubic through nodes k..k+3 (k per segment), on each segment's pieces
+        def dx(l):
+            return (start - nodes[:, k + l])[:, :, None] + t
+        return y[:, k, None] + dx(0) * (d1[:, k, None] + dx(1) * (
+            d2[:, k, None] + dx(2) * d3[:, k, None]))
 
-    # the two runs of four nodes around segment j (shifted inwards at the ends); where they
-    # disagree the log-density is not smooth at this spacing (a power-law edge, a kink):
-    # the straight line is safer there
-    left, right = np.clip(j - 1, 0, m - 4), np.clip(j, 0, m - 4)
+    left, right = np.clip(seg - 1, 0, m - 4), np.clip(seg, 0, m - 4)
+    la, lb = logp[:, :-1, None], logp[:, 1:, None]
     with np.errstate(all="ignore"):
         c_left, c_right = cubic(left), cubic(right)
-        la, lb = logp[:, j], logp[:, j + 1]
-        line = np.where(np.isfinite(la) & np.isfinite(lb), la + s * (lb - la), -np.inf)
+        line = np.where(np.isfinite(la) & np.isfinite(lb), la + (lb - la) * (t / h[:, :, None]), -np.inf)
         mid = 0.5 * (c_left + c_right)
-        smooth = ok[:, left] & ok[:, right] & (np.abs(c_left - c_right) <= np.abs(mid - line))
+        smooth = (ok[:, left] & ok[:, right])[:, :, None] & (np.abs(c_left - c_right) <= np.abs(mid - line))
     out = np.where(smooth, mid, line)
-    return x, out
+    return (np.concatenate([(start[:, :, None] + t).reshape(n, -1), nodes[:, -1:]], axis=1),
+            np.concatenate([out.reshape(n, -1), logp[:, -1:]], axis=1))
 
 
 class GridConditional:
@@ -282,13 +283,14 @@ class GridConditional:
     Attributes
     ----------
     coordinate : int
-    nodes : ndarray, shape (n_chains, grid_size)
+    nodes : ndarray, shape (n_chains, n_nodes)
+        ``n_nodes`` is ``4 * (grid_size // 4) - 3`` from ``from_target`` (509 for 512).
         Grid on the sampler's scale (increasing in each row).
-    log_density : ndarray, shape (n_chains, grid_size)
+    log_density : ndarray, shape (n_chains, n_nodes)
         Log-density at the nodes, shifted so each row's maximum is 0 (from
         ``from_target``: evaluated at a quarter of the nodes, interpolated at
         the others).
-    cum : ndarray, shape (n_chains, grid_size)
+    cum : ndarray, shape (n_chains, n_nodes)
         The approximate CDF at the nodes (0 at the first node, 1 at the last).
     """
 
@@ -355,10 +357,11 @@ class GridConditional:
                     "target a proper (normalisable) distribution?"
                 )
             # +inf only matters inside the bracket (far offsets may overflow harmlessly)
-            inside = np.arange(J)[None, :] <= j[:, None]
-            pts = np.repeat(position[:, None, :], J, axis=1)
-            pts[:, :, i] = z0[:, None] + sign * offsets
-            _no_inf(target, np.where(inside, side_lp, 0.0), pts, i)
+            inside_lp = np.where(np.arange(J)[None, :] <= j[:, None], side_lp, 0.0)
+            if np.any(inside_lp == np.inf):
+                pts = np.repeat(position[:, None, :], J, axis=1)
+                pts[:, :, i] = z0[:, None] + sign * offsets
+                _no_inf(target, inside_lp, pts, i)
             ends.append(offsets[rows, j])
             # a -inf stop is a truncation edge between the previous offset and this one
             e = np.flatnonzero(~np.isfinite(side_lp[rows, j]))
@@ -395,10 +398,10 @@ class GridConditional:
             active = active[narrow]
             lo[active], hi[active] = nd[r, a[narrow]], nd[r, b[narrow]]
         # 3. place grid_size // 4 nodes where interpolation error lives, evaluate there, and
-        #    interpolate (cubic) to grid_size nodes
+        #    split every segment in four, log-densities from local cubics
         nodes = _graded_ends(_adapted_nodes(nodes, logp, max(16, grid_size // _REFINE) - 2 * _GRADED))
         logp = _evaluate(target, position, i, nodes)
-        nodes, logp = _refined(nodes, logp, grid_size)
+        nodes, logp = _refined(nodes, logp, _REFINE)
         return cls(i, nodes, logp)
 
     def cdf(self, z):
@@ -559,13 +562,14 @@ class Gibbs(Kernel):
        quarter of the grid;
     3. place ``grid_size // 4`` nodes where interpolation error lives (node
        density ``~ (p |(log p)''|)**(1/3)`` for 80% of them, even spacing for
-       the rest; 3 more in each end segment, halving the distance to the end,
+       the rest, then 3 in each end segment, halving the distance to the end,
        for power-law edges) and evaluate there;
-    4. interpolate the log-density to ``grid_size`` nodes, each evaluated
-       segment split evenly, by the cubics through the four nearest evaluated
-       nodes (the mean of the two such runs; the straight line where they
-       disagree by more than the cubic's correction to the line, i.e. where
-       the log-density is not smooth at this spacing); between those nodes
+    4. split each segment between evaluated nodes in four (``4 * (grid_size
+       // 4) - 3`` nodes in all) and interpolate the log-density there by the
+       cubics through the four nearest evaluated nodes (the mean of the two
+       such runs; the straight line where they disagree by more than the
+       cubic's correction to the line, i.e. where the log-density is not
+       smooth at this spacing); between those nodes
        the log-density is linear and the resulting piecewise-exponential
        density is integrated exactly; ``F`` and ``F^-1`` are then exact
        inverses of each other (to ~1e-15).
