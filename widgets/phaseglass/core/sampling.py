@@ -260,29 +260,24 @@ class Sampler:
         draw = self._records.count
         rows = np.flatnonzero(info["divergent"])
         if traj is None and start_momentum is not None and replay_steps is not None:
-            counts = (self.target.n_density, self.target.n_grad)
             for chain in rows:
                 q, p = start[chain:chain + 1], start_momentum[chain:chain + 1]
                 steps = max(int(replay_steps[chain]), 1)
                 eps = info["step_size"][chain:chain + 1]
-                with np.errstate(all="ignore"):
+                with self.target.uncounted(), np.errstate(all="ignore"):  # replays are not sampling
                     logp, grad = self.target._value_and_grad_rows(q)
                     res = integrate(self.target, q, p, logp, grad, eps, steps, self.kernel.metric,
                                     self.kernel.max_energy_error, record=True)
                 one = trajectory_from(res, eps, steps, self.kernel.max_energy_error, True)
                 self.divergences.append((int(chain), draw, one))
-            self.target.n_density, self.target.n_grad = counts
             return
         if traj is None and start_momentum is not None:
-            # replay without counting: a replay is not sampling work
-            counts = (self.target.n_density, self.target.n_grad)
             q, p = start[rows], start_momentum[rows]
-            with np.errstate(all="ignore"):
-                logp, grad = self.target._value_and_grad_rows(q)
             eps = info["step_size"][rows]
-            res = integrate(self.target, q, p, logp, grad, eps, self.kernel.n_steps,
-                            self.kernel.metric, self.kernel.max_energy_error, record=True)
-            self.target.n_density, self.target.n_grad = counts
+            with self.target.uncounted(), np.errstate(all="ignore"):  # a replay is not sampling work
+                logp, grad = self.target._value_and_grad_rows(q)
+                res = integrate(self.target, q, p, logp, grad, eps, self.kernel.n_steps,
+                                self.kernel.metric, self.kernel.max_energy_error, record=True)
             traj = trajectory_from(res, eps, self.kernel.n_steps, self.kernel.max_energy_error, False)
             rows_in_traj = range(len(rows))
         elif traj is not None:
