@@ -3,7 +3,7 @@ test_notebooks_in_browser.py; conftest.py loads this module as ``phaseglass_brow
 
 Every scenario runs its notebook top to bottom and checks every view on the page
 (``check_views``, see harness.ViewRecord); ``view_names`` lists the views in notebook order,
-and the number of views found must match it. All five copy the whole example_notebooks folder, so they share one Jupyter server
+and the number of views found must match it. All copy the whole example_notebooks folder, so they share one Jupyter server
 (conftest.py keys servers by folder). A scenario's ``name`` identifies it: conftest.py
 runs each (name, ui) once per session and hands the same result to every test that asks.
 """
@@ -30,7 +30,7 @@ TOUR = Scenario(
         ButtonClick(button_class="pg-step", canvas_class="pg-canvas", canvas_index=1,
                     text_classes=("pg-chain-readout",), clicks=2, label="chain-step"),
     ),
-    copy_whole_folder=True,  # one server for all five notebooks
+    copy_whole_folder=True,  # one server for all the notebooks
     run_timeout_s=150.0,
     check_views=True,
     view_names=("TrajectoryView", "ChainView"),
@@ -39,7 +39,7 @@ TOUR = Scenario(
 DIVERGENCES = Scenario(
     name="divergences",
     notebook=NOTEBOOKS / "divergences.ipynb",
-    copy_whole_folder=True,  # one server for all five notebooks
+    copy_whole_folder=True,  # one server for all the notebooks
     run_timeout_s=240.0,  # two tuning maps and ~10 short sampling runs (~35 s headless)
     check_views=True,
     view_names=("DivergenceView-centred", "TuningMap-centred", "TuningMap-noncentred",
@@ -49,7 +49,7 @@ DIVERGENCES = Scenario(
 PERSISTENT_VS_HMC = Scenario(
     name="persistent_vs_hmc",
     notebook=NOTEBOOKS / "persistent_vs_hmc.ipynb",
-    copy_whole_folder=True,  # one server for all five notebooks
+    copy_whole_folder=True,  # one server for all the notebooks
     run_timeout_s=300.0,  # 18 sampling runs + two tuning maps (~65 s headless)
     check_views=True,
     view_names=("ChainView", "TuningMap-hmc", "TuningMap-persistent"),
@@ -58,7 +58,7 @@ PERSISTENT_VS_HMC = Scenario(
 SHIFT_GIBBS = Scenario(
     name="shift_gibbs",
     notebook=NOTEBOOKS / "shift_gibbs.ipynb",
-    copy_whole_folder=True,  # one server for all five notebooks
+    copy_whole_folder=True,  # one server for all the notebooks
     run_timeout_s=240.0,  # ~30 s headless
     check_views=True,
     view_names=("ShiftGibbsView-golden", "ShiftGibbsView-stuck", "ShiftGibbsView-ordinary",
@@ -68,13 +68,22 @@ SHIFT_GIBBS = Scenario(
 YOUR_MODEL = Scenario(
     name="your_model",
     notebook=NOTEBOOKS / "your_model.ipynb",
-    copy_whole_folder=True,  # one server for all five notebooks
+    copy_whole_folder=True,  # one server for all the notebooks
     run_timeout_s=240.0,  # ~30 s headless (report and GIF writing)
     check_views=True,
     view_names=("TrajectoryView", "ChainView"),
 )
 
-ALL = (TOUR, DIVERGENCES, PERSISTENT_VS_HMC, SHIFT_GIBBS, YOUR_MODEL)
+MANY_PARAMETERS = Scenario(
+    name="many_parameters",
+    notebook=NOTEBOOKS / "many_parameters.ipynb",
+    copy_whole_folder=True,  # one server for all the notebooks
+    run_timeout_s=240.0,  # two 50-parameter runs (~20 s headless)
+    check_views=True,
+    view_names=("DivergenceView-50-parameters",),
+)
+
+ALL = (TOUR, DIVERGENCES, PERSISTENT_VS_HMC, SHIFT_GIBBS, YOUR_MODEL, MANY_PARAMETERS)
 
 
 def run_budget_s(scenario: Scenario) -> float:

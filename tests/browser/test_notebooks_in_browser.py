@@ -1,7 +1,7 @@
 """Every example notebook, top to bottom, in a real browser (issue 9).
 
 JupyterLab in a 1280 x 1000 window with the file browser open (an output column of about
-800 px) for all five notebooks; Notebook 7 for the tour and the divergences notebook. After
+800 px) for every example notebook; Notebook 7 for the tour and the divergences notebook. After
 all cells ran, every view on the page (``.pg-view``) is checked by the harness
 (``_Run.check_views``; thresholds in harness.py):
 
