@@ -141,3 +141,16 @@ def test_summary_with_many_parameters_lists_the_worst_first():
     assert html_text.count("<table>") == 2 and html_text.index("x[17]") < html_text.index("x[0]")
     few = str(invented_mixing_run(12).summary())
     assert "Worst-mixing" not in few and few.splitlines()[1].split()[0] == "x[0]"
+
+
+def test_average_ranks_match_scipy_rankdata_with_ties():
+    from phaseglass.core.triage import _average_ranks
+
+    rng = np.random.default_rng(5)
+    x = np.round(rng.normal(size=(57, 4)), 1)  # rounding makes many ties
+    ranks, ties = _average_ranks(x)
+    # reference: scipy.stats.rankdata(method="average") column by column
+    np.testing.assert_array_equal(ranks, stats.rankdata(x, axis=0))
+    for k in range(4):
+        _, counts = np.unique(x[:, k], return_counts=True)
+        assert ties[k] == np.sum(counts.astype(float) ** 3 - counts)

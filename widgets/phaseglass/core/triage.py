@@ -6,6 +6,8 @@ divergent transitions with all the other draws, on the sampler's
 rejected, so the draw it records is its starting point.
 """
 
+import math
+
 import numpy as np
 
 __all__ = ["DivergenceRanking", "divergence_ranking"]
@@ -53,7 +55,7 @@ class DivergenceRanking:
     Examples
     --------
     >>> import phaseglass as pg
-    >>> run = pg.sample(pg.demos.orchards("centred"), pg.HMC(0.4, 8), n_draws=300,
+    >>> run = pg.sample(pg.demos.apiaries("centred", n_groups=12), pg.HMC(0.1, 8), n_draws=300,
     ...                 n_chains=2, warmup=0, seed=1)
     >>> ranking = pg.divergence_ranking(run)
     >>> ranking.coordinates[0]
@@ -166,6 +168,24 @@ def divergence_ranking(run, *, max_pairs=50):
     return DivergenceRanking(run.names, n1, n2, u, zs, p, max_pairs=int(max_pairs))
 
 
+def _average_ranks(x):
+    """Column-wise ranks 1..n of ``x`` (n, dim), ties sharing their average rank,
+    and each column's tie term sum(t**3 - t) over groups of t equal values."""
+    n, dim = x.shape
+    order = np.argsort(x, axis=0, kind="mergesort")
+    xs = np.take_along_axis(x, order, axis=0)
+    ranks = np.empty((n, dim))
+    ties = np.zeros(dim)
+    for k in range(dim):
+        # start of each run of equal values in the sorted column
+        starts = np.flatnonzero(np.r_[True, xs[1:, k] != xs[:-1, k]])
+        counts = np.diff(np.r_[starts, n])
+        average = starts + (counts + 1) / 2.0  # ranks start+1 .. start+count, averaged
+        ranks[order[:, k], k] = np.repeat(average, counts)
+        ties[k] = np.sum(counts.astype(float) ** 3 - counts)
+    return ranks, ties
+
+
 def mann_whitney(a, b):
     """Column-wise Mann-Whitney U of ``a`` against ``b``, its z-score and two-sided p-value.
 
@@ -173,21 +193,16 @@ def mann_whitney(a, b):
     one half). z uses the tie-corrected null variance, no continuity
     correction. Returns three arrays of shape (dim,).
     """
-    from scipy import special, stats  # on first use: importing scipy.stats is slow (issue 13)
-
     a = np.atleast_2d(np.asarray(a, dtype=float).T).T
     b = np.atleast_2d(np.asarray(b, dtype=float).T).T
     n1, n2 = a.shape[0], b.shape[0]
     n = n1 + n2
     pooled = np.concatenate([a, b], axis=0)
-    ranks = stats.rankdata(pooled, axis=0)
+    ranks, ties = _average_ranks(pooled)
     u = ranks[:n1].sum(axis=0) - n1 * (n1 + 1) / 2.0
-    ties = np.empty(pooled.shape[1])
-    for k in range(pooled.shape[1]):
-        _, counts = np.unique(pooled[:, k], return_counts=True)
-        ties[k] = np.sum(counts.astype(float) ** 3 - counts)
     var = n1 * n2 / 12.0 * ((n + 1) - ties / (n * (n - 1))) if n > 1 else np.zeros_like(u)
     with np.errstate(invalid="ignore", divide="ignore"):
         zs = np.where(var > 0, (u - n1 * n2 / 2.0) / np.sqrt(np.where(var > 0, var, 1.0)), 0.0)
-    p = special.erfc(np.abs(zs) / np.sqrt(2.0))
+    # two-sided normal tail; math.erfc keeps scipy out of the first view's start-up
+    p = np.array([math.erfc(abs(z) / math.sqrt(2.0)) for z in np.ravel(zs)]).reshape(np.shape(zs))
     return u, zs, p
