@@ -236,3 +236,37 @@ def test_chain_view_settings_keep_the_runs_mass_matrix():
     np.testing.assert_array_equal(restored.kernel.metric.inverse_mass,
                                   run.kernel.metric.inverse_mass)
     assert restored.settings == view.settings
+
+
+# ---------------------------------------------------------------- ShiftGibbsView
+
+def test_shift_gibbs_view_from_a_gibbs_run_keeps_conditionals_shift_and_starts_among_its_draws():
+    target = pg.demos.correlated_gaussian(correlation=0.6)
+
+    def conditionals(i, x):
+        # exact normal conditionals of the unit-variance bivariate normal with rho = 0.6
+        # (the standard formula: mean rho * x_other, variance 1 - rho**2)
+        import scipy.stats
+        return scipy.stats.norm(0.6 * x[1 - i], np.sqrt(1 - 0.36))
+
+    run = pg.sample(target, pg.Gibbs(conditionals, shift=0.25), n_draws=60, n_chains=3, warmup=0,
+                    seed=2)
+    view = pg.ShiftGibbsView.from_run(run, n_chains=3)
+    assert view.target is target and view.kernel.conditionals is conditionals
+    assert view.shift == 0.25 and not view.random_shift and not view.ordinary
+    # every start is one of the run's draws
+    starts = view.sampler.state.position
+    pool = run.unconstrained.reshape(-1, 2)
+    assert all(np.any(np.all(np.isclose(pool, s), axis=1)) for s in starts)
+    ordinary = pg.ShiftGibbsView.from_run(
+        pg.sample(target, pg.Gibbs(conditionals), n_draws=10, n_chains=2, warmup=0, seed=1))
+    assert ordinary.ordinary
+    with pytest.raises(ValueError, match="`starts_from` must be draws shaped"):
+        pg.ShiftGibbsView(target, starts_from=np.zeros((5, 3)))
+
+
+def test_shift_gibbs_view_from_an_hmc_run_uses_numeric_conditionals(tuned_run):
+    view = pg.ShiftGibbsView.from_run(tuned_run, grid_size=32)
+    assert view.kernel.conditionals is None and view.target is tuned_run.target
+    lo, hi = tuned_run.unconstrained.min(axis=(0, 1)), tuned_run.unconstrained.max(axis=(0, 1))
+    assert np.all((view.sampler.state.position >= lo) & (view.sampler.state.position <= hi))

@@ -116,6 +116,9 @@ class ShiftGibbsView(View):
         Sweeps drawn as paths (0: every kept draw).
     grid_size : int
         Nodes of numeric conditionals (ignored with ``conditionals``).
+    starts_from : array_like, shape (n, dim), optional
+        Draws (user's scale) the chains' starts are spread over, e.g. an
+        earlier run's; default a short ordinary-Gibbs pilot run.
 
     Attributes
     ----------
@@ -180,8 +183,15 @@ class ShiftGibbsView(View):
 
     def __init__(self, target, conditionals=None, *, n_chains=4, shift=0.1, random_shift=False,
                  ordinary=False, seed=0, coords=(0, 1), capacity=2000, trail=30,
-                 grid_size=DEFAULT_GRID_SIZE):
+                 grid_size=DEFAULT_GRID_SIZE, starts_from=None):
         check_target(target, min_dim=2)
+        pool = None
+        if starts_from is not None:
+            pool = np.asarray(starts_from, dtype=float)
+            if pool.ndim != 2 or pool.shape[1] != target.dim or len(pool) < 2:
+                raise ValueError(f"`starts_from` must be draws shaped (n, dim) = (n >= 2, "
+                                 f"{target.dim}), got shape {pool.shape}")
+            pool = target.from_user(pool[np.all(np.isfinite(pool), axis=1)])
         if isinstance(capacity, bool) or not isinstance(capacity, (int, np.integer)) or capacity < 2:
             raise ValueError(f"`capacity` must be an int >= 2, got {capacity!r}")
         self.target = target
@@ -206,7 +216,7 @@ class ShiftGibbsView(View):
             self.random_shift = random_shift
             self.ordinary = ordinary
             self.trail = trail
-        self._pilot = self._pilot_draws()
+        self._pilot = self._pilot_draws() if pool is None else pool
         self._sync_kernel()
         self._build_controls()
         self._new_sampler()
@@ -235,6 +245,29 @@ class ShiftGibbsView(View):
     def _sync_kernel(self):
         self.kernel.shift = (None if self.ordinary else
                              "random" if self.random_shift else float(self.shift))
+
+    @classmethod
+    def from_run(cls, run, **kwargs):
+        """Open on a Run: its target, its Gibbs conditionals and shift, starts spread over its draws.
+
+        A run of another kernel (e.g. HMC) gives the target and the starts; the
+        conditionals are then numeric. Any argument of ShiftGibbsView may be
+        given and wins over the run's values.
+        """
+        from .trajectory_view import run_parts
+
+        target, kernel = run_parts(run, needs_step_size=False)
+        args = {"starts_from": np.asarray(run.draws, dtype=float).reshape(-1, target.dim)}
+        if isinstance(kernel, Gibbs):
+            args.update(conditionals=kernel.conditionals, grid_size=kernel.grid_size)
+            if kernel.shift is None:
+                args["ordinary"] = True
+            elif isinstance(kernel.shift, str):
+                args["random_shift"] = True
+            else:
+                args["shift"] = float(kernel.shift)
+        args.update(kwargs)
+        return cls(target, **args)
 
     def _pilot_draws(self):
         """Draws (m, dim) of a short ordinary-Gibbs pilot (independent streams), sampler's scale."""
