@@ -20,7 +20,8 @@ import scipy.stats
 import phaseglass as pg
 from phaseglass.core.diagnostics import mcse, rhat
 from phaseglass.core.gibbs import GridConditional
-from phaseglass.core.kernels import ChainState, kernel_from_settings
+from phaseglass.core.kernels import ChainState
+from phaseglass.core.registry import kernel_from_settings
 from phaseglass.core.streams import Streams
 
 # ------------------------------------------------------------------------------ the target

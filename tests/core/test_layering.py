@@ -86,3 +86,80 @@ def test_widget_names_are_listed_but_resolved_lazily(name):
 
     assert name in phaseglass.__all__
     assert name not in vars(phaseglass)  # resolved by module __getattr__ on first use
+
+
+# ----------------------------------------------------------------------------------
+# Static checks on the source: which package imports which, and no cycles in the core
+
+import ast  # noqa: E402
+import pathlib  # noqa: E402
+
+_PACKAGE = pathlib.Path(__file__).resolve().parents[2] / "widgets" / "phaseglass"
+
+
+def _imports(path):
+    """Absolute dotted names of every module ``path`` imports (function-level imports too)."""
+    module = ".".join(path.relative_to(_PACKAGE.parent).with_suffix("").parts)
+    package = module.rsplit(".", 1)[0] if path.name != "__init__.py" else module[:-len(".__init__")]
+    found = set()
+    for node in ast.walk(ast.parse(path.read_text())):
+        if isinstance(node, ast.Import):
+            found.update(a.name for a in node.names)
+        elif isinstance(node, ast.ImportFrom):
+            if node.level:
+                base = package.split(".")
+                base = base[:len(base) - node.level + 1]
+                stem = ".".join(base + ([node.module] if node.module else []))
+            else:
+                stem = node.module
+            found.add(stem)
+            found.update(f"{stem}.{a.name}" for a in node.names)
+    return found
+
+
+def _layer_imports(layer):
+    return {p.name: _imports(p) for p in sorted((_PACKAGE / layer).glob("*.py"))}
+
+
+@pytest.mark.parametrize("layer, forbidden", [
+    ("core", ("phaseglass.draw", "phaseglass.ui", "phaseglass.report")),
+    ("draw", ("phaseglass.ui", "phaseglass.report")),
+])
+def test_lower_layers_never_import_higher_ones(layer, forbidden):
+    for name, imported in _layer_imports(layer).items():
+        bad = sorted(m for m in imported if m.startswith(forbidden))
+        assert not bad, f"{layer}/{name} imports {bad}"
+
+
+def test_the_static_check_sees_relative_imports():
+    # the check above is not blind: ui/chain_view.py imports draw and core relatively
+    seen = _imports(_PACKAGE / "ui" / "chain_view.py")
+    assert any(m.startswith("phaseglass.draw") for m in seen)
+    assert any(m.startswith("phaseglass.core") for m in seen)
+
+
+def test_core_modules_import_no_cycle():
+    # issue 12: kernels.py imported gibbs.py inside kernel_from_settings while gibbs.py
+    # imported kernels.py; the registry now holds kernel_from_settings
+    graph = {}
+    for name, imported in _layer_imports("core").items():
+        if name == "__init__.py":
+            continue
+        mod = "phaseglass.core." + name[:-3]
+        graph[mod] = {m for m in imported if m.startswith("phaseglass.core.")
+                      and m.count(".") == 2 and m != mod and m != "phaseglass.core.__init__"}
+    graph = {m: {d for d in deps if d in graph} for m, deps in graph.items()}
+    state = {}
+
+    def visit(m, path):
+        state[m] = "open"
+        for d in graph[m]:
+            assert state.get(d) != "open", "import cycle: " + " -> ".join(path + [m, d])
+            if d not in state:
+                visit(d, path + [m])
+        state[m] = "done"
+
+    for m in graph:
+        if m not in state:
+            visit(m, [])
+    assert "phaseglass.core.gibbs" in graph["phaseglass.core.registry"]

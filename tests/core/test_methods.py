@@ -12,6 +12,7 @@ import scipy.integrate
 import scipy.stats
 
 import phaseglass as pg
+from phaseglass.core.registry import KERNEL_KINDS, kernel_kind
 
 # A 3-D Gaussian with strong correlation and scales differing by 4x: every kernel
 # must reproduce its moments.
@@ -42,7 +43,8 @@ def acceptance_runs(accepted):
 # ----------------------------------------------------------------------------------
 # Invariance of the target
 
-KERNELS = {
+#: Kernel configurations checked for invariance (several per registry kind).
+CONFIGURATIONS = {
     "hmc": lambda: pg.HMC(0.3, 8),
     "partial-1step-fresh": lambda: pg.PartialRefreshHMC(0.3, 1, persistence=0.9),
     "partial-1step-drifting": lambda: pg.PartialRefreshHMC(
@@ -57,11 +59,11 @@ KERNELS = {
 }
 
 
-@pytest.fixture(scope="module", params=sorted(KERNELS))
+@pytest.fixture(scope="module", params=sorted(CONFIGURATIONS))
 def invariance_run(request, gaussian):
     n_chains = 8
     n_draws = 6000 if request.param.startswith("randomwalk") else 3000
-    run = pg.sample(gaussian, KERNELS[request.param](), exact_start(gaussian, n_chains, 4),
+    run = pg.sample(gaussian, CONFIGURATIONS[request.param](), exact_start(gaussian, n_chains, 4),
                     n_draws=n_draws, n_chains=n_chains, seed=4, warmup=0)
     return request.param, run
 
@@ -405,6 +407,35 @@ def test_kernel_from_settings_round_trips(kernel, gaussian):
     a = pg.sample(gaussian, kernel, np.zeros(3), n_draws=50, n_chains=2, seed=1, warmup=0)
     b = pg.sample(gaussian, rebuilt, np.zeros(3), n_draws=50, n_chains=2, seed=1, warmup=0)
     np.testing.assert_array_equal(a.draws, b.draws)
+
+
+def test_invariance_configurations_cover_every_fixed_length_kind():
+    # the kinds the views offer besides NUTS and Gibbs (which have their own invariance tests)
+    covered = {kernel_kind(make()).short for make in CONFIGURATIONS.values()}
+    assert covered == {"hmc", "partial", "walk"}
+
+
+@pytest.mark.parametrize("entry", KERNEL_KINDS, ids=lambda e: e.short)
+def test_registry_entry_matches_its_class(entry):
+    assert entry.name == entry.cls.__name__
+    assert kernel_kind(entry.short) is kernel_kind(entry.name) is kernel_kind(entry.cls) is entry
+    assert entry.target_accept == entry.cls.default_target_accept
+    assert set(entry.labels) == set(entry.knobs)
+    if entry.short != "gibbs":
+        assert entry.tuned_knob in entry.knobs  # warm-up tunes a knob the entry names
+
+
+def test_registry_names_a_random_walk_scale_a_scale():
+    entry = kernel_kind(pg.RandomWalk(0.5))
+    assert entry.knobs == ("scale",) and entry.labels == {"scale": "proposal scale"}
+    assert kernel_kind(pg.PartialRefreshHMC(0.1)).short == "partial"  # not its HMC base
+
+
+def test_kernel_kind_refuses_unknown_or_unoffered_kinds():
+    with pytest.raises(ValueError, match="kernel kind must be one of"):
+        kernel_kind("slice")
+    with pytest.raises(ValueError, match=r"\('hmc', 'walk'\)"):
+        kernel_kind("nuts", among=("hmc", "walk"))
 
 
 def test_kernel_from_settings_rejects_unknown_kernel():

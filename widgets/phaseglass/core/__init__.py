@@ -7,10 +7,11 @@ from . import demos
 from .compare import KernelComparison, compare_kernels
 from .diagnostics import autocorrelation, ebfmi, ess, mcse, rhat
 from .gibbs import Gibbs
-from .kernels import HMC, Kernel, PartialRefreshHMC, RandomWalk, kernel_from_settings
+from .kernels import HMC, Kernel, PartialRefreshHMC, RandomWalk
 from .leapfrog import Trajectory, leapfrog
 from .metric import Metric
 from .nuts import NUTS
+from .registry import kernel_from_settings
 from .run import Digest, Run
 from .sampling import Sampler, auto_warmup, sample
 from .slices import log_density_grid

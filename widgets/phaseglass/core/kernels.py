@@ -14,7 +14,7 @@ import numpy as np
 from ._validate import MAX_STEPS, check_fraction, check_int, check_positive
 from .leapfrog import DEFAULT_MAX_ENERGY_ERROR, integrate, trajectory_from
 from .metric import Metric, as_metric
-from .uniforms import DriftingUniform, FreshUniform, as_uniform
+from .uniforms import as_uniform
 
 __all__ = ["ChainState", "Kernel", "HMC", "PartialRefreshHMC", "RandomWalk"]
 
@@ -144,7 +144,7 @@ class Kernel:
         raise NotImplementedError
 
     def settings(self):
-        """JSON-friendly description; ``kernel_from_settings`` rebuilds the kernel."""
+        """JSON-friendly description; ``registry.kernel_from_settings`` rebuilds the kernel."""
         raise NotImplementedError
 
     def copy(self):
@@ -401,63 +401,3 @@ class RandomWalk(Kernel):
     def settings(self):
         return {"kernel": "RandomWalk", "scale": self.scale, "metric": self.metric.as_dict(),
                 "uniform": self.uniform.settings()}
-
-
-#: Knobs a saved kernel must state (they define the method; no default is a safe guess).
-_DEFINING = {"HMC": ("step_size", "n_steps"), "PartialRefreshHMC": ("step_size", "n_steps",
-                                                                    "persistence"),
-             "RandomWalk": ("scale",), "Gibbs": (), "NUTS": ("step_size",)}
-
-
-def _uniform_from_settings(uniform):
-    if not isinstance(uniform, dict):
-        raise ValueError(f"`settings['uniform']` must be a dict such as {{'kind': 'fresh'}}, "
-                         f"got {uniform!r}")
-    kind = uniform.get("kind")
-    if kind == "fresh":
-        return FreshUniform()
-    if kind == "drifting":
-        if "drift" not in uniform:
-            raise ValueError("`settings['uniform']` of kind 'drifting' must give 'drift'")
-        return DriftingUniform(uniform["drift"], uniform.get("jitter", 0.0))
-    raise ValueError(f"`settings['uniform']['kind']` must be 'fresh' or 'drifting', got {kind!r}")
-
-
-def kernel_from_settings(settings):
-    """Rebuild a kernel from ``kernel.settings()`` (for saved widget settings and reports).
-
-    Knobs that define the method (step size, steps, persistence, the drifting
-    uniform's drift) must be present; optional ones (jitter, the divergence
-    threshold, the metric) take their defaults.
-    """
-    if not isinstance(settings, dict):
-        raise TypeError(f"`settings` must be a dict (from kernel.settings() or json.load), got "
-                        f"{type(settings).__name__}")
-    settings = dict(settings)
-    name = settings.pop("kernel", None)
-    classes = {"HMC": HMC, "PartialRefreshHMC": PartialRefreshHMC, "RandomWalk": RandomWalk}
-    from . import gibbs, nuts  # registered here to avoid a cycle at import time
-
-    classes["Gibbs"] = gibbs.Gibbs
-    classes["NUTS"] = nuts.NUTS
-    if name not in classes:
-        raise ValueError(f"`settings['kernel']` must be one of {sorted(classes)}, got {name!r}")
-    metric = settings.pop("metric", None)
-    if metric is not None:
-        settings["metric"] = Metric(metric.get("inverse_mass"))
-    uniform = settings.pop("uniform", None)
-    if uniform is not None:
-        settings["uniform"] = _uniform_from_settings(uniform)
-    if name == "Gibbs":
-        return classes[name].from_settings(settings)
-    missing = [k for k in _DEFINING[name] if k not in settings]
-    if missing:
-        raise ValueError(f"`settings` for a {name} kernel must give {missing} (saved settings "
-                         f"are incomplete); known keys: {sorted(settings)}")
-    args = {"HMC": ("step_size", "n_steps"), "PartialRefreshHMC": ("step_size",),
-            "RandomWalk": ("scale",), "NUTS": ("step_size",)}[name]
-    positional = [settings.pop(a) for a in args]
-    try:
-        return classes[name](*positional, **settings)
-    except TypeError as exc:  # an unknown key: say which
-        raise ValueError(f"`settings` for a {name} kernel has a key it does not know: {exc}") from None

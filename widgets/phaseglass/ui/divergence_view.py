@@ -9,7 +9,8 @@ import numpy as np
 import traitlets
 from matplotlib.ticker import MaxNLocator
 
-from ..core.kernels import HMC, Kernel, kernel_from_settings
+from ..core.kernels import HMC, Kernel
+from ..core.registry import kernel_from_settings
 from ..core.run import CAUTION, Run
 from ..core.sampling import Sampler
 from ..core.slices import choose_limits, resolve_coords
