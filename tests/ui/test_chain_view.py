@@ -55,7 +55,7 @@ def test_same_seed_same_draws_as_sample(glaze):
 
 
 def test_live_knobs_reach_the_kernel_without_reset(glaze):
-    view = make(glaze, kernel_name="partial", uniform="drifting", step_size=0.05, n_steps=1,
+    view = make(glaze, kernel_kind="partial", uniform="drifting", step_size=0.05, n_steps=1,
                 persistence=0.8, drift=0.02)
     view.step(10)
     view.step_size = 0.07
@@ -75,7 +75,7 @@ def test_kernel_switch_keeps_positions_and_starts_new_record(glaze):
     view = make(glaze, step_size=0.1, n_steps=5)
     view.step(12)
     before = view.sampler.state.position.copy()
-    view.kernel_name = "walk"
+    view.kernel_kind = "walk"
     assert isinstance(view.kernel, pg.RandomWalk)
     assert view.run.n_draws == 0
     assert np.allclose(view.sampler.state.position, before)
@@ -150,7 +150,7 @@ def test_bad_settings_are_rejected_with_named_trait(glaze):
 
 
 def test_settings_round_trip_and_exports(glaze, tmp_path):
-    view = make(glaze, kernel_name="partial", uniform="drifting", step_size=0.04, n_steps=2,
+    view = make(glaze, kernel_kind="partial", uniform="drifting", step_size=0.04, n_steps=2,
                 persistence=0.7, seed=9)
     text = json.dumps(view.settings)
     again = pg.ChainView.from_settings(glaze, json.loads(text))
@@ -188,7 +188,7 @@ def test_a_tuned_kernel_keeps_its_mass_matrix(glaze):
     assert np.allclose(view.kernel.metric.inverse_mass, [0.2, 0.5])
     assert 10 ** view._step_knob.slider.min == pytest.approx(0.3 / 30)  # range around its step
     assert 10 ** view._step_knob.slider.max == pytest.approx(3.0)
-    view.kernel_name = "partial"
+    view.kernel_kind = "partial"
     assert np.allclose(view.kernel.metric.inverse_mass, [0.2, 0.5])
 
 
@@ -200,9 +200,9 @@ def _pair(glaze, **kw):
 
 
 @pytest.mark.parametrize("kw", [
-    dict(kernel_name="partial", uniform="drifting", step_size=0.05, n_steps=3, persistence=0.9),
-    dict(kernel_name="hmc", uniform="fresh", step_size=0.05, n_steps=6),  # jittered step size
-    dict(kernel_name="walk", uniform="drifting", step_size=0.3),
+    dict(kernel_kind="partial", uniform="drifting", step_size=0.05, n_steps=3, persistence=0.9),
+    dict(kernel_kind="hmc", uniform="fresh", step_size=0.05, n_steps=6),  # jittered step size
+    dict(kernel_kind="walk", uniform="drifting", scale=0.3),
 ], ids=["partial-drifting", "hmc-jitter", "walk"])
 def test_preview_consumes_no_random_numbers_and_is_the_next_transition(glaze, kw):
     previewed, plain = _pair(glaze, seed=7, n_chains=2, **kw)
@@ -211,11 +211,13 @@ def test_preview_consumes_no_random_numbers_and_is_the_next_transition(glaze, kw
     counts = (glaze.n_density, glaze.n_grad)
     for eps in (0.02, 0.4, 0.11):  # previews with other knobs, then the knobs end equal
         previewed.step_size = eps
+        previewed.scale = eps
     previewed.n_steps = 9
     previewed.drift = 0.2
     previewed.persistence = 0.5
     with previewed.hold_trait_notifications():
-        previewed.step_size, previewed.n_steps = kw["step_size"], kw.get("n_steps", 10)
+        previewed.step_size, previewed.n_steps = kw.get("step_size", 0.2), kw.get("n_steps", 10)
+        previewed.scale = kw.get("scale", 0.5)
         previewed.drift, previewed.persistence = 0.03, kw.get("persistence", 0.9)
     preview = previewed.preview
     assert preview is not None and preview.draw == 6
@@ -229,7 +231,7 @@ def test_preview_consumes_no_random_numbers_and_is_the_next_transition(glaze, kw
     assert preview.accepted == bool(plain.run.accepted[0, -1])
     assert preview.u == plain.run.u[0, -1]
     assert preview.accept_prob == plain.run.accept_prob[0, -1]
-    if kw["kernel_name"] == "walk":
+    if kw["kernel_kind"] == "walk":
         if preview.accepted:
             assert np.array_equal(preview.proposal, plain.run.unconstrained[0, -1])
     else:
@@ -242,7 +244,7 @@ def test_preview_consumes_no_random_numbers_and_is_the_next_transition(glaze, kw
 
 
 def test_knob_change_draws_the_preview_at_once_without_advancing(glaze):
-    view = make(glaze, kernel_name="partial", uniform="drifting", step_size=0.05, n_steps=8,
+    view = make(glaze, kernel_kind="partial", uniform="drifting", step_size=0.05, n_steps=8,
                 persistence=0.9, seed=2)
     view.step(20)
     view.render()
@@ -272,9 +274,9 @@ def test_knob_change_draws_the_preview_at_once_without_advancing(glaze):
 
 
 def test_random_walk_preview_shows_the_proposal(glaze):
-    view = make(glaze, kernel_name="walk", step_size=0.4, seed=5)
+    view = make(glaze, kernel_kind="walk", scale=0.4, seed=5)
     view.step(3)
-    view.step_size = 0.5
+    view.scale = 0.5
     p = view.preview
     assert p.trajectory is None
     i, j = view.coords
@@ -298,10 +300,15 @@ def test_divergent_preview_is_marked():
 def test_kernel_switch_previews_the_new_kernel(glaze):
     view = make(glaze, step_size=0.1, n_steps=5)
     view.step(4)
-    view.kernel_name = "walk"
+    view.kernel_kind = "walk"
     assert view.preview is not None and view.preview.trajectory is None
-    assert view._step_knob.label.value == "scale"
-    assert view._steps_knob.disabled and view._persist_knob.disabled
+    # the walk's knob is its proposal scale, never a renamed step size (issue 12)
+    assert view._scale_knob.label.value == "proposal scale"
+    assert view._scale_knob.layout.display is None and view._step_knob.layout.display == "none"
+    assert "pg-primary" in view._scale_knob.slider._dom_classes
+    assert "pg-primary" not in view._step_knob.slider._dom_classes
+    assert view._steps_knob.layout.display == "none" and view._persist_knob.layout.display == "none"
+    assert view.kernel.scale == view.scale
     assert view._drift_knob.disabled  # fresh u: no drift to set
     view.uniform = "drifting"
     assert not view._drift_knob.disabled
@@ -313,7 +320,7 @@ def test_sliders_are_wide_scaled_to_the_target_and_keep_code_values(glaze):
     from phaseglass.ui._controls import KnobControl
     from phaseglass.ui._shared import pilot, step_size_range
 
-    view = make(glaze, step_size=0.05, kernel_name="partial")
+    view = make(glaze, step_size=0.05, kernel_kind="partial")
     knobs = [view._step_knob, view._steps_knob, view._persist_knob, view._drift_knob]
     assert all(isinstance(k, KnobControl) for k in knobs)
     for k, css in zip(knobs, ["pg-step-size", "pg-n-steps", "pg-persistence", "pg-drift"]):
@@ -334,24 +341,24 @@ def test_sliders_are_wide_scaled_to_the_target_and_keep_code_values(glaze):
     assert view.preview is not None and view.preview.step_size == view.step_size
     assert view._steps_knob.slider.max >= 100
     # the random walk's scale gets a range around 2.38 sd / sqrt(dim) (Roberts, Gelman & Gilks 1997)
-    view.kernel_name = "walk"
+    view.kernel_kind = "walk"
     sd = pilot(glaze).sd
     centre = 2.38 * np.exp(np.mean(np.log(sd))) / np.sqrt(2)
-    lo, hi = 10 ** view._step_knob.slider.min, 10 ** view._step_knob.slider.max
+    lo, hi = 10 ** view._scale_knob.slider.min, 10 ** view._scale_knob.slider.max
     assert lo < centre < hi and hi / lo == pytest.approx(300)
 
 
 def test_readout_in_words_not_python(glaze):
-    view = make(glaze, kernel_name="partial", uniform="drifting", step_size=0.03981071705534969,
+    view = make(glaze, kernel_kind="partial", uniform="drifting", step_size=0.03981071705534969,
                 n_steps=1, persistence=0.9500000000000002, drift=0.03)
     text = view._readout.value
     assert "PartialRefreshHMC(" not in text and "{" not in text
-    assert ("HMC with partial momentum refresh: step size 0.03981, 1 step, persistence 0.95, "
+    assert ("HMC with partial momentum refresh: step size 0.03981, 1 leapfrog step, persistence 0.95, "
             "drifting u (drift 0.03), identity mass matrix") in text
     view.step(1)
     assert "1 transition \u00d7 2 chains" in view._readout.value
     tuned = pg.HMC(0.3, 4, metric=np.array([0.2, 0.5]))
-    assert "HMC: step size 0.3 (jittered by \u00b110 %), 4 steps, fresh u, diagonal mass matrix" in \
+    assert "HMC: step size 0.3 (jittered by \u00b110 %), 4 leapfrog steps, fresh u, diagonal mass matrix" in \
         make(glaze, kernel=tuned)._readout.value
 
 
@@ -365,8 +372,8 @@ def test_kernel_dropdown_texts_fit_its_width(glaze):
 
 
 @pytest.mark.parametrize("kw", [
-    dict(kernel_name="partial", uniform="drifting", step_size=0.04, n_steps=1, persistence=0.95),
-    dict(kernel_name="walk", step_size=0.6),  # many rejections: the longest u-panel title
+    dict(kernel_kind="partial", uniform="drifting", step_size=0.04, n_steps=1, persistence=0.95),
+    dict(kernel_kind="walk", scale=0.6),  # many rejections: the longest u-panel title
 ], ids=["partial", "walk"])
 def test_figure_fits_the_column_and_the_u_legend_leaves_the_data(glaze, kw):
     from phaseglass.ui._base import COLUMN_WIDTH_IN
@@ -374,6 +381,7 @@ def test_figure_fits_the_column_and_the_u_legend_leaves_the_data(glaze, kw):
     view = pg.ChainView(glaze, seed=3, **kw)  # region from the pilot run, as in a notebook
     view.step(1500)
     view.step_size = 1.5 * view.step_size  # with a preview
+    view.scale = 1.5 * view.scale
     view.render()
     fig = view.figure
     assert fig.get_size_inches()[0] <= COLUMN_WIDTH_IN
@@ -395,3 +403,56 @@ def test_the_trace_panel_follows_the_chain_after_the_first_steps():
     z = view.run.unconstrained[:, :, view.coords[0]]
     y0, y1 = view._ax_trace.get_ylim()
     assert y0 <= z.min() and y1 >= z.max()
+
+
+# ------------------------------------------------------------------ registry names (issue 12)
+
+def test_kernel_name_still_works_for_one_release_and_names_kernel_kind(glaze):
+    with pytest.warns(DeprecationWarning, match="`kernel_kind`"):
+        view = make(glaze, kernel_name="walk", scale=0.4)
+    assert view.kernel_kind == "walk" and isinstance(view.kernel, pg.RandomWalk)
+    with pytest.warns(DeprecationWarning, match="`kernel_kind`"):
+        view.kernel_name = "partial"
+    assert isinstance(view.kernel, pg.PartialRefreshHMC)
+    # settings saved under the old name are read, with the same warning
+    saved = dict(view.settings)
+    saved["kernel_name"] = saved.pop("kernel_kind")
+    with pytest.warns(DeprecationWarning, match="`kernel_kind`"):
+        again = pg.ChainView.from_settings(glaze, saved)
+    assert again.kernel_kind == "partial"
+
+
+def test_dropdown_offers_the_registry_titles(glaze):
+    from phaseglass.core.registry import kernel_kind
+
+    view = make(glaze)
+    assert [v for _, v in view._kernel_pick.options] == ["hmc", "partial", "walk", "nuts"]
+    assert dict(view._kernel_pick.options)["random-walk Metropolis"] == "walk"
+    assert [t for t, _ in view._kernel_pick.options] == [kernel_kind(k).title for k in
+                                                         ("hmc", "partial", "walk", "nuts")]
+
+
+def test_nuts_steps_like_any_kernel(glaze):
+    view = make(glaze, kernel_kind="nuts", step_size=0.2, max_depth=4, n_chains=2)
+    assert isinstance(view.kernel, pg.NUTS) and view.kernel.max_depth == 4
+    assert view._depth_knob.layout.display is None and view._steps_knob.layout.display == "none"
+    assert view._uniform_pick.disabled  # NUTS draws no accept/reject uniform
+    preview = view.preview
+    view.step(1)
+    run = view.run
+    # the preview was exactly the transition taken (same selected state, same tree)
+    assert np.array_equal(preview.proposal, run.unconstrained[0, -1])
+    assert np.array_equal(preview.trajectory.positions, view.sampler.last_trajectory.positions[0])
+    view.step(5)
+    assert view.run.n_draws == 6
+    assert np.all(view.run.extras["tree_depth"] <= 4)
+    view.max_depth = 2
+    assert view.kernel.max_depth == 2
+    view.step(3)
+    assert np.all(view.run.extras["tree_depth"][:, -3:] <= 2)
+    assert "no-U-turn sampler: step size 0.2, max tree depth 2" in view._readout.value
+
+
+def test_a_passed_nuts_kernel_sets_the_knobs(glaze):
+    view = make(glaze, kernel=pg.NUTS(0.15, 6))
+    assert (view.kernel_kind, view.step_size, view.max_depth) == ("nuts", 0.15, 6)

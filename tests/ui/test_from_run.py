@@ -221,7 +221,7 @@ def test_divergence_view_from_run_and_trajectory_view_needs_a_step_size(divergen
     walk = pg.sample(tuned_run.target, pg.RandomWalk(0.5), n_draws=10, n_chains=2, seed=0, warmup=0)
     with pytest.raises(ValueError, match="`run` used a RandomWalk"):
         pg.TrajectoryView.from_run(walk)
-    assert pg.ChainView.from_run(walk).kernel_name == "walk"
+    assert pg.ChainView.from_run(walk).kernel_kind == "walk"
 
 
 def test_chain_view_settings_keep_the_runs_mass_matrix():

@@ -100,6 +100,14 @@ def user_stacklevel():
     return level
 
 
+def warn_renamed(old, new, what="keyword"):
+    """DeprecationWarning for a name kept for one release: says what to use instead."""
+    import warnings
+
+    warnings.warn(f"the {what} `{old}` is deprecated and will be removed in the next release; "
+                  f"use `{new}`", DeprecationWarning, stacklevel=user_stacklevel())
+
+
 def check_finite(name, x):
     """Raise a ValueError naming ``name`` unless every entry of ``x`` is finite."""
     arr = np.asarray(x, dtype=float)

@@ -19,6 +19,7 @@ import numpy as np
 import traitlets
 from matplotlib.figure import Figure
 
+from ..core._validate import warn_renamed
 from ..core.slices import resolve_coords
 
 __all__ = ["View", "guarded", "make_canvas_figure", "check_range", "check_settings", "check_target",
@@ -339,6 +340,10 @@ class View(widgets.VBox):
     #: Keys a view's settings may hold besides its knobs (e.g. how its run was sampled).
     EXTRA_SETTINGS = ()
 
+    #: {old setting name: new name}: saved settings with an old name are read with a
+    #: DeprecationWarning for one release.
+    RENAMED_SETTINGS = {}
+
     @classmethod
     def checked_settings(cls, settings):
         """``settings`` as a new dict without its ``view`` key, or a clear error.
@@ -350,6 +355,10 @@ class View(widgets.VBox):
         view = settings.pop("view", cls.__name__)
         if view != cls.__name__:
             raise ValueError(f"`settings` are for a {view}, not a {cls.__name__}")
+        for old, new in cls.RENAMED_SETTINGS.items():  # settings saved before a rename
+            if old in settings and new not in settings:
+                warn_renamed(old, new, "setting")
+                settings[new] = settings.pop(old)
         known = set(cls.setting_names()) | set(cls.EXTRA_SETTINGS)
         unknown = sorted(k for k in settings if k not in known)
         if unknown:

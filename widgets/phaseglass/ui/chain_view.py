@@ -9,10 +9,12 @@ import numpy as np
 import traitlets
 from matplotlib.ticker import MaxNLocator
 
-from ..core._validate import MAX_STEPS
+from ..core._validate import MAX_STEPS, warn_renamed
 from ..core.efficiency import MIN_ESS_DRAWS, ess_per_gradient, evaluation_cost
 from ..core.kernels import HMC, PartialRefreshHMC, RandomWalk
 from ..core.metric import Metric
+from ..core.nuts import MAX_DEPTH_LIMIT, NUTS
+from ..core.registry import KNOB_LABELS, kernel_kind
 from ..core.run import CAUTION
 from ..core.sampling import Sampler
 from ..core.slices import resolve_coords
@@ -26,14 +28,10 @@ from ._base import View, check_range, check_target, guarded, number, plural
 from ._controls import KnobControl
 from ._shared import GridCache, pilot, step_size_range
 
-__all__ = ["ChainView", "KERNELS", "NextTransition", "peek_next_transition", "describe_kernel"]
+__all__ = ["ChainView", "KINDS", "NextTransition", "peek_next_transition", "describe_kernel"]
 
-#: Kernel choices of the view: name -> text of the dropdown.
-KERNELS = {
-    "hmc": "HMC",
-    "partial": "HMC, partial momentum refresh",
-    "walk": "random-walk Metropolis",
-}
+#: Kernel kinds the view offers (short names of ``core.registry``; titles come from there too).
+KINDS = ("hmc", "partial", "walk", "nuts")
 
 _MAX_STEPS_SLIDER = 200
 _WALK_SCALE = 2.38  # optimal random-walk scale is about 2.38 sd / sqrt(dim) (Roberts, Gelman & Gilks 1997)
@@ -113,8 +111,11 @@ def peek_next_transition(sampler):
     traj = info.get("trajectory")
     if traj is not None:
         traj = one_chain(traj, 0)
-        last = traj.divergence_step - 1 if traj.divergent else traj.n_steps
-        proposal = traj.positions[last].copy()
+        if isinstance(kernel, NUTS):  # the state the tree selects (its start when nothing moved)
+            proposal = state.position[0].copy()
+        else:
+            last = traj.divergence_step - 1 if traj.divergent else traj.n_steps
+            proposal = traj.positions[last].copy()
     return NextTransition(
         draw=sampler.n_draws, start=start, proposal=np.asarray(proposal, dtype=float),
         trajectory=traj, accepted=bool(info["accepted"][0]), divergent=bool(info["divergent"][0]),
@@ -123,25 +124,27 @@ def peek_next_transition(sampler):
 
 
 def describe_kernel(kernel):
-    """The kernel in words, e.g. ``"HMC with partial momentum refresh: step size 0.04, 1 step, ..."``."""
-    u = kernel.uniform
+    """The kernel in words, e.g. ``"HMC with partial momentum refresh: step size 0.04, 1 leapfrog step, ..."``."""
+    name = kernel_kind(kernel).title
+    u = getattr(kernel, "uniform", None)
     if isinstance(u, DriftingUniform):
         extra = f", jitter {number(u.jitter)}" if u.jitter else ""
-        uniform = f"drifting u (drift {number(u.drift)}{extra})"
+        uniform = [f"drifting u (drift {number(u.drift)}{extra})"]
     else:
-        uniform = "fresh u"
-    metric = _METRIC_WORDS.get(kernel.metric.kind, f"{kernel.metric.kind} mass matrix")
+        uniform = [] if u is None else ["fresh u"]
+    metric = [_METRIC_WORDS.get(kernel.metric.kind, f"{kernel.metric.kind} mass matrix")]
     if isinstance(kernel, RandomWalk):
-        return f"random-walk Metropolis: scale {number(kernel.scale)}, {uniform}, {metric}"
-    parts = [f"step size {number(kernel.step_size)}", plural(kernel.n_steps, "step")]
-    if isinstance(kernel, PartialRefreshHMC):
-        name = "HMC with partial momentum refresh"
-        parts.append(f"persistence {number(kernel.persistence)}")
+        parts = [f"{KNOB_LABELS['scale']} {number(kernel.scale)}"]
+    elif isinstance(kernel, NUTS):
+        parts = [f"step size {number(kernel.step_size)}",
+                 f"{KNOB_LABELS['max_depth']} {kernel.max_depth}"]
     else:
-        name = "HMC"
-        if getattr(kernel, "jitter", 0):
+        parts = [f"step size {number(kernel.step_size)}", plural(kernel.n_steps, "leapfrog step")]
+        if isinstance(kernel, PartialRefreshHMC):
+            parts.append(f"persistence {number(kernel.persistence)}")
+        elif getattr(kernel, "jitter", 0):
             parts[0] += f" (jittered by \u00b1{number(100 * kernel.jitter)} %)"
-    return f"{name}: {', '.join(parts + [uniform, metric])}"
+    return f"{name}: {', '.join(parts + uniform + metric)}"
 
 
 # --------------------------------------------------------------------- view
@@ -164,19 +167,26 @@ class ChainView(View):
     The preview runs on copies of the chains' state and random streams, so it
     is exactly what the next step does and it never changes the run; fresh
     chains (a new view, Reset, another kernel) show it too. Changing
-    ``kernel_name`` or ``uniform`` starts a new record from the chains'
+    ``kernel_kind`` or ``uniform`` starts a new record from the chains'
     current positions; changing ``seed`` or ``n_chains`` (or Reset) starts over
     from the initial points.
 
     Parameters
     ----------
     target : Target
-    kernel : HMC, PartialRefreshHMC or RandomWalk, optional
-        Its knobs seed the view's; otherwise built from ``kernel_name``.
-    kernel_name : {"hmc", "partial", "walk"}
+    kernel : HMC, PartialRefreshHMC, RandomWalk or NUTS, optional
+        Its knobs seed the view's; otherwise built from ``kernel_kind``.
+    kernel_kind : {"hmc", "partial", "walk", "nuts"}
+        Short name of the kernel kind (``core.registry``). ``kernel_name=`` is
+        the deprecated former name (one more release, with a DeprecationWarning).
     uniform : {"fresh", "drifting"}
+        Not used by ``"nuts"`` (it selects among the tree's states without a uniform
+        accept/reject decision).
     step_size, n_steps, persistence, drift : float, int, float, float
-        ``step_size`` is the random walk's scale for ``"walk"``.
+    scale : float
+        The random walk's proposal scale (``"walk"`` only).
+    max_depth : int
+        NUTS's most doublings per transition (``"nuts"`` only).
     n_chains : int
     seed : int
     coords : pair of int or str
@@ -198,23 +208,32 @@ class ChainView(View):
         The previewed next transition of chain 0 (None after a step, until a knob moves).
     """
 
-    kernel_name = traitlets.Enum(tuple(KERNELS), "hmc", help="Transition kernel.").tag(setting=True)
+    kernel_kind = traitlets.Enum(KINDS, "hmc", help="Kernel kind (short name in core.registry).").tag(
+        setting=True)
     uniform = traitlets.Enum(("fresh", "drifting"), "fresh",
                              help="Source of the accept/reject uniform.").tag(setting=True)
-    step_size = traitlets.Float(0.2, help="Leapfrog step size (the random walk's scale).").tag(setting=True)
+    step_size = traitlets.Float(0.2, help="Leapfrog step size.").tag(setting=True)
     n_steps = traitlets.Int(10, help="Leapfrog steps per transition.").tag(setting=True)
+    scale = traitlets.Float(0.5, help="The random walk's proposal scale.").tag(setting=True)
+    max_depth = traitlets.Int(10, help="NUTS: most doublings per transition.").tag(setting=True)
     persistence = traitlets.Float(0.9, help="Momentum persistence of partial refresh.").tag(setting=True)
-    drift = traitlets.Float(0.03, help="Drift per iteration of the drifting uniform.").tag(setting=True)
+    drift = traitlets.Float(0.03, help="Drift per draw of the drifting uniform.").tag(setting=True)
     n_chains = traitlets.Int(2, help="Number of chains.").tag(setting=True)
     seed = traitlets.Int(0, help="Seed of every random stream.").tag(setting=True)
     coords = traitlets.Tuple(traitlets.Int(), traitlets.Int(),
                              help="Indices of the two coordinates shown.").tag(setting=True)
     steps_per_tick = traitlets.Int(1, help="Transitions per Play tick.").tag(setting=True)
 
-    def __init__(self, target, kernel=None, *, kernel_name="hmc", uniform="fresh", step_size=0.2,
-                 n_steps=10, persistence=0.9, drift=0.03, n_chains=2, seed=0, coords=(0, 1),
-                 capacity=2000, steps_per_tick=1, xlim=None, ylim=None, initial=None):
+    RENAMED_SETTINGS = {"kernel_name": "kernel_kind"}
+
+    def __init__(self, target, kernel=None, *, kernel_kind="hmc", uniform="fresh", step_size=0.2,
+                 n_steps=10, persistence=0.9, scale=0.5, max_depth=10, drift=0.03, n_chains=2,
+                 seed=0, coords=(0, 1), capacity=2000, steps_per_tick=1, xlim=None, ylim=None,
+                 initial=None, kernel_name=None):
         check_target(target, min_dim=2)
+        if kernel_name is not None:
+            warn_renamed("kernel_name", "kernel_kind")
+            kernel_kind = kernel_name
         self.target = target
         self.capacity = int(capacity)
         super().__init__(figsize=(7.6, 4.9))
@@ -228,18 +247,22 @@ class ChainView(View):
         if kernel is not None:
             self._metric = kernel.metric
             self._given_extras = _extras_of(kernel)
-            kernel_name, uniform, knobs = _knobs_of(kernel)
-            self._given_step[kernel_name] = knobs["step_size"]
+            kernel_kind, uniform, knobs = _knobs_of(kernel)
+            self._given_step[kernel_kind] = knobs[kernel.tuned_knob]
             step_size = knobs.get("step_size", step_size)
             n_steps = knobs.get("n_steps", n_steps)
             persistence = knobs.get("persistence", persistence)
+            scale = knobs.get("scale", scale)
+            max_depth = knobs.get("max_depth", max_depth)
             drift = knobs.get("drift", drift)
         self._initial = initial
         with self.hold_trait_notifications():
-            self.kernel_name = kernel_name
+            self.kernel_kind = kernel_kind
             self.uniform = uniform
             self.step_size = step_size
             self.n_steps = n_steps
+            self.scale = scale
+            self.max_depth = max_depth
             self.persistence = persistence
             self.drift = drift
             self.n_chains = n_chains
@@ -265,6 +288,7 @@ class ChainView(View):
 
     # ------------------------------------------------------------ validation
     _RANGES = {"step_size": (0.0, None, "(]"), "n_steps": (1, MAX_STEPS, "[]"),
+               "scale": (0.0, None, "(]"), "max_depth": (1, MAX_DEPTH_LIMIT, "[]"),
                "n_chains": (1, None, "[]"), "steps_per_tick": (1, None, "[]"),
                "persistence": (0.0, 1.0, "[)"), "drift": (0.0, 2.0, "()")}
 
@@ -273,16 +297,30 @@ class ChainView(View):
         return check_range(proposal, self._RANGES)
 
     # ---------------------------------------------------------------- kernel
+    @property
+    def kernel_name(self):
+        """Deprecated: the former name of ``kernel_kind``."""
+        warn_renamed("kernel_name", "kernel_kind", "attribute")
+        return self.kernel_kind
+
+    @kernel_name.setter
+    def kernel_name(self, value):
+        warn_renamed("kernel_name", "kernel_kind", "attribute")
+        self.kernel_kind = value
+
     def _make_kernel(self):
         uniform = DriftingUniform(self.drift) if self.uniform == "drifting" else FreshUniform()
         metric = self._metric
-        extras = self._given_extras.get(self.kernel_name, {})
-        if self.kernel_name == "hmc":
+        extras = self._given_extras.get(self.kernel_kind, {})
+        kind = self.kernel_kind
+        if kind == "hmc":
             return HMC(self.step_size, self.n_steps, uniform=uniform, metric=metric, **extras)
-        if self.kernel_name == "partial":
+        if kind == "partial":
             return PartialRefreshHMC(self.step_size, self.n_steps, self.persistence, uniform=uniform,
                                      metric=metric, **extras)
-        return RandomWalk(self.step_size, uniform=uniform, metric=metric)
+        if kind == "nuts":
+            return NUTS(self.step_size, self.max_depth, metric=metric, **extras)
+        return RandomWalk(self.scale, uniform=uniform, metric=metric)
 
     @property
     def kernel(self):
@@ -315,19 +353,23 @@ class ChainView(View):
 
     # -------------------------------------------------------------- controls
     def _step_range(self):
-        """Step-size slider range from the pilot run (the random walk's scale for "walk")."""
-        if self.kernel_name in self._given_step:
-            return step_size_range(self._given_step[self.kernel_name])
-        if self.kernel_name == "walk":
-            sd = self._pilot.sd[np.isfinite(self._pilot.sd) & (self._pilot.sd > 0)]
-            typical = float(np.exp(np.mean(np.log(sd)))) if sd.size else 1.0
-            return step_size_range(_WALK_SCALE * typical / np.sqrt(self.target.dim))
+        """Step-size slider range from the pilot run (or a passed kernel's step size)."""
+        if self.kernel_kind in self._given_step and self.kernel_kind != "walk":
+            return step_size_range(self._given_step[self.kernel_kind])
         return step_size_range(self._pilot.step_size)
 
+    def _scale_range(self):
+        """Proposal-scale slider range: about 2.38 sd / sqrt(dim) from the pilot run's sd."""
+        if "walk" in self._given_step:
+            return step_size_range(self._given_step["walk"])
+        sd = self._pilot.sd[np.isfinite(self._pilot.sd) & (self._pilot.sd > 0)]
+        typical = float(np.exp(np.mean(np.log(sd)))) if sd.size else 1.0
+        return step_size_range(_WALK_SCALE * typical / np.sqrt(self.target.dim))
+
     def _build_controls(self):
-        self._kernel_pick = widgets.Dropdown(options=[(v, k) for k, v in KERNELS.items()],
-                                             value=self.kernel_name,
-                                             layout=widgets.Layout(width="300px"))
+        self._kernel_pick = widgets.Dropdown(
+            options=[(kernel_kind(k).title, k) for k in KINDS], value=self.kernel_kind,
+            layout=widgets.Layout(width="300px"))
         self._kernel_pick.add_class("pg-kernel")
         self._uniform_pick = widgets.ToggleButtons(options=[("fresh u", "fresh"),
                                                             ("drifting u", "drifting")],
@@ -336,10 +378,14 @@ class ChainView(View):
         self._uniform_pick.add_class("pg-uniform")
         low, high = self._step_range()
         self._step_knob = KnobControl(self, "step_size", low=low, high=high, log=True,
-                                      label="step size", css_class="pg-step-size")
-        self._step_knob.slider.add_class("pg-primary")
+                                      label=KNOB_LABELS["step_size"], css_class="pg-step-size")
+        low, high = self._scale_range()
+        self._scale_knob = KnobControl(self, "scale", low=low, high=high, log=True,
+                                       label=KNOB_LABELS["scale"], css_class="pg-scale")
         self._steps_knob = KnobControl(self, "n_steps", low=1, high=_MAX_STEPS_SLIDER, integer=True,
-                                       label="steps", css_class="pg-n-steps")
+                                       label=KNOB_LABELS["n_steps"], css_class="pg-n-steps")
+        self._depth_knob = KnobControl(self, "max_depth", low=1, high=MAX_DEPTH_LIMIT, integer=True,
+                                       label=KNOB_LABELS["max_depth"], css_class="pg-max-depth")
         self._persist_knob = KnobControl(self, "persistence", low=0.0, high=0.99,
                                          label="persistence", css_class="pg-persistence")
         self._drift_knob = KnobControl(self, "drift", low=1e-3, high=0.5, log=True, label="drift",
@@ -352,7 +398,7 @@ class ChainView(View):
         self._reset_button.add_class("pg-reset")
         self._seed_box = widgets.BoundedIntText(min=0, max=2**31 - 1, description="seed",
                                                 layout=widgets.Layout(width="160px"))
-        for control, trait in ((self._kernel_pick, "kernel_name"), (self._uniform_pick, "uniform"),
+        for control, trait in ((self._kernel_pick, "kernel_kind"), (self._uniform_pick, "uniform"),
                                (self._seed_box, "seed")):
             traitlets.link((self, trait), (control, "value"))
         self._play.observe(self._on_tick, "value")
@@ -364,21 +410,30 @@ class ChainView(View):
         wrap = widgets.Layout(flex_flow="row wrap", align_items="center")
         self.children = [
             widgets.HBox([widgets.Label("kernel"), self._kernel_pick, self._uniform_pick], layout=wrap),
-            widgets.HBox([self._step_knob, self._steps_knob, self._persist_knob, self._drift_knob],
-                         layout=wrap),
+            widgets.HBox([self._step_knob, self._scale_knob, self._steps_knob, self._depth_knob,
+                          self._persist_knob, self._drift_knob], layout=wrap),
             widgets.HBox([self._play, self._step_button, self._reset_button, self._seed_box],
                          layout=wrap),
             self.figure.canvas, self._readout, self._status_html,
         ]
 
     def _sync_controls(self):
-        """Label and range of the step knob for this kernel; knobs it ignores are disabled."""
-        walk = self.kernel_name == "walk"
-        self._step_knob.label.value = "scale" if walk else "step size"
+        """Show the knobs of this kernel kind (the others are hidden); ``pg-primary`` on the first."""
+        kind = self.kernel_kind
+        walk = kind == "walk"
+        shown = {self._step_knob: not walk, self._scale_knob: walk,
+                 self._steps_knob: kind in ("hmc", "partial"), self._depth_knob: kind == "nuts",
+                 self._persist_knob: kind == "partial"}
+        for knob, show in shown.items():
+            knob.layout.display = None if show else "none"
         self._step_knob.set_range(*self._step_range())
-        self._steps_knob.disabled = walk
-        self._persist_knob.disabled = self.kernel_name != "partial"
-        self._drift_knob.disabled = self.uniform != "drifting"
+        self._scale_knob.set_range(*self._scale_range())
+        primary, other = ((self._scale_knob, self._step_knob) if walk else
+                          (self._step_knob, self._scale_knob))
+        other.slider.remove_class("pg-primary")
+        primary.slider.add_class("pg-primary")
+        self._uniform_pick.disabled = kind == "nuts"
+        self._drift_knob.disabled = self.uniform != "drifting" or kind == "nuts"
 
     # ---------------------------------------------------------------- figure
     def _build_figure(self):
@@ -474,20 +529,17 @@ class ChainView(View):
         self._refresh()
 
     # ------------------------------------------------------------- observers
-    @traitlets.observe("step_size", "n_steps", "persistence", "drift")
+    @traitlets.observe("step_size", "n_steps", "persistence", "scale", "max_depth", "drift")
     def _on_knob(self, change):
         if not self._ready:
             return
         k, name = self.sampler.kernel, change["name"]
         try:
-            if name == "step_size":
-                setattr(k, "scale" if isinstance(k, RandomWalk) else "step_size", change["new"])
-            elif name == "n_steps" and hasattr(k, "n_steps"):
-                k.n_steps = change["new"]
-            elif name == "persistence" and hasattr(k, "persistence"):
-                k.persistence = change["new"]
-            elif name == "drift" and isinstance(k.uniform, DriftingUniform):
-                k.uniform.drift = change["new"]
+            if name == "drift":
+                if isinstance(getattr(k, "uniform", None), DriftingUniform):
+                    k.uniform.drift = change["new"]
+            elif hasattr(k, name):  # a knob of another kind waits for that kind
+                setattr(k, name, change["new"])
         except Exception as exc:
             self.report_error("setting change", exc)
             return
@@ -512,7 +564,7 @@ class ChainView(View):
         self._next.update(moved, p.accepted)
         self._next_u.update(p.draw, min(max(p.u, 0.0), 1.0), p.accepted, p.accept_prob)
 
-    @traitlets.observe("kernel_name", "uniform")
+    @traitlets.observe("kernel_kind", "uniform")
     def _on_kernel(self, change):
         if self._ready:
             self._sync_controls()
@@ -663,29 +715,23 @@ class ChainView(View):
 
 
 def _extras_of(kernel):
-    """{kernel_name: knobs the view has no control for} of a passed kernel (kept as they are)."""
-    out = {}
-    if isinstance(kernel, PartialRefreshHMC):
-        out["partial"] = {"max_energy_error": kernel.max_energy_error}
-    elif isinstance(kernel, HMC):
-        out["hmc"] = {"jitter": kernel.jitter, "max_energy_error": kernel.max_energy_error}
-    return out
+    """{kernel kind: knobs the view has no control for} of a passed kernel (kept as they are)."""
+    extras = {k: getattr(kernel, k) for k in ("jitter", "max_energy_error") if hasattr(kernel, k)}
+    return {kernel_kind(kernel).short: extras} if extras else {}
 
 
 def _knobs_of(kernel):
-    """(kernel_name, uniform name, knobs) of a kernel instance."""
-    uniform = "drifting" if isinstance(kernel.uniform, DriftingUniform) else "fresh"
-    knobs = {}
-    if isinstance(kernel.uniform, DriftingUniform):
-        knobs["drift"] = kernel.uniform.drift
-    if isinstance(kernel, PartialRefreshHMC):
-        knobs.update(step_size=kernel.step_size, n_steps=kernel.n_steps, persistence=kernel.persistence)
-        return "partial", uniform, knobs
-    if isinstance(kernel, HMC):
-        knobs.update(step_size=kernel.step_size, n_steps=kernel.n_steps)
-        return "hmc", uniform, knobs
-    if isinstance(kernel, RandomWalk):
-        knobs.update(step_size=kernel.scale)
-        return "walk", uniform, knobs
-    raise TypeError(
-        f"`kernel` must be pg.HMC, pg.PartialRefreshHMC or pg.RandomWalk, got {type(kernel).__name__}")
+    """(kernel kind, uniform name, knobs) of a kernel instance."""
+    try:
+        entry = kernel_kind(kernel, among=KINDS)
+    except ValueError:
+        names = ", ".join(f"pg.{kernel_kind(k).name}" for k in KINDS)
+        raise TypeError(f"`kernel` must be one of {names}, got {type(kernel).__name__}") from None
+    u = getattr(kernel, "uniform", None)
+    uniform = "drifting" if isinstance(u, DriftingUniform) else "fresh"
+    knobs = {k: getattr(kernel, k) for k in entry.knobs}
+    if isinstance(kernel, NUTS):
+        knobs["max_depth"] = kernel.max_depth
+    if isinstance(u, DriftingUniform):
+        knobs["drift"] = u.drift
+    return entry.short, uniform, knobs
