@@ -10,7 +10,8 @@ from .core import __all__ as _core_all
 
 __version__ = "0.1.0"
 
-_WIDGETS = ("TrajectoryView", "ChainView", "ShiftGibbsView", "DivergenceView", "TuningMap")
+_WIDGETS = ("TrajectoryView", "ChainView", "ShiftGibbsView", "DivergenceView", "TuningMap",
+            "DoublingView")
 
 __all__ = list(_core_all) + list(_WIDGETS) + ["__version__"]
 

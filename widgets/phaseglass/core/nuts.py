@@ -153,6 +153,11 @@ class NUTS(Kernel):
         """
         if not isinstance(target, Target):
             raise TypeError(f"`target` must be a phaseglass Target, got {type(target).__name__}")
+        uniforms = Streams(seed, 1).uniform(3 * self.max_depth)
+        return self._tree_with(target, position, momentum, uniforms)
+
+    def _tree_with(self, target, position, momentum, uniforms):
+        """``build_tree`` with the transition's uniforms given, shape (1, 3 * max_depth)."""
         q, _ = as_points("position", position, target.dim)
         p, _ = as_points("momentum", momentum, target.dim)
         check_finite("position", q)
@@ -168,9 +173,9 @@ class NUTS(Kernel):
             if not (np.isfinite(logp).all() and np.isfinite(grad).all()):
                 raise ValueError(f"`position` {q[0]} has a non-finite log-density or gradient; "
                                  f"start inside the support")
-            streams = Streams(seed, 1)
             state = ChainState(q, logp, grad)
-            info = self._grow(target, state, p, streams.uniform(3 * self.max_depth), True)
+            info = self._grow(target, state, p, np.asarray(uniforms, dtype=float).reshape(1, -1),
+                              True)
         finally:
             target.n_density, target.n_grad = counts
         return info.pop("trajectory"), info
@@ -219,6 +224,9 @@ class NUTS(Kernel):
         last_u = uniforms[:, 2].copy()
         sel_offset = np.zeros(n, dtype=int)
         merged = np.zeros((n, depth_max), dtype=bool)
+        directions = np.zeros((n, depth_max), dtype=int)  # +1 forward, -1 backward, 0 not made
+        turn_ends = np.zeros((n, 2), dtype=int)  # time offsets of the states compared
+        turn_whole = np.zeros(n, dtype=bool)     # the whole trajectory turned (not a subtree)
         leaves = [] if record else None
 
         with np.errstate(all="ignore"):
@@ -227,6 +235,7 @@ class NUTS(Kernel):
                 if rows.size == 0:
                     break
                 d = np.where(uniforms[rows, 3 * j] < 0.5, -1.0, 1.0)
+                directions[rows, j] = d.astype(int)
                 fwd = d > 0
                 # the subtree grows from the chosen end; work in the frame where it moves forward
                 cq = np.where(fwd[:, None], right_q[rows], left_q[rows])
@@ -291,6 +300,7 @@ class NUTS(Kernel):
                 stop = rows[~ok_sub]
                 growing[stop] = False
                 turned[rows[sub.turned]] = True
+                turn_ends[rows[sub.turned]] = sub.turn_ends[sub.turned]
                 tree_depth[rows] = j + 1
                 last_u[rows] = uniforms[rows, 3 * j + 2]
                 if not ok_sub.any():
@@ -319,6 +329,10 @@ class NUTS(Kernel):
                 u_turn = _turned_back(velocity(left_p[r]), velocity(right_p[r]), rr)
                 growing[r[u_turn]] = False
                 turned[r[u_turn]] = True
+                ru = r[u_turn]
+                turn_ends[ru, 0] = -steps_side[ru, 0]
+                turn_ends[ru, 1] = steps_side[ru, 1]
+                turn_whole[ru] = True
 
         state.position, state.logp, state.grad = sel_q, sel_lp, sel_g
         hit = growing & (tree_depth == depth_max)
@@ -326,7 +340,9 @@ class NUTS(Kernel):
         tree = None
         if leaves is not None:
             tree = _assemble(leaves, start_q, p0, start_lp, h0, sel_offset, merged, divergent,
-                             (replay_dir * replay_steps).astype(int), eps, limit)
+                             (replay_dir * replay_steps).astype(int), eps, limit,
+                             directions, np.where(turned[:, None], turn_ends, 0), turned,
+                             turn_whole)
         return {
             "accepted": moved,
             "accept_prob": sum_accept / np.maximum(n_leap, 1),
@@ -376,6 +392,7 @@ class _Subtree:
         self.offset = np.zeros(n, dtype=int)
         self.failed = np.zeros(n, dtype=bool)   # diverged or turned
         self.turned = np.zeros(n, dtype=bool)
+        self.turn_ends = np.zeros((n, 2), dtype=int)  # offsets of the node that turned
         self.first_sharp = np.zeros((depth + 1, n, dim))
         self.rho_before = np.zeros((depth + 1, n, dim))
 
@@ -407,6 +424,11 @@ class _Subtree:
                 rho = self.rho[idx] - self.rho_before[level, idx]
                 u_turn = _turned_back(self.first_sharp[level, idx], sharp, rho)
                 bad = np.flatnonzero(u_turn) if every else idx[u_turn]
+                if bad.size:
+                    new = ~self.turned[bad]  # the first (smallest) node that turned is kept
+                    last = offset[u_turn][new]
+                    self.turn_ends[bad[new], 0] = last - np.sign(last) * (2 ** level - 1)
+                    self.turn_ends[bad[new], 1] = last
                 self.failed[bad] = True
                 self.turned[bad] = True
 
@@ -434,20 +456,59 @@ class DoublingTree(Trajectory):
     merged : ndarray of bool, shape (chains, rows)
         Whether the state belongs to the trajectory the next state was drawn
         from (False for the abandoned last subtree: it turned or diverged).
+    directions : ndarray of int, shape (chains, max_depth)
+        Direction of each doubling in the order made: +1 forward in time, -1
+        backward, 0 for a doubling not made.
+    turn_rows : ndarray of int, shape (chains, 2)
+        Rows of the two states whose momenta the U-turn criterion compared
+        when it stopped the tree (earliest first): the ends of the smallest
+        node of a subtree that turned, or the ends of the whole trajectory;
+        -1 when the tree did not stop at a U-turn.
+    turn_whole : ndarray of bool, shape (chains,)
+        The U-turn was found on the whole trajectory (not inside a subtree).
+    selection_prob : ndarray of float, shape (chains, rows)
+        Probability that each state is the one the transition moves to, given
+        the tree (multinomial weights within a subtree times the biased merge
+        probabilities; 0 for the abandoned subtree, NaN on padding). Sums to 1.
     """
 
     start: np.ndarray = None
     selected: np.ndarray = None
     doubling: np.ndarray = None
     merged: np.ndarray = None
+    directions: np.ndarray = None
+    turn_rows: np.ndarray = None
+    turn_whole: np.ndarray = None
+    selection_prob: np.ndarray = None
 
     def __repr__(self):
         return (f"DoublingTree(batch of {self.positions.shape[0]} chains, up to "
                 f"{self.positions.shape[1]} states, {int(np.sum(self.divergent))} divergent)")
 
 
+def _selection_prob(energy_error, doubling, is_merged, n_doublings):
+    """P(each state is selected | tree) for one chain's rows (see DoublingTree.selection_prob)."""
+    log_w = -energy_error
+    prob = np.where(doubling == -2, np.nan, 0.0)
+    groups = [doubling == -1] + [(doubling == j) & is_merged for j in range(n_doublings)]
+    groups = [g for g in groups if g.any()]
+    group_w = [np.logaddexp.reduce(log_w[g]) for g in groups]
+    # chance that group k's candidate is taken when it is merged, and then kept to the end
+    take = [1.0]
+    before = group_w[0]
+    for w in group_w[1:]:
+        take.append(float(np.exp(min(0.0, w - before))))
+        before = np.logaddexp(before, w)
+    keep = 1.0
+    for k in range(len(groups) - 1, -1, -1):
+        g = groups[k]
+        prob[g] = take[k] * keep * np.exp(log_w[g] - group_w[k])
+        keep *= 1.0 - take[k]
+    return prob
+
+
 def _assemble(leaves, start_q, p0, start_lp, h0, sel_offset, merged, divergent, div_offset, eps,
-              limit):
+              limit, directions, turn_ends, turned, turn_whole):
     """Gather the recorded leaves into a DoublingTree (time order, NaN-padded)."""
     n, dim = start_q.shape
     lo = np.zeros(n, dtype=int)
@@ -476,9 +537,14 @@ def _assemble(leaves, start_q, p0, start_lp, h0, sel_offset, merged, divergent, 
         doubling[rows, at] = j
         is_merged[rows, at] = merged[rows, j]
     ham = potential + kinetic
+    error = ham - h0[:, None]
+    prob = np.stack([_selection_prob(error[c], doubling[c], is_merged[c], merged.shape[1])
+                     for c in range(n)])
     return DoublingTree(
         positions=positions, momenta=momenta, potential=potential, kinetic=kinetic,
-        hamiltonian=ham, energy_error=ham - h0[:, None], divergent=divergent.copy(),
+        hamiltonian=ham, energy_error=error, divergent=divergent.copy(),
         divergence_step=np.where(divergent, base + div_offset, -1), step_size=np.full(n, eps),
         n_steps=size - 1, max_energy_error=limit, start=base, selected=base + sel_offset,
-        doubling=doubling, merged=is_merged)
+        doubling=doubling, merged=is_merged, directions=directions.copy(),
+        turn_rows=np.where(turned[:, None], np.sort(base[:, None] + turn_ends, axis=1), -1),
+        turn_whole=turn_whole & turned, selection_prob=prob)

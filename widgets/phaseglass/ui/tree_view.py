@@ -1,0 +1,432 @@
+"""DoublingView: one no-U-turn transition's doubling tree over the log-density, doubling by doubling."""
+
+import ipywidgets as widgets
+import numpy as np
+import traitlets
+from matplotlib.ticker import MaxNLocator
+
+from ..core.metric import Metric
+from ..core.nuts import MAX_DEPTH_LIMIT, NUTS
+from ..core.slices import resolve_coords
+from ..core.streams import Streams
+from ..draw import legend
+from ..draw.tree import draw_tree, draw_tree_energy, tree_rows
+from ._base import View, check_range, check_target, guarded, number, plural
+from ._controls import KnobControl
+from ._shared import GridCache, pilot, step_size_range
+from .trajectory_view import TrajectoryView, mass_from_metric, run_parts, run_region
+
+__all__ = ["DoublingView"]
+
+_DEPTH_SLIDER_MAX = 12
+
+
+class DoublingView(View):
+    """One no-U-turn (NUTS) transition's doubling tree over the log-density, live.
+
+    Left: contours of the log-density (a 2-D slice through the start for an
+    n-D target) with the tree: the trajectory the next state is drawn from,
+    the latest doubling shown thicker, the abandoned subtree dotted, every
+    state as a candidate whose marker area grows with its chance of being
+    selected, the selected state (filled circle), the stretch where the U-turn
+    criterion fired with the two end momenta it compared (orange diamonds and
+    arrows), and a divergent subtree's dashed segment and ``X``. Right: the
+    energy error of every leapfrog state against its place in time (steps from
+    the start, negative backward) and the divergence threshold.
+
+    The doubling slider and Play show the first k doublings in the order the
+    random directions chose them. Click the left panel to move the start;
+    press on the start and drag to set the initial momentum. Everything is on
+    the sampler's (unconstrained) scale. The tree's random directions and
+    choices and the fresh momentum come from ``seed`` exactly as in
+    ``pg.NUTS``: a one-chain ``pg.Sampler(target, pg.NUTS(...), seed=seed)``
+    started at ``start`` makes this transition.
+
+    Parameters
+    ----------
+    target : Target
+    start : array_like, shape (dim,), optional
+        Start (sampler's scale). Default: a draw from a short pilot run.
+    coords : pair of int or str
+    step_size, max_depth, seed : initial knob values
+    mass_scale : sequence of float, optional
+        Diagonal of the mass matrix (the kernel's inverse metric is ``1 / mass_scale``).
+    xlim, ylim : (float, float), optional
+    max_energy_error : float
+        Divergence threshold (1000, as in ``pg.NUTS``).
+
+    Attributes
+    ----------
+    tree : DoublingTree
+        The tree last drawn (a batch of one: ``NUTS.build_tree``'s output).
+    info : dict
+        Its records (``tree_depth``, ``n_leapfrog``, ``depth_limit_hit``, ``turned``, ...).
+    figure : matplotlib.figure.Figure
+
+    Examples
+    --------
+    >>> import phaseglass as pg
+    >>> view = pg.DoublingView(pg.demos.correlated_gaussian(), step_size=0.2, seed=1)
+    >>> view.doublings == int(view.info["tree_depth"][0])   # the whole tree is shown
+    True
+    """
+
+    step_size = traitlets.Float(0.1, help="Leapfrog step size (epsilon).").tag(setting=True)
+    max_depth = traitlets.Int(
+        10, help="Most doublings a tree may make (at most 2**max_depth - 1 leapfrog steps)."
+    ).tag(setting=True)
+    seed = traitlets.Int(0, help="Seed of the momentum, the doubling directions and the "
+                                 "multinomial choices.").tag(setting=True)
+    mass_scale = traitlets.List(
+        traitlets.Float(), help="Diagonal of the mass matrix, one entry per coordinate."
+    ).tag(setting=True)
+    coords = traitlets.Tuple(traitlets.Int(), traitlets.Int(),
+                             help="Indices of the two coordinates shown.").tag(setting=True)
+    start = traitlets.Any(help="Start point, shape (dim,), sampler's scale.").tag(setting=True)
+    momentum = traitlets.Any(help="Initial momentum, shape (dim,).").tag(setting=True)
+    xlim = traitlets.Tuple(traitlets.Float(), traitlets.Float(), help="x range shown.").tag(setting=True)
+    ylim = traitlets.Tuple(traitlets.Float(), traitlets.Float(), help="y range shown.").tag(setting=True)
+    doublings = traitlets.Int(0, help="Doublings shown, in the order the tree made them (0: the "
+                                      "start alone); a new tree shows all of them.")
+
+    def __init__(self, target, *, start=None, coords=(0, 1), step_size=0.1, max_depth=10, seed=0,
+                 mass_scale=None, xlim=None, ylim=None, max_energy_error=1000.0):
+        check_target(target, min_dim=2)
+        self.target = target
+        self.max_energy_error = float(max_energy_error)
+        coords = resolve_coords(coords, target.names, target.dim)
+        super().__init__(figsize=(7.6, 4.5))
+        self._grids = GridCache(target, n=90)
+        self._applying = False
+        self._drag = None
+        self._fixed = None        # the uniforms of a run's transition (from_run), until a new seed
+        self._fixed_note = ""
+        self._quiet = False
+        self._replaying = False
+        self.tree = None
+        self.info = None
+        self._pilot = pilot(target, seed=seed)
+        with self.hold_trait_notifications():
+            if start is None:
+                start = self._pilot.start()
+            if xlim is None or ylim is None:
+                px, py = self._pilot.region(coords, start)
+                xlim = px if xlim is None else xlim
+                ylim = py if ylim is None else ylim
+            self.coords = coords
+            self.xlim = tuple(float(v) for v in xlim)
+            self.ylim = tuple(float(v) for v in ylim)
+            self.mass_scale = ([1.0] * target.dim if mass_scale is None
+                               else [float(m) for m in mass_scale])
+            self.step_size = step_size
+            self.max_depth = max_depth
+            self.seed = seed
+            self.start = start
+            self.momentum = self._fresh_momentum()
+        self._build_controls()
+        self._build_figure()
+        self._recompute()
+
+    # ------------------------------------------------------------ validation
+    _RANGES = {"step_size": (0.0, None, "(]"), "max_depth": (1, MAX_DEPTH_LIMIT, "[]"),
+               "doublings": (0, MAX_DEPTH_LIMIT, "[]"), "seed": (0, None, "[]")}
+
+    @traitlets.validate(*_RANGES)
+    def _check_knob(self, proposal):
+        return check_range(proposal, self._RANGES)
+
+    # start, momentum and mass are edited exactly as in TrajectoryView (the same code)
+    _check_mass = traitlets.validate("mass_scale")(TrajectoryView._check_mass.func)
+    _check_point = traitlets.validate("start", "momentum")(TrajectoryView._check_point.func)
+    _set_coordinates = TrajectoryView._set_coordinates
+    _start_pixels = TrajectoryView._start_pixels
+    _on_press = TrajectoryView._on_press
+    _on_motion = TrajectoryView._on_motion
+    _on_release = TrajectoryView._on_release
+    move_start = TrajectoryView.move_start
+    set_momentum_towards = TrajectoryView.set_momentum_towards
+    _axis_names = TrajectoryView._axis_names
+    _grid = TrajectoryView._grid
+    _metric = TrajectoryView._metric
+    _on_mass = traitlets.observe("mass_scale")(TrajectoryView._on_mass.func)
+
+    # -------------------------------------------------------------- controls
+    def _build_controls(self):
+        low, high = step_size_range(self._pilot.step_size)
+        self._step_knob = KnobControl(self, "step_size", low=low, high=high, log=True,
+                                      label="step size", css_class="pg-step-size")
+        self._step_knob.slider.add_class("pg-primary")
+        self._depth_knob = KnobControl(self, "max_depth", low=1, high=_DEPTH_SLIDER_MAX,
+                                       integer=True, label="max depth", css_class="pg-max-depth")
+        self._doubling_knob = KnobControl(self, "doublings", low=0, high=self.max_depth,
+                                          integer=True, label="doublings shown",
+                                          css_class="pg-doubling")
+        self._play = widgets.Play(value=0, min=0, max=self.max_depth, step=1, interval=700,
+                                  show_repeat=False, layout=widgets.Layout(width="auto"))
+        self._play.tooltip = "Play the doublings one by one, in the order the tree made them"
+        self._play.add_class("pg-doubling-play")
+        traitlets.link((self._play, "value"), (self, "doublings"))
+        self._seed_box = widgets.BoundedIntText(value=self.seed, min=0, max=2**31 - 1,
+                                                description="seed",
+                                                layout=widgets.Layout(width="150px"))
+        self._seed_box.tooltip = self.traits()["seed"].help
+        traitlets.link((self._seed_box, "value"), (self, "seed"))
+        self._readout = widgets.HTML()
+        self._readout.add_class("pg-readout")
+        self._click_readout = widgets.HTML(
+            "<span style='font-family:monospace'>click the left panel to move the start; press on "
+            "the start and drag to set the initial momentum</span>")
+        self._click_readout.add_class("pg-click-readout")
+        wrap = widgets.Layout(flex_flow="row wrap", align_items="center")
+        rows = [widgets.HBox([self._step_knob, self._depth_knob], layout=wrap),
+                widgets.HBox([self._play, self._doubling_knob, self._seed_box], layout=wrap)]
+        if self.target.dim > 2:
+            self._coordinate_pickers(self.target.names)
+            rows.append(widgets.HBox([self._x_pick, self._y_pick, self._swap_pick], layout=wrap))
+        self.children = rows + [self.figure.canvas, self._readout, self._click_readout,
+                                self._status_html]
+
+    # ---------------------------------------------------------------- figure
+    def _build_figure(self):
+        fig = self.figure
+        self._ax, self._ax_err = fig.subplots(1, 2, width_ratios=[1.25, 1.0])
+        from ..draw import draw_log_density
+
+        self._density = draw_log_density(self._ax, self._grid(), names=self._axis_names())
+        tree, info = self._build()
+        self.tree, self.info = tree, info
+        self._tree_draw = draw_tree(self._ax, tree, coords=self.coords, metric=self._metric(),
+                                    names=self.target.names)
+        self._tree_draw.autoscale = False
+        self._path = self._tree_draw  # the name TrajectoryView's mouse handlers use
+        self._energy = draw_tree_energy(self._ax_err, tree)
+        for ax in (self._ax, self._ax_err):
+            ax.xaxis.set_major_locator(MaxNLocator(5))
+        self._ax.yaxis.set_major_locator(MaxNLocator(6))
+        d, e = self._tree_draw, self._energy
+        handles = [self._density.contours, d.path, d.newest, d.abandoned, d.candidates,
+                   d.turn_span, d.turn_ends, d.start, d.selected, d.momentum, d.divergent,
+                   e.thresholds[0]]
+        labels = ["log-density contours", "trajectory (merged doublings)", "latest doubling",
+                  "abandoned subtree", "candidates (area: chance of selection)",
+                  "U-turn: stretch checked", "U-turn: momenta compared", "start",
+                  "selected (next state)", "initial momentum", "divergent subtree",
+                  f"divergence threshold \u00b1{number(self.max_energy_error)}"]
+        legend(fig, loc="outside lower center", ncols=3, handles=handles, labels=labels,
+               fontsize=7)
+        self.set_dynamic([d.path, d.newest, d.abandoned, d.candidates, d.divergent, d.turn_span,
+                          d.turn_ends, *d.turn_momenta, d.start, d.selected, d.momentum,
+                          e.error, e.abandoned, e.divergence, e.title])
+        self._ax.set_xlim(self.xlim)
+        self._ax.set_ylim(self.ylim)
+        fig.canvas.mpl_connect("button_press_event", self._on_press)
+        fig.canvas.mpl_connect("motion_notify_event", self._on_motion)
+        fig.canvas.mpl_connect("button_release_event", self._on_release)
+
+    # ----------------------------------------------------------- computation
+    def kernel(self):
+        """The ``pg.NUTS`` kernel this view's knobs describe."""
+        return NUTS(self.step_size, self.max_depth, metric=self._metric(),
+                    max_energy_error=self.max_energy_error)
+
+    def _fresh_momentum(self):
+        """The momentum ``pg.NUTS`` draws first from a one-chain stream of ``seed``."""
+        z = Streams(self.seed, 1).normal(self.target.dim)
+        return self._metric().momentum_from_normal(z)[0]
+
+    def _build(self):
+        kernel = self.kernel()
+        with self.target.uncounted():
+            if self._fixed is not None and self._fixed.size == 3 * self.max_depth:
+                return kernel._tree_with(self.target, self.start, self.momentum, self._fixed)
+            return kernel.build_tree(self.target, self.start, self.momentum, seed=self.seed)
+
+    @traitlets.observe("seed")
+    def _on_seed(self, change):
+        self._fixed = None
+        self._fixed_note = ""
+        if self.tree is not None and not self._applying:
+            self.momentum = self._fresh_momentum()
+
+    @traitlets.observe("step_size", "max_depth", "start", "momentum", "coords", "xlim", "ylim",
+                       "mass_scale")
+    def _on_knob(self, change):
+        if not self._replaying:
+            self._fixed_note = ""  # no longer the run's transition as it was sampled
+        if hasattr(self, "_energy"):
+            self._recompute()
+
+    @traitlets.observe("doublings")
+    def _on_doublings(self, change):
+        if hasattr(self, "_energy") and not self._quiet:
+            self._show()
+
+    @guarded("redraw")
+    def _recompute(self):
+        before = (self._grids.evaluations, self._grids.key)
+        grid = self._grid()
+        new_region = (self._grids.evaluations, self._grids.key) != before
+        if new_region:
+            self._density.update(grid)
+        tree, info = self._build()
+        self.tree, self.info = tree, info
+        depth = int(info["tree_depth"][0])
+        self._quiet = True
+        try:
+            self._play.playing = False
+            self._play.max = depth
+            self.doublings = depth
+            self._doubling_knob.set_range(0, max(depth, 1))
+        finally:
+            self._quiet = False
+        self._ax.set_xlim(self.xlim)
+        self._ax.set_ylim(self.ylim)
+        names = self._axis_names()
+        self._ax.set_xlabel(names[0])
+        self._ax.set_ylabel(names[1])
+        self._show(force_full=new_region)
+
+    @guarded("redraw")
+    def _show(self, force_full=False):
+        tree = self.tree
+        upto = min(self.doublings, int(self.info["tree_depth"][0]))
+        self._tree_draw.coords = tuple(self.coords)
+        self._tree_draw.metric = self._metric()
+        self._tree_draw.update(tree, upto=upto)
+        self._energy.update(tree, upto=upto)
+        static = (self._grids.key, tuple(self.coords), self.xlim, self.ylim,
+                  tuple(self._ax_err.get_xlim()))
+        full = force_full or static != getattr(self, "_static_key", None)
+        self._static_key = static
+        self._readout.value = self._readout_html(upto)
+        self.clear_status()
+        if self._fixed_note:
+            self.status = self._fixed_note
+        self.redraw(full=full)
+
+    def _readout_html(self, upto):
+        t = tree_rows(self.tree)
+        info = self.info
+        depth = t["depth"]
+        n_leap = int(info["n_leapfrog"][0])
+        arrows = " ".join("\u2192" if d > 0 else "\u2190" for d in t["directions"])
+        if bool(info["divergent"][0]):
+            why = ("<b style='color:#a33'>divergent</b> subtree (|&Delta;H| &gt; "
+                   f"{number(self.max_energy_error)}): abandoned, the tree stopped")
+        elif bool(info["turned"][0]):
+            where = "the whole trajectory" if t["turn_whole"] else "a subtree"
+            why = f"U-turn in {where}"
+        elif bool(info["depth_limit_hit"][0]):
+            why = (f"<b style='color:#a33'>depth limit</b> ({self.max_depth} doublings) before "
+                   "any U-turn")
+        else:
+            why = "stopped"
+        s, r = t["start"], t["selected"]
+        moved = r - s
+        where = ("stayed at the start" if moved == 0 else
+                 f"moved {plural(abs(moved), 'step')} {'forward' if moved > 0 else 'backward'}")
+        shown = "" if upto >= depth else f" | showing {upto} of {depth} doublings"
+        lines = [f"step size {number(self.step_size)} | depth {depth} of {self.max_depth} "
+                 f"({arrows}) | {plural(n_leap, 'leapfrog step')} | {why}{shown}",
+                 f"{where} (chance {number(t['selection_prob'][r], 3)}) | acceptance statistic "
+                 f"{number(float(info['accept_prob'][0]), 3)}"]
+        return ("<span style='font-family:monospace'>" + "<br>".join(lines) + "</span>")
+
+    # ---------------------------------------------------------------- mouse
+    # ------------------------------------------------------------- from a run
+    @classmethod
+    def from_run(cls, run, *, draw=-1, chain=0, **kwargs):
+        """Open on one transition of a Run: the one that produced ``run.draws[chain, draw]``.
+
+        The start is the draw before it, and the step size, max depth and mass
+        matrix are the run's (a dense mass matrix: its diagonal). For a NUTS run
+        the transition's momentum and random directions are replayed from the
+        run's seed, so the tree shown is the one the sampler built (the status
+        line says when that is not possible); change ``seed`` for other trees
+        from the same start.
+
+        Parameters
+        ----------
+        run : Run
+            From ``pg.sample``; needs its target and a kernel with a step size.
+        draw : int
+            Index of the draw (>= 1, or negative from the end): transition 0's start is
+            not kept in the run.
+        chain : int
+        **kwargs
+            Any other argument of DoublingView; they win over the run's values.
+        """
+        target, kernel = run_parts(run)
+        x = np.asarray(run.unconstrained)
+        n_chains, n_draws = x.shape[0], x.shape[1]
+        if not isinstance(chain, (int, np.integer)) or not -n_chains <= chain < n_chains:
+            raise ValueError(f"`chain` must be an integer in range({n_chains}), got {chain!r}")
+        if not isinstance(draw, (int, np.integer)) or not -n_draws <= draw < n_draws:
+            raise ValueError(f"`draw` must be an integer in range({n_draws}), got {draw!r}")
+        chain, draw = int(chain) % n_chains, int(draw) % n_draws
+        if draw == 0:
+            raise ValueError("`draw` must be >= 1: the start of the run's first kept transition "
+                             "is not recorded (pick draw=1 or later)")
+        mass, note = mass_from_metric(kernel.metric)
+        args = dict(start=np.array(x[chain, draw - 1], dtype=float),
+                    step_size=float(kernel.step_size), mass_scale=mass)
+        if isinstance(kernel, NUTS):
+            args["max_depth"] = int(kernel.max_depth)
+            args["max_energy_error"] = float(kernel.max_energy_error)
+        args.update(kwargs)
+        if args.get("xlim") is None or args.get("ylim") is None:
+            xlim, ylim = run_region(run, args.get("coords", (0, 1)), args["start"])
+            args["xlim"] = xlim if args.get("xlim") is None else args["xlim"]
+            args["ylim"] = ylim if args.get("ylim") is None else args["ylim"]
+        view = cls(target, **args)
+        replay = _replay(run, kernel, chain, draw) if isinstance(kernel, NUTS) else None
+        same = (replay is not None and "momentum" not in kwargs and "seed" not in kwargs
+                and view.max_depth == kernel.max_depth and view.step_size == kernel.step_size)
+        if same:
+            momentum, uniforms = replay
+            view._fixed = uniforms
+            view._replaying = True
+            try:
+                view.momentum = momentum
+            finally:
+                view._replaying = False
+            hit = np.allclose(view.tree.positions[0, view.tree.selected[0]], x[chain, draw],
+                              rtol=1e-9, atol=1e-12)
+            view._fixed_note = (f"the run's transition to draw {draw} of chain {chain}" if hit
+                                else "the run's transition could not be replayed exactly; this "
+                                     "tree starts from its start with its momentum")
+        else:
+            why = ("the run did not use NUTS" if not isinstance(kernel, NUTS) else
+                   "the knobs given differ from the run's")
+            view._fixed_note = f"a fresh tree from the start of draw {draw} of chain {chain} ({why})"
+        if note:
+            view._fixed_note += "; " + note
+        view.status = view._fixed_note
+        return view
+
+    # ------------------------------------------------------------- settings
+    from_settings = TrajectoryView.__dict__["from_settings"]
+
+    def apply_settings(self, settings):
+        """Restore saved knobs, start and momentum exactly (no fresh momentum draw)."""
+        self._applying = True
+        try:
+            return super().apply_settings(settings)
+        finally:
+            self._applying = False
+
+
+def _replay(run, kernel, chain, draw):
+    """(momentum, uniforms) of transition ``draw`` of ``chain`` from the run's seed, or None."""
+    seed = getattr(run, "seed", None)
+    if seed is None or not isinstance(seed, (int, np.integer)):
+        return None
+    n = int(run.n_warmup) + int(run.first_draw) + int(draw)
+    dim = run.target.dim
+    streams = Streams(int(seed), run.n_chains, shared=kernel.shared_stream)
+    for _ in range(n):  # every NUTS transition takes dim normals and 3 * max_depth uniforms
+        streams.normal(dim)
+        streams.uniform(3 * kernel.max_depth)
+    z = streams.normal(dim)[chain]
+    u = streams.uniform(3 * kernel.max_depth)[chain]
+    return kernel.metric.momentum_from_normal(z[None])[0], u
