@@ -34,6 +34,14 @@ Three questions, each against a goal:
    ``--before DIR`` (a checkout's ``widgets/`` folder, e.g. ``git worktree add /tmp/pg-old
    <commit>``) the same section also runs, in a child process, against that code.
 
+6. Memory (``--memory-only`` runs just this): peak memory of ``pg.sample`` with HMC (one
+   leapfrog step, so the run is quick; the records are those of any kernel), 4 chains x
+   10^5 draws, no warm-up, at dim 20 and dim 2, each in a fresh child process: the rise
+   of ``ru_maxrss`` over the resident size just before sampling. Printed as ratios to the
+   draws array and to the finished Run's own arrays (each distinct buffer counted once).
+   Goals: at dim 20 the peak <= 1.6 x the draws; at dim 2, where the per-transition
+   records outweigh the draws, <= 1.3 x the Run's arrays. ``--before DIR`` measures the
+   same in children importing phaseglass from DIR.
 Each time is the best of several repeats (the minimum is the least noisy estimate of
 the cost on a shared machine). Ratios are given for wall time and, in parentheses,
 for process CPU time, which other processes on a busy machine disturb much less.
@@ -298,19 +306,26 @@ def gibbs_rows(sweeps, repeats):
     return {name: {"ms": (min(v["wall"]), min(v["cpu"])), "evals": v["evals"]} for name, v in out.items()}
 
 
-def _gibbs_before(before, sweeps, repeats):
-    """The same rows measured in a child process that imports phaseglass from ``before``."""
-    env = {**os.environ, "PYTHONPATH": before + os.pathsep + os.environ.get("PYTHONPATH", "")}
-    proc = subprocess.run([sys.executable, os.path.abspath(__file__), "--gibbs-json",
-                           "--sweeps", str(sweeps), "--repeats", str(repeats)],
+def _child_json(args, before=None):
+    """Run this script with ``args`` in a child process (importing phaseglass from
+    ``before`` when given) and return the JSON it prints last."""
+    env = dict(os.environ)
+    if before:
+        env["PYTHONPATH"] = before + os.pathsep + env.get("PYTHONPATH", "")
+    proc = subprocess.run([sys.executable, os.path.abspath(__file__), *args],
                           capture_output=True, text=True, env=env, timeout=3600)
     if proc.returncode != 0:
-        raise SystemExit(f"--before run failed:\n{proc.stderr}")
+        raise SystemExit(f"child run {args} failed:\n{proc.stderr}")
     return json.loads(proc.stdout.strip().splitlines()[-1])
 
 
 def print_gibbs(sweeps, repeats, before=None):
     rows = gibbs_rows(sweeps, repeats)
+def _gibbs_before(before, sweeps, repeats):
+    """The same rows measured in a child process that imports phaseglass from ``before``."""
+    return _child_json(["--gibbs-json", "--sweeps", str(sweeps), "--repeats", str(repeats)], before)
+
+
     old = _gibbs_before(before, sweeps, repeats) if before else None
     print("## Gibbs conditionals: ms per sweep, 4 chains, shift 0.381966\n")
     print("Best of the repeats; wall time, CPU time in parentheses" +
@@ -443,6 +458,69 @@ def print_autodiff(n_calls, repeats):
 
 def machine():
     lines = [f"- machine: {platform.machine()}, {os.cpu_count()} logical CPUs "
+# ------------------------------------------------------------------- 6. memory
+
+def _rss_bytes():
+    """Resident set size now (Linux /proc; 0 elsewhere)."""
+    try:
+        with open("/proc/self/statm") as f:
+            return int(f.read().split()[1]) * os.sysconf("SC_PAGE_SIZE")
+    except (OSError, ValueError):
+        return 0
+
+
+def _run_arrays_bytes(run):
+    """Bytes of the Run's record arrays, each distinct buffer once (views count their base)."""
+    fields = [run.draws, run.unconstrained, *(getattr(run, k) for k in (
+        "accepted", "accept_prob", "energy", "energy_error", "divergent", "n_grad", "u",
+        "step_size")), *run.extras.values()]
+    seen = {}
+    for a in fields:
+        if isinstance(a, np.ndarray):
+            base = a if a.base is None else a.base
+            seen[id(base)] = base.nbytes
+    return sum(seen.values())
+
+
+def memory_case(dim, n_draws):
+    """One measurement in this (fresh) process: bytes of draws, Run arrays and the peak rise."""
+    import resource
+
+    target = pg.demos.correlated_gaussian(dim=dim)
+    kernel = pg.HMC(0.05, 1)
+    pg.sample(target, kernel, n_draws=5, n_chains=4, warmup=0, seed=0)  # first-call costs
+    before = _rss_bytes()
+    run = pg.sample(target, kernel, n_draws=n_draws, n_chains=4, warmup=0, seed=1)
+    peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024  # KiB on Linux
+    return {"dim": dim, "n_draws": n_draws, "draws": run.draws.nbytes,
+            "run": _run_arrays_bytes(run), "peak": peak - before}
+
+
+def _memory_child(dim, n_draws, before=None):
+    return _child_json(["--memory-json", "--dim", str(dim), "--draws", str(n_draws)], before)
+
+
+def print_memory(n_draws, before=None):
+    print(f"## Memory: pg.sample, HMC, 4 chains x {n_draws} draws, no warm-up\n")
+    print("Peak = rise of the process's maximum resident size while sampling (fresh process per "
+          "row)" + (f"; before = phaseglass from {before}." if before else ".") + "\n")
+    print("| code | dim | draws array (MB) | Run's arrays (MB) | Run / draws | peak (MB) "
+          "| peak / draws | peak / Run | goal |")
+    print("|---|---|---|---|---|---|---|---|---|")
+    for label, where in (("now", None), ("before", before)):
+        if label == "before" and not before:
+            continue
+        for dim in (20, 2):
+            r = _memory_child(dim, n_draws, where)
+            goal = "peak / draws <= 1.6" if dim == 20 else "peak / Run <= 1.3"
+            met = (r["peak"] / r["draws"] <= 1.6) if dim == 20 else (r["peak"] / r["run"] <= 1.3)
+            print(f"| {label} | {dim} | {r['draws'] / 1e6:.1f} | {r['run'] / 1e6:.1f} | "
+                  f"{r['run'] / r['draws']:.2f} | {r['peak'] / 1e6:.1f} | "
+                  f"{r['peak'] / r['draws']:.2f} | {r['peak'] / r['run']:.2f} | "
+                  f"{goal}{'' if label == 'before' else (': met' if met else ': MISSED')} |")
+    print()
+
+
              f"(nproc {len(os.sched_getaffinity(0)) if hasattr(os, 'sched_getaffinity') else '?'}), "
              f"Python {platform.python_version()}, numpy {np.__version__}"]
     try:
@@ -469,16 +547,23 @@ def main():
     parser.add_argument("--jax-only", action="store_true", help="only question 4, gradients from JAX")
     parser.add_argument("--gibbs-only", action="store_true", help="only question 5, Gibbs conditionals")
     parser.add_argument("--before", default=None,
-                        help="question 5 also against phaseglass imported from this widgets/ folder")
+                        help="questions 5 and 6 also against phaseglass imported from this widgets/ folder")
     parser.add_argument("--sweeps", type=int, default=None, help=argparse.SUPPRESS)
     parser.add_argument("--repeats", type=int, default=None, help=argparse.SUPPRESS)
     parser.add_argument("--gibbs-json", action="store_true", help=argparse.SUPPRESS)  # for --before
     args = parser.parse_args()
     if args.gibbs_json:
+    parser.add_argument("--memory-only", action="store_true", help="only question 6, memory")
+    parser.add_argument("--memory-json", action="store_true", help=argparse.SUPPRESS)  # a child
+    parser.add_argument("--dim", type=int, default=None, help=argparse.SUPPRESS)
+    parser.add_argument("--draws", type=int, default=None, help=argparse.SUPPRESS)
         print(json.dumps(gibbs_rows(args.sweeps, args.repeats)))
         return
     repeats = 1 if args.quick else 5
     scale = 0.1 if args.quick else 1.0
+    if args.memory_json:
+        print(json.dumps(memory_case(args.dim, args.draws)))
+        return
 
     print("# phaseglass core benchmark\n")
     if args.quick:
@@ -490,6 +575,10 @@ def main():
         return
     gibbs = dict(sweeps=20 if args.quick else 200, repeats=repeats, before=args.before)
     if args.gibbs_only:
+    memory_draws = 10_000 if args.quick else 100_000
+    if args.memory_only:
+        print_memory(memory_draws, args.before)
+        return
         print_gibbs(**gibbs)
         return
 
@@ -539,5 +628,6 @@ def main():
     print_gibbs(**gibbs)
 
 
+    print_memory(memory_draws, args.before)
 if __name__ == "__main__":
     main()

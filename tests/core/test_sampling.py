@@ -100,6 +100,54 @@ def test_stepping_a_sampler_equals_sample():
     assert live.draws.shape == (3, 40, 3)
 
 
+# ------------------------------------------------------------------- memory
+
+
+def test_records_are_compact_and_unbounded_draws_are_one_read_only_array():
+    run = pg.sample(gaussian(), pg.HMC(0.2, 5), n_draws=40, n_chains=3, seed=2, warmup=0)
+    assert run.accepted.dtype == bool and run.divergent.dtype == bool
+    assert run.n_grad.dtype == np.int32
+    assert run.total_grad == 3 * 40 * 5 and type(run.total_grad) is int
+    # no bounds: one array for both scales, not a copy, and read-only so neither changes alone
+    assert run.unconstrained is run.draws
+    assert not run.draws.flags.writeable
+    with pytest.raises(ValueError, match="read-only"):
+        run.draws[0, 0, 0] = 1.0
+    # sized once for n_draws: the draws are the recorder's whole buffer, not a trimmed copy
+    assert run.draws.base is not None and run.draws.base.shape == run.draws.shape
+    # a Sampler stepped on after taking a Run leaves that Run as it was
+    s = pg.Sampler(gaussian(), pg.HMC(0.2, 5), n_chains=2, seed=3)
+    s.step(256)  # exactly the first buffer's size
+    before = s.run
+    kept = before.draws.copy()
+    s.step(10)
+    np.testing.assert_array_equal(before.draws, kept)
+    np.testing.assert_array_equal(s.run.draws[:, :256], kept)
+    # an empty Run (stopped in warm-up) has the same dtypes
+    empty = pg.Sampler(gaussian(), pg.HMC(0.2, 5), n_chains=2, seed=3).run
+    assert empty.n_grad.dtype == np.int32 and empty.divergent.dtype == bool
+
+
+def test_bounded_draws_are_their_own_array():
+    run = pg.sample(gamma_target(), pg.HMC(0.3, 4), n_draws=20, n_chains=2, seed=1, warmup=0)
+    assert run.unconstrained is not run.draws and run.draws.flags.writeable
+    np.testing.assert_allclose(run.draws, np.exp(run.unconstrained))  # lower bound 0: x = exp(z)
+
+
+@pytest.mark.parametrize("kernel", [pg.HMC(0.3, 7), pg.NUTS(0.3, max_depth=4)], ids=["hmc", "nuts"])
+def test_kept_trajectories_stay_within_the_stated_memory(kernel):
+    from phaseglass.core.sampling import trajectory_memory
+
+    t = gaussian()
+    run = pg.sample(t, kernel, n_draws=15, n_chains=3, seed=4, warmup=0, keep_trajectories=True)
+    bound = trajectory_memory(run.kernel, t.dim, 3)
+    sizes = [sum(v.nbytes for v in vars(tr).values() if isinstance(v, np.ndarray))
+             for tr in run.trajectories]
+    assert len(sizes) == 15 and max(sizes) <= bound
+    if isinstance(kernel, pg.HMC):  # fixed length: the bound is the size, less the object
+        assert max(sizes) >= bound - 512 - 3 * 8 * 4  # (divergent, steps, step sizes per chain)
+
+
 def test_capacity_keeps_the_latest_draws_in_order():
     t = gaussian()
     full = pg.Sampler(t, pg.HMC(0.2, 5), n_chains=2, seed=8)

@@ -25,21 +25,40 @@ _START_KEY = 2**32 - 1  # spawn key of the streams that draw random starts
 _MAX_KEPT_DIVERGENCES = 500
 
 
-class _Recorder:
-    """Per-draw records of a batch of chains; a ring buffer when ``capacity`` is set."""
+#: Integer records that count steps or doublings (at most ``MAX_STEPS`` = 2**20 per
+#: transition): kept as int32, which holds them exactly in half the memory.
+_COUNT_RECORDS = frozenset({"n_grad", "n_leapfrog", "tree_depth"})
 
-    def __init__(self, n_chains, capacity=None):
+
+def _record_dtype(name, dtype):
+    """The dtype a record is kept in: int32 for counts, the kernel's own otherwise."""
+    if name in _COUNT_RECORDS and dtype.kind in "iu":
+        return np.dtype(np.int32)
+    return dtype
+
+
+class _Recorder:
+    """Per-draw records of a batch of chains; a ring buffer when ``capacity`` is set.
+
+    Without a ring buffer the arrays are allocated at ``expected`` draws when that is
+    known (``sample`` knows ``n_draws``), so nothing is re-allocated or copied on the
+    way; past that (or when nothing is expected) they double as they fill.
+    """
+
+    def __init__(self, n_chains, capacity=None, expected=None):
         self.n_chains = n_chains
         self.capacity = capacity
+        self.expected = expected
         self.arrays = {}
         self.count = 0
 
     def append(self, record):
         if not self.arrays:
-            size = self.capacity or 256
+            size = self.capacity or self.expected or 256
             for k, v in record.items():
                 v = np.asarray(v)
-                self.arrays[k] = np.empty((self.n_chains, size) + v.shape[1:], dtype=v.dtype)
+                self.arrays[k] = np.empty((self.n_chains, size) + v.shape[1:],
+                                          dtype=_record_dtype(k, v.dtype))
         size = next(iter(self.arrays.values())).shape[1]
         if self.capacity is None and self.count >= size:
             for k, a in self.arrays.items():
@@ -57,11 +76,18 @@ class _Recorder:
         return min(self.count, self.capacity) if self.capacity else self.count
 
     def get(self, name):
-        """Chronological (n_chains, kept, ...) copy of one field."""
+        """Chronological (n_chains, kept, ...) array of one field.
+
+        A full buffer without a ring is handed over as a view, not copied: later
+        appends write past its end (or into a grown copy), never into it. A ring
+        buffer or a partly filled one is copied.
+        """
         a = self.arrays[name]
         if self.capacity and self.count > self.capacity:
             start = self.count % self.capacity
             return np.concatenate([a[:, start:], a[:, :start]], axis=1)
+        if not self.capacity and self.count == a.shape[1]:
+            return a[:, :self.count]
         return a[:, :self.count].copy()
 
 
@@ -197,9 +223,12 @@ class Sampler:
             f"chains {np.flatnonzero(bad).tolist()}; pass `initial` inside the support"
         )
 
-    def reset_records(self):
-        """Forget recorded draws (the chains keep their current state)."""
-        self._records = _Recorder(self.n_chains, self.capacity)
+    def reset_records(self, expected=None):
+        """Forget recorded draws (the chains keep their current state).
+
+        ``expected`` (draws to come, when known) sizes the record arrays once.
+        """
+        self._records = _Recorder(self.n_chains, self.capacity, expected)
         self.trajectories = deque(maxlen=self.capacity) if self.keep_trajectories else None
         self.divergences = deque(maxlen=_MAX_KEPT_DIVERGENCES)
         self.last_trajectory = None
@@ -417,7 +446,10 @@ def sample(target, kernel, initial=None, n_draws=1000, *, n_chains=4, warmup="au
         Defaults to the kernel's own (0.8 for HMC, 0.9 for one-step
         persistent schemes, 0.234 for random walk).
     keep_trajectories : bool
-        Keep every transition's Trajectory in ``run.trajectories``.
+        Keep every transition's Trajectory in ``run.trajectories``: ``n_draws``
+        of them, each at most ``core.sampling.trajectory_memory(kernel, dim, n_chains)`` bytes
+        (for HMC ``n_chains * (n_steps + 1) * (2 * dim + 4) * 8``; NUTS up to
+        ``2**max_depth`` states per chain). A warning gives the total above 1 GiB.
     metric_adaptation : {"diagonal", "dense", None}
     progress : bool
         Print a one-line progress bar (terminal or notebook).
@@ -463,7 +495,7 @@ def sample(target, kernel, initial=None, n_draws=1000, *, n_chains=4, warmup="au
         history = sampler.warm_up(warmup, target_accept=target_accept, metric=metric_adaptation,
                                   progress=progress)
         sampler.keep_trajectories = bool(keep_trajectories)
-        sampler.reset_records()
+        sampler.reset_records(expected=n_draws)
         started = time.perf_counter()
         for i in range(n_draws):
             sampler.step()
@@ -493,13 +525,33 @@ def sample(target, kernel, initial=None, n_draws=1000, *, n_chains=4, warmup="au
 TRAJECTORY_MEMORY_WARNING = 1 << 30
 
 
-def _warn_trajectory_memory(target, kernel, n_draws, n_chains):
+def trajectory_memory(kernel, dim, n_chains):
+    """Upper bound, in bytes, of one transition's kept Trajectory (``keep_trajectories=True``).
+
+    Fixed-length kernels keep ``n_steps + 1`` states per chain: positions and
+    momenta (``dim`` floats each) and four energies, float64. NUTS keeps at most
+    ``2**max_depth`` states per chain (the start and ``2**max_depth - 1`` leapfrog
+    steps), each with a fifth float (its selection probability), a doubling
+    index and a merged flag, plus ``max_depth`` directions per chain. Other
+    kernels keep no trajectory. 512 bytes cover the object itself.
+    """
+    depth = getattr(kernel, "max_depth", None)
+    if depth is not None:
+        states = 2 ** int(depth)
+        per_state = (2 * dim + 5) * 8 + 8 + 1
+        return n_chains * (states * per_state + 8 * int(depth) + 64) + 512
+    if not getattr(kernel, "uses_gradient", False):
+        return 0
     steps = getattr(kernel, "n_steps", 1)
-    # positions and momenta (dim each) plus four energies per leapfrog state, float64
-    per = n_chains * (steps + 1) * (2 * target.dim + 4) * 8 + 512
+    return n_chains * (steps + 1) * (2 * dim + 4) * 8 + 512
+
+
+def _warn_trajectory_memory(target, kernel, n_draws, n_chains):
+    per = trajectory_memory(kernel, target.dim, n_chains)
     total = per * n_draws
     if total > TRAJECTORY_MEMORY_WARNING:
-        warnings.warn(f"keep_trajectories=True will hold about {total / 2**30:.1f} GiB "
+        bound = "at most " if getattr(kernel, "max_depth", None) is not None else "about "
+        warnings.warn(f"keep_trajectories=True will hold {bound}{total / 2**30:.1f} GiB "
                       f"({per / 1024:.1f} KiB per transition x {n_draws} draws); keep fewer draws "
                       f"or leave it off (divergent transitions keep their replays anyway)",
                       UserWarning, stacklevel=3)
