@@ -27,8 +27,46 @@ ESS_PER_CHAIN_LIMIT = 100
 
 _STANDARD = ("accepted", "accept_prob", "energy", "energy_error", "divergent", "n_grad", "u",
              "step_size")
-# dtypes of the standard records a Sampler keeps (float for the others), for a Run with no draws
-_EMPTY_DTYPES = {"accepted": bool, "divergent": bool, "n_grad": np.int32}
+
+
+#: Share of transitions stopped by the tree-depth limit above which a NUTS run is warned about.
+DEPTH_LIMIT_SHARE = 0.10
+_ACCEPTANCE_WORDS = {False: "acceptance", True: "mean acceptance statistic"}
+
+
+def _uses_trees(run):
+    return (run.kernel is not None and hasattr(run.kernel, "max_depth")
+            and "depth_limit_hit" in (run.extras or {}))
+
+
+def _acceptance(run):
+    """(value, words): NUTS's mean acceptance statistic, else the share of moved transitions.
+
+    A NUTS transition almost always moves (it draws from the whole tree), so the
+    share of moves says nothing; the acceptance statistic is what warm-up steers.
+    """
+    if not run.n_draws:
+        return float("nan"), _ACCEPTANCE_WORDS[False]
+    if _uses_trees(run) and run.accept_prob is not None:
+        return float(np.mean(run.accept_prob)), _ACCEPTANCE_WORDS[True]
+    return float(np.mean(run.accepted)), _ACCEPTANCE_WORDS[False]
+
+
+def _depth_warning(run):
+    """The plain-word warning when NUTS trees stop at the depth limit often, or None."""
+    if not _uses_trees(run) or not run.n_draws:
+        return None
+    hit = np.asarray(run.extras["depth_limit_hit"], dtype=bool)
+    share = float(np.mean(hit))
+    if not share > DEPTH_LIMIT_SHARE:
+        return None
+    depth = int(run.kernel.max_depth)
+    return (f"{share:.0%} of transitions ({int(hit.sum())} of {hit.size}) stopped at the maximum "
+            f"tree depth ({depth} doublings, {2 ** depth - 1} leapfrog steps) before the "
+            "trajectory turned back: the sampler cannot take the long trajectories this posterior "
+            "needs, so draws move slowly and cost many gradients. A mass matrix that matches the "
+            "posterior's scales, or a reparameterisation, usually helps more than raising "
+            "max_depth.")
 
 
 class Run:
@@ -39,14 +77,11 @@ class Run:
     draws : ndarray, shape (chain, draw, dim)
         On the user's scale.
     unconstrained : ndarray, shape (chain, draw, dim)
-        The same draws on the sampler's scale. Without bounds the two scales
-        coincide and ``unconstrained is draws``: one array, not a copy, made
-        read-only so that neither can change alone (copy it to edit it).
+        The same draws on the sampler's scale (equal to ``draws`` without bounds).
     accepted, divergent : ndarray of bool, shape (chain, draw)
     accept_prob, energy, energy_error, step_size : ndarray of float, shape (chain, draw)
-    n_grad : ndarray of int32, shape (chain, draw)
-        Gradient evaluations used by each transition (int32 holds every
-        count exactly; sums such as ``total_grad`` are taken in int64).
+    n_grad : ndarray of int, shape (chain, draw)
+        Gradient evaluations used by each transition.
     u : ndarray, shape (chain, draw) or (chain, draw, dim) for Gibbs
         The accept/reject (or driving) uniform used.
     extras : dict of ndarray
@@ -96,15 +131,10 @@ class Run:
             z = np.empty((n_chains, 0, dim))
         records = {k: fields.pop(k) for k in _STANDARD if k in fields}
         for k in _STANDARD:
-            records.setdefault(k, np.empty((n_chains, z.shape[1]), dtype=_EMPTY_DTYPES.get(k, float)))
+            records.setdefault(k, np.empty((n_chains, z.shape[1])))
         if getattr(kernel, "u_per_coordinate", False) and records["u"].ndim == 2:
             records["u"] = np.empty((n_chains, z.shape[1], dim))  # no draws yet
-        if target.bounded:
-            draws = target.to_user(z)
-        else:  # one array for both scales: no copy (read-only, so neither changes alone)
-            draws = z
-            draws.flags.writeable = False
-        return cls(draws, z, records, fields, target=target, kernel=kernel, seed=seed,
+        return cls(target.to_user(z), z, records, fields, target=target, kernel=kernel, seed=seed,
                    trajectories=trajectories, divergences=divergences, first_draw=first_draw,
                    names=target.names)
 
@@ -131,13 +161,14 @@ class Run:
 
     def __repr__(self):
         kname = type(self.kernel).__name__ if self.kernel is not None else "?"
+        rate, what = _acceptance(self)
         if self.n_warmup:
             warm = (f" after {self.n_warmup} warm-up"
                     f"{' (automatic length; warmup=0 switches it off)' if self.warmup_auto else ''}")
         else:
             warm = ", no warm-up"
         return (f"Run({kname}: {self.n_chains} chains x {self.n_draws} draws{warm}, dim={self.dim}, "
-                f"acceptance {np.mean(self.accepted) if self.n_draws else float('nan'):.2f}, "
+                f"{what} {rate:.2f}, "
                 f"{self.n_divergent} divergent, {self.total_grad} gradient evaluations"
                 f"{'; stopped early: ' + self.stopped if self.stopped else ''})")
 
@@ -293,7 +324,7 @@ class Digest:
             "chains": run.n_chains,
             "draws_per_chain": run.n_draws,
             "warmup": run.n_warmup,
-            "acceptance": float(np.mean(run.accepted)) if run.n_draws else np.nan,
+            "acceptance": _acceptance(run)[0],
             "divergences": run.n_divergent,
             "gradient_evaluations": grads,
             "lowest_bulk_ess": min_ess,
@@ -309,6 +340,9 @@ class Digest:
                 "the sampler could not follow the posterior's geometry somewhere; estimates may be biased. "
                 "Try a smaller step size, a better metric or a reparameterisation (e.g. non-centred)."
             )
+        depth = _depth_warning(run)
+        if depth:
+            warnings.append(depth)
         low = [f"chain {i} ({b:.2f})" for i, b in enumerate(bfmi) if np.isfinite(b) and b < EBFMI_LIMIT]
         if low:
             warnings.append(
@@ -407,7 +441,9 @@ class Digest:
         ri = self.run_info
         rows.append("")
         rows.extend(textwrap.wrap(
-            f"{ri['chains']} chains x {ri['draws_per_chain']} draws, acceptance {ri['acceptance']:.3f}, "
+            f"{ri['chains']} chains x {ri['draws_per_chain']} draws, "
+            f"{_ACCEPTANCE_WORDS[bool(ri['kernel'] and ri['kernel'].get('kernel') == 'NUTS')]} "
+            f"{ri['acceptance']:.3f}, "
             f"{ri['divergences']} divergent, {ri['gradient_evaluations']} gradient evaluations, "
             f"ESS per gradient {ri['ess_per_gradient']:.3g}", _TEXT_WIDTH))
         bf = ", ".join("nan" if not np.isfinite(b) else f"{b:.2f}" for b in ri["ebfmi"])
