@@ -27,6 +27,8 @@ ESS_PER_CHAIN_LIMIT = 100
 
 _STANDARD = ("accepted", "accept_prob", "energy", "energy_error", "divergent", "n_grad", "u",
              "step_size")
+# dtypes of the standard records a Sampler keeps (float for the others), for a Run with no draws
+_EMPTY_DTYPES = {"accepted": bool, "divergent": bool, "n_grad": np.int32}
 
 
 #: Share of transitions stopped by the tree-depth limit above which a NUTS run is warned about.
@@ -77,11 +79,14 @@ class Run:
     draws : ndarray, shape (chain, draw, dim)
         On the user's scale.
     unconstrained : ndarray, shape (chain, draw, dim)
-        The same draws on the sampler's scale (equal to ``draws`` without bounds).
+        The same draws on the sampler's scale. Without bounds the two scales
+        coincide and ``unconstrained is draws``: one array, not a copy, made
+        read-only so that neither can change alone (copy it to edit it).
     accepted, divergent : ndarray of bool, shape (chain, draw)
     accept_prob, energy, energy_error, step_size : ndarray of float, shape (chain, draw)
-    n_grad : ndarray of int, shape (chain, draw)
-        Gradient evaluations used by each transition.
+    n_grad : ndarray of int32, shape (chain, draw)
+        Gradient evaluations used by each transition (int32 holds every
+        count exactly; sums such as ``total_grad`` are taken in int64).
     u : ndarray, shape (chain, draw) or (chain, draw, dim) for Gibbs
         The accept/reject (or driving) uniform used.
     extras : dict of ndarray
@@ -131,10 +136,15 @@ class Run:
             z = np.empty((n_chains, 0, dim))
         records = {k: fields.pop(k) for k in _STANDARD if k in fields}
         for k in _STANDARD:
-            records.setdefault(k, np.empty((n_chains, z.shape[1])))
+            records.setdefault(k, np.empty((n_chains, z.shape[1]), dtype=_EMPTY_DTYPES.get(k, float)))
         if getattr(kernel, "u_per_coordinate", False) and records["u"].ndim == 2:
             records["u"] = np.empty((n_chains, z.shape[1], dim))  # no draws yet
-        return cls(target.to_user(z), z, records, fields, target=target, kernel=kernel, seed=seed,
+        if target.bounded:
+            draws = target.to_user(z)
+        else:  # one array for both scales: no copy (read-only, so neither changes alone)
+            draws = z
+            draws.flags.writeable = False
+        return cls(draws, z, records, fields, target=target, kernel=kernel, seed=seed,
                    trajectories=trajectories, divergences=divergences, first_draw=first_draw,
                    names=target.names)
 
