@@ -165,7 +165,7 @@ def test_readout_counts_cells_names_the_best_and_cautions(computed):
     text = computed._readout.value
     assert "9/9</b> cells done" in text
     i, j, _ = computed.best_cell()
-    assert f"step size {STEP_SIZES[j]:.3g}, {N_STEPS[i]} steps" in text
+    assert f"step size {STEP_SIZES[j]:.3g}, {N_STEPS[i]} leapfrog steps" in text
     assert "noisy" in text and "short run" in text
     assert CAUTION in text
 
@@ -178,7 +178,7 @@ def test_clicking_a_cell_opens_a_trajectory_view(computed, fire):
     assert view.step_size == STEP_SIZES[1] and view.n_steps == N_STEPS[2]
     assert view.trajectory.step_size == STEP_SIZES[1]
     assert computed._slot.children[-1] is view
-    assert "step size 0.3, 20 steps" in computed._slot.children[0].value
+    assert "step size 0.3, 20 leapfrog steps" in computed._slot.children[0].value
     again = computed.open_cell(0, 2)
     assert (again.step_size, again.n_steps) == (STEP_SIZES[2], N_STEPS[0])
     assert computed._slot.children[-1] is again
@@ -193,7 +193,8 @@ def test_a_chain_view_opens_with_opens_chain(computed):
     finally:
         computed.opens = "trajectory"
     assert isinstance(view, pg.ChainView)
-    assert (view.step_size, view.n_steps, view.kernel_name) == (0.3, 5, "hmc")
+    assert (view.step_size, view.n_steps, view.kernel_kind) == (0.3, 5, "hmc")
+    assert view.kernel.jitter == 0  # the cell's own kernel: exactly its knobs
     assert view.n_chains == computed.n_chains and view.seed == computed.seed
     assert computed.n_done == 9  # opening is not a settings change
 
@@ -243,7 +244,7 @@ def test_raising_log_density_lands_in_status_and_the_map_recovers(gaussian):
 
 
 def test_persistence_is_a_third_knob_shown_one_slice_at_a_time(gaussian):
-    m = TuningMap(gaussian, kernel="partial", step_sizes=[0.1, 0.3], n_steps=[1, 3],
+    m = TuningMap(gaussian, kernel_kind="partial", step_sizes=[0.1, 0.3], n_steps=[1, 3],
                   persistence=[0.0, 0.9], n_draws=40, n_chains=2, burn_in=5, autorun=False)
     assert m._slice_pick.layout.display is None  # the slice picker is shown
     m.compute(background=False)
@@ -262,19 +263,25 @@ def test_persistence_is_a_third_knob_shown_one_slice_at_a_time(gaussian):
 def test_bad_arguments_are_refused(gaussian):
     with pytest.raises(TypeError, match="must be a phaseglass Target"):
         TuningMap(lambda x: -x @ x)
-    with pytest.raises(ValueError, match="`persistence` is a knob of kernel='partial'"):
+    with pytest.raises(ValueError, match="`persistence` is a knob of kernel_kind 'partial'"):
         TuningMap(gaussian, persistence=[0.5], step_sizes=[0.1], autorun=False)
-    with pytest.raises(ValueError, match="`kernel` must be one of"):
-        TuningMap(gaussian, kernel="nuts", step_sizes=[0.1], autorun=False)
-    with pytest.raises(ValueError, match="one proposal per transition"):
-        TuningMap(gaussian, kernel="walk", n_steps=[1, 2], step_sizes=[0.1], autorun=False)
+    with pytest.raises(ValueError, match="`kernel_kind` must be one of"):
+        TuningMap(gaussian, kernel_kind="gibbs", step_sizes=[0.1], autorun=False)
+    with pytest.raises(ValueError, match="no fixed leapfrog steps"):
+        TuningMap(gaussian, kernel_kind="walk", n_steps=[1, 2], scales=[0.1], autorun=False)
+    with pytest.raises(ValueError, match="`step_sizes` is a knob of kernel_kind"):
+        TuningMap(gaussian, kernel_kind="walk", step_sizes=[0.1], autorun=False)
+    with pytest.raises(traitlets.TraitError, match="`max_depths` must be a list of integers"):
+        TuningMap(gaussian, kernel_kind="nuts", max_depths=[0, 3], step_sizes=[0.1],
+                  autorun=False)
     with pytest.raises(traitlets.TraitError, match="`step_sizes` must be a non-empty list"):
         TuningMap(gaussian, step_sizes=[0.1, -0.2], autorun=False)
     with pytest.raises(traitlets.TraitError, match="`n_draws` must be >= 4"):
         TuningMap(gaussian, step_sizes=[0.1], n_draws=2, autorun=False)
-    m = TuningMap(gaussian, step_sizes=[0.1], n_steps=[2], metric="ESS per gradient",
-                  autorun=False)
-    assert m.quantity == "ESS per gradient"  # `metric=` is an alias of `quantity`
+    with pytest.warns(DeprecationWarning, match="use `quantity`"):
+        m = TuningMap(gaussian, step_sizes=[0.1], n_steps=[2], metric="ESS per gradient",
+                      autorun=False)
+    assert m.quantity == "ESS per gradient"  # `metric=` is the former name of `quantity`
 
 
 def test_save_png_writes_a_picture(computed, tmp_path, blank_fraction):
@@ -286,17 +293,20 @@ def test_save_png_writes_a_picture(computed, tmp_path, blank_fraction):
 
 def test_switching_kernel_keeps_the_knobs_consistent(gaussian):
     m = small_map(gaussian, step_sizes=[0.3, 1.0, 3.0], n_draws=40)
-    m.kernel = "walk"  # a random walk makes one proposal per transition
+    with m.hold_trait_notifications():
+        m.kernel_kind = "walk"  # a random walk makes one proposal per transition
+        m.scales = [0.3, 1.0, 3.0]  # its columns are proposal scales, not step sizes
     assert m.n_steps == [1] and m.values["acceptance"].shape == (1, 3)
+    assert m._ax.get_xlabel() == "proposal scale"
     assert m._ax.get_ylabel() == "proposals per transition"
     m.compute(background=False)
     acc = m.values["acceptance"][0]
     assert np.all(np.diff(acc) < 0)  # larger proposals are accepted less often
     assert np.all(m.values["divergence rate"] == 0)
     view = m.open_cell(0, 1)  # a random walk has no trajectory: a ChainView opens
-    assert isinstance(view, pg.ChainView) and view.kernel_name == "walk"
-    assert view.step_size == 1.0
-    m.kernel = "partial"
+    assert isinstance(view, pg.ChainView) and view.kernel_kind == "walk"
+    assert view.scale == 1.0 and view.kernel.scale == 1.0
+    m.kernel_kind = "partial"
     assert m.persistence == [0.0, 0.8, 0.95]
     assert m.values_all["acceptance"].shape == (3, 1, 3)
     assert m._slice_pick.layout.display is None
@@ -410,12 +420,12 @@ def test_readouts_use_words_and_short_numbers(gaussian):
     m = small_map(gaussian, step_sizes=[0.123456, 0.3], n_steps=[1], n_chains=1)
     m.compute(background=False)
     text = m._readout.value
-    assert "1 step" in text and "1 steps" not in text
+    assert "1 leapfrog step" in text and "1 leapfrog steps" not in text
     assert "1 chain &times;" in text and "1 chains" not in text
     assert "0.123456" not in text  # at most 3 significant digits
     assert "1 chain \u00d7 60 draws per cell" in m._ax.get_title(loc="left")
     view = m.open_cell(0, 0)
-    assert "step size 0.123, 1 step" in m._slot.children[0].value
+    assert "step size 0.123, 1 leapfrog step" in m._slot.children[0].value
     assert view.step_size == 0.123456  # the cell's exact knob, whatever is shown
 
 
@@ -446,3 +456,38 @@ def test_stop_acts_within_one_transition_inside_a_long_cell():
     m.stop()
     assert m.wait(timeout=5.0), "stop() was not honoured inside the cell"
     assert np.isnan(m.values["acceptance"][0, 0])  # the unfinished cell stays blank
+
+
+# ------------------------------------------------------------------ registry names (issue 12)
+
+def test_kernel_keyword_still_works_for_one_release_and_names_kernel_kind(gaussian):
+    with pytest.warns(DeprecationWarning, match="use `kernel_kind`"):
+        m = TuningMap(gaussian, kernel="walk", step_sizes=[0.2, 0.5], n_draws=20, n_chains=1,
+                      autorun=False)
+    # a walk's former "step sizes" were its proposal scales: they become `scales`
+    assert m.kernel_kind == "walk" and m.scales == [0.2, 0.5] and m.step_sizes == []
+    saved = dict(m.settings)
+    saved["kernel"] = saved.pop("kernel_kind")
+    with pytest.warns(DeprecationWarning, match="`kernel_kind`"):
+        again = TuningMap.from_settings(gaussian, saved, autorun=False)
+    assert again.kernel_kind == "walk" and again.scales == [0.2, 0.5]
+
+
+def test_nuts_maps_step_size_against_max_depth(gaussian):
+    from phaseglass.core.registry import kernel_kind
+
+    m = TuningMap(gaussian, kernel_kind="nuts", step_sizes=[0.2, 0.6], max_depths=[1, 4],
+                  n_draws=30, n_chains=2, burn_in=5, autorun=False)
+    assert m.n_steps == [1] and m._ax.get_ylabel() == "max tree depth"
+    m.compute(background=False)
+    assert m.values["acceptance"].shape == (2, 2)
+    assert np.all(np.isfinite(m.values["acceptance"]))
+    # a depth-1 tree is one leapfrog step per transition: far less work than depth 4
+    k1, k4 = (m._cell_kernel(dict(m.settings, kernel_kind="nuts", columns=[0.2], rows=[d],
+                                  slices=[None]), 0, 0, 0) for d in (1, 4))
+    assert isinstance(k1, pg.NUTS) and (k1.max_depth, k4.max_depth) == (1, 4)
+    assert kernel_kind("nuts").title in m._ax.get_title(loc="left")
+    assert "max tree depth 4" in m._readout.value or "max tree depth 1" in m._readout.value
+    view = m.open_cell(1, 0)  # NUTS has no fixed-length trajectory: a ChainView opens
+    assert isinstance(view, pg.ChainView) and view.kernel_kind == "nuts"
+    assert (view.kernel.step_size, view.kernel.max_depth) == (0.2, 4)

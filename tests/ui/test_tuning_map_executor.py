@@ -50,7 +50,7 @@ def test_serial_process_pool_and_dask_cluster_fill_the_same_cells(dask_client):
 
 def test_partial_refresh_slices_and_a_mass_matrix_travel_too():
     target = pg.demos.correlated_gaussian()
-    kw = dict(MAP, kernel="partial", persistence=[0.0, 0.9], step_sizes=[0.3], n_steps=[3],
+    kw = dict(MAP, kernel_kind="partial", persistence=[0.0, 0.9], step_sizes=[0.3], n_steps=[3],
               mass_matrix=pg.Metric([2.0, 0.5]))
     serial = TuningMap(target, **kw).compute(background=False)
     with concurrent.futures.ProcessPoolExecutor(2) as pool:

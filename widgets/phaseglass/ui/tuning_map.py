@@ -10,12 +10,14 @@ import ipywidgets as widgets
 import numpy as np
 import traitlets
 
-from ..core._validate import MAX_STEPS
+from ..core._validate import MAX_STEPS, warn_renamed
 from ..core.compare import (CellAborted, check_executor, pack, run_fixed, run_fixed_portable,
                             submit_packed)
 from ..core.efficiency import ess_per_gradient, evaluation_cost
 from ..core.kernels import HMC, PartialRefreshHMC, RandomWalk
 from ..core.metric import Metric
+from ..core.nuts import MAX_DEPTH_LIMIT, NUTS
+from ..core.registry import KNOB_LABELS, kernel_kind
 from ..core.run import CAUTION
 from ..draw import draw_knob_grid
 from ._base import View, check_range, check_target, guarded, number, plural
@@ -25,7 +27,8 @@ __all__ = ["TuningMap", "measure_cell", "make_cell_kernel", "QUANTITIES"]
 
 #: What a cell can show (the keys of ``TuningMap.values``).
 QUANTITIES = ("acceptance", "divergence rate", "ESS per gradient")
-KERNELS = ("hmc", "partial", "walk")
+#: Kernel kinds a map covers (short names of ``core.registry``).
+KINDS = ("hmc", "partial", "walk", "nuts")
 
 _LABELS = {
     "acceptance": "acceptance (mean acceptance probability)",
@@ -34,12 +37,8 @@ _LABELS = {
 }
 _PROBABILITIES = ("acceptance", "divergence rate")  # shown on a fixed 0..1 colour scale
 _FORMATS = {"acceptance": "{:.2f}", "divergence rate": "{:.2f}", "ESS per gradient": "{:.2g}"}
-_TARGET_ACCEPT = {"hmc": HMC.default_target_accept,
-                  "partial": PartialRefreshHMC.default_target_accept,
-                  "walk": RandomWalk.default_target_accept}
-_KERNEL_TITLES = {"hmc": "HMC", "partial": "HMC with partial momentum refresh",
-                  "walk": "random-walk Metropolis"}
 _DEFAULT_N_STEPS = (1, 2, 4, 8, 16, 32)
+_DEFAULT_MAX_DEPTHS = (2, 4, 6, 8, 10)
 _DEFAULT_PERSISTENCE = (0.0, 0.8, 0.95)
 _DRAW_EVERY = 0.5  # seconds between canvas updates from the background thread
 
@@ -48,31 +47,35 @@ _Aborted = CellAborted  # a cell abandoned because its results are no longer wan
 _POLL = 0.1  # seconds between checks of the stop/abort flags while futures run
 
 
-def make_cell_kernel(kernel, step_size, n_steps, persistence=None, uniform="fresh", metric=None):
+def make_cell_kernel(kind, column, row=1, persistence=None, uniform="fresh", metric=None):
     """The kernel a cell runs: fixed knobs, no jitter, the given mass matrix (identity by default).
 
     Parameters
     ----------
-    kernel : {"hmc", "partial", "walk"}
-    step_size : float
-        Leapfrog step size (the proposal scale for ``"walk"``).
-    n_steps : int
-        Leapfrog steps per transition (ignored by ``"walk"``).
+    kind : {"hmc", "partial", "walk", "nuts"}
+        Kernel kind (short name of ``core.registry``).
+    column : float
+        The column's knob: the step size, or the proposal scale for ``"walk"``.
+    row : int
+        The row's knob: leapfrog steps per transition, NUTS's ``max_depth``
+        (ignored by ``"walk"``: one proposal per transition).
     persistence : float, optional
         Momentum persistence of ``"partial"``.
     uniform : {"fresh", "drifting"}
+        Not used by ``"nuts"``.
     metric : Metric, optional
         Mass matrix of every cell (a random walk's proposal covariance); identity when None.
     """
-    if kernel == "hmc":
+    kind = kernel_kind(kind, among=KINDS).short
+    if kind == "hmc":
         # no step-size jitter: the cell shows exactly its knobs (HMC's default 10% jitter
         # would blur neighbouring columns)
-        return HMC(step_size, n_steps, jitter=0.0, uniform=uniform, metric=metric)
-    if kernel == "partial":
-        return PartialRefreshHMC(step_size, n_steps, persistence, uniform=uniform, metric=metric)
-    if kernel == "walk":
-        return RandomWalk(step_size, uniform=uniform, metric=metric)
-    raise ValueError(f"`kernel` must be one of {KERNELS}, got {kernel!r}")
+        return HMC(column, row, jitter=0.0, uniform=uniform, metric=metric)
+    if kind == "partial":
+        return PartialRefreshHMC(column, row, persistence, uniform=uniform, metric=metric)
+    if kind == "nuts":
+        return NUTS(column, row, metric=metric)
+    return RandomWalk(column, uniform=uniform, metric=metric)
 
 
 def cell_quantities(run):
@@ -141,7 +144,10 @@ class _Job:
 
 
 class TuningMap(View):
-    """A heat map of short runs over step size x leapfrog steps, computed in the background.
+    """A heat map of short runs over two kernel knobs, computed in the background.
+
+    Columns are step sizes (a random walk's proposal scales); rows are leapfrog
+    steps per transition (NUTS: its ``max_depth``, the most doublings).
 
     Each cell is a short run of the chosen kernel with fixed knobs (no warm-up,
     no step-size jitter, identity metric): ``burn_in`` transitions are run and
@@ -154,17 +160,17 @@ class TuningMap(View):
     * ``"acceptance"``: mean acceptance probability,
     * ``"divergence rate"``: share of divergent transitions,
     * ``"ESS per gradient"``: smallest bulk ESS over the coordinates per gradient
-      evaluation (per log-density evaluation for ``kernel="walk"``),
+      evaluation (per log-density evaluation for ``kernel_kind="walk"``),
 
     chosen with the ``quantity`` trait (recolouring, never recomputing). A
     square outlines the best cell: highest ESS per gradient; acceptance closest
-    to the kernel's usual target (0.8 for HMC, 0.9 with partial refresh, 0.234
-    for a random walk); lowest divergence rate. Ties go to the higher ESS per
+    to the kind's target acceptance in ``core.registry`` (0.8 for HMC and NUTS,
+    0.9 with partial refresh, 0.234 for a random walk); lowest divergence rate. Ties go to the higher ESS per
     gradient. Short runs give noisy numbers: use the map to find the region
     worth a closer look, then click a cell to open it in a ``TrajectoryView``
     (or a ``ChainView`` with ``opens="chain"``) below the map.
 
-    With ``kernel="partial"`` the momentum persistence is a third knob: every
+    With ``kernel_kind="partial"`` the momentum persistence is a third knob: every
     value in ``persistence`` is computed, and a dropdown (the
     ``persistence_index`` trait) picks the slice shown. A dropdown rather than
     small multiples keeps every cell large enough to read and click.
@@ -189,24 +195,32 @@ class TuningMap(View):
     Parameters
     ----------
     target : Target
-    kernel : {"hmc", "partial", "walk"}
+    kernel_kind : {"hmc", "partial", "walk", "nuts"}
+        Kernel kind of every cell (short name of ``core.registry``).
+        ``kernel=`` is the deprecated former name (one more release, with a
+        DeprecationWarning; with it, ``step_sizes`` of a walk are taken as ``scales``).
     step_sizes : sequence of float, optional
-        Columns. Default: six values from 1/8 to 4 times the step size a pilot
-        run tunes to an acceptance of 0.8 (for ``"walk"``, around 2.38 sd / sqrt(dim)).
+        Columns of the leapfrog kinds. Default: six values from 1/8 to 4 times the
+        step size a pilot run tunes to an acceptance of 0.8.
+    scales : sequence of float, optional
+        Columns of ``"walk"``: proposal scales; default six values around
+        2.38 sd / sqrt(dim).
     n_steps : sequence of int, optional
-        Rows. Default (1, 2, 4, 8, 16, 32); ``(1,)`` for ``"walk"``.
+        Rows of ``"hmc"`` and ``"partial"``. Default (1, 2, 4, 8, 16, 32); ``(1,)`` for ``"walk"``.
+    max_depths : sequence of int, optional
+        Rows of ``"nuts"``; default (2, 4, 6, 8, 10).
     persistence : sequence of float in [0, 1), optional
-        Only for ``kernel="partial"``; default (0, 0.8, 0.95).
+        Only for ``kernel_kind="partial"``; default (0, 0.8, 0.95).
     n_draws, n_chains, burn_in : int
         Size of every cell's run.
     seed : int
     quantity : {"acceptance", "divergence rate", "ESS per gradient"}
-        (``metric=`` is accepted as an alias; elsewhere phaseglass uses "metric"
-        for the mass matrix, hence the name ``quantity``.)
+        (``metric=`` is its deprecated former name, kept one more release with a
+        DeprecationWarning: "metric" means the mass matrix everywhere else.)
     uniform : {"fresh", "drifting"}
         Source of the accept/reject uniform of every cell's kernel.
     opens : {"trajectory", "chain"}
-        What clicking a cell opens (a random walk always opens a ChainView).
+        What clicking a cell opens (a random walk or NUTS always opens a ChainView).
     persistence_index : int
         Which persistence slice is shown.
     autorun : bool
@@ -221,10 +235,10 @@ class TuningMap(View):
 
     Attributes
     ----------
-    values : dict of str -> ndarray, shape (len(n_steps), len(step_sizes))
+    values : dict of str -> ndarray, shape (n_rows, n_columns)
         Each quantity on the shown slice; NaN for cells not (successfully) computed.
-    values_all : dict of str -> ndarray, shape (n_slices, len(n_steps), len(step_sizes))
-        Every persistence slice (one slice unless ``kernel="partial"``).
+    values_all : dict of str -> ndarray, shape (n_slices, n_rows, n_columns)
+        Every persistence slice (one slice unless ``kernel_kind="partial"``).
     opened : View or None
         The view opened by the latest click.
     figure : matplotlib.figure.Figure
@@ -239,12 +253,17 @@ class TuningMap(View):
     >>> m.quantity = "ESS per gradient"     # recolours, does not recompute
     """
 
-    kernel = traitlets.Enum(KERNELS, "hmc", help="Kernel run in every cell.").tag(setting=True)
+    kernel_kind = traitlets.Enum(KINDS, "hmc", help="Kernel kind of every cell.").tag(setting=True)
     step_sizes = traitlets.List(traitlets.Float(), help="Step sizes (columns).").tag(setting=True)
+    scales = traitlets.List(traitlets.Float(),
+                            help="Proposal scales (columns of kernel_kind 'walk').").tag(setting=True)
     n_steps = traitlets.List(traitlets.Int(), help="Leapfrog steps per transition (rows).").tag(
         setting=True)
+    max_depths = traitlets.List(traitlets.Int(),
+                                help="NUTS max_depth values (rows of kernel_kind 'nuts').").tag(
+        setting=True)
     persistence = traitlets.List(
-        traitlets.Float(), help="Momentum persistence values (kernel 'partial' only)."
+        traitlets.Float(), help="Momentum persistence values (kernel_kind 'partial' only)."
     ).tag(setting=True)
     persistence_index = traitlets.Int(
         0, help="Which persistence value the heat map shows (index into `persistence`)."
@@ -263,14 +282,22 @@ class TuningMap(View):
     opens = traitlets.Enum(("trajectory", "chain"), "trajectory",
                            help="What clicking a cell opens.").tag(setting=True)
 
-    _CONFIG = ("kernel", "step_sizes", "n_steps", "persistence", "n_draws", "n_chains", "burn_in",
-               "seed", "uniform")
+    _CONFIG = ("kernel_kind", "step_sizes", "scales", "n_steps", "max_depths", "persistence",
+               "n_draws", "n_chains", "burn_in", "seed", "uniform")
+    RENAMED_SETTINGS = {"kernel": "kernel_kind"}
 
-    def __init__(self, target, *, kernel="hmc", step_sizes=None, n_steps=None, persistence=None,
-                 n_draws=150, n_chains=4, burn_in=25, seed=0, quantity="acceptance",
-                 uniform="fresh", opens="trajectory", persistence_index=0, autorun=True,
-                 metric=None, mass_matrix=None, executor=None):
+    def __init__(self, target, *, kernel_kind="hmc", step_sizes=None, scales=None, n_steps=None,
+                 max_depths=None, persistence=None, n_draws=150, n_chains=4, burn_in=25, seed=0,
+                 quantity="acceptance", uniform="fresh", opens="trajectory", persistence_index=0,
+                 autorun=True, mass_matrix=None, executor=None, kernel=None, metric=None):
         check_target(target)
+        if kernel is not None:
+            warn_renamed("kernel", "kernel_kind")
+            kernel_kind = kernel
+            if kernel == "walk" and scales is None:  # the former columns of a walk
+                scales, step_sizes = step_sizes, None
+        if kernel_kind not in KINDS:
+            raise ValueError(f"`kernel_kind` must be one of {KINDS}, got {kernel_kind!r}")
         #: Where the cells run (None: here, in the background thread). Not part of ``settings``.
         self.executor = check_executor(executor)
         # pickled once, here, so a target that cannot travel is refused at once
@@ -285,18 +312,22 @@ class TuningMap(View):
                 raise ValueError(str(exc)) from None
         #: Mass matrix of every cell's kernel (None: identity). Not part of ``settings``.
         self.mass_matrix = mass_matrix
-        if kernel not in KERNELS:
-            raise ValueError(f"`kernel` must be one of {KERNELS}, got {kernel!r}")
         if metric is not None:
+            warn_renamed("metric", "quantity")
             if metric not in QUANTITIES:
-                raise ValueError(f"`metric` (alias of `quantity`) must be one of {QUANTITIES}, "
-                                 f"got {metric!r}")
+                raise ValueError(f"`metric` (former name of `quantity`) must be one of "
+                                 f"{QUANTITIES}, got {metric!r}")
             quantity = metric
-        if persistence is not None and kernel != "partial":
-            raise ValueError(f"`persistence` is a knob of kernel='partial', not {kernel!r}")
-        if kernel == "walk" and n_steps is not None and list(n_steps) != [1]:
-            raise ValueError(f"kernel='walk' makes one proposal per transition: `n_steps` must be "
-                             f"None or [1], got {list(n_steps)}")
+        for name, value, kinds in (("persistence", persistence, ("partial",)),
+                                   ("scales", scales, ("walk",)),
+                                   ("max_depths", max_depths, ("nuts",)),
+                                   ("step_sizes", step_sizes, ("hmc", "partial", "nuts"))):
+            if value is not None and kernel_kind not in kinds:
+                raise ValueError(f"`{name}` is a knob of kernel_kind {' or '.join(map(repr, kinds))}, "
+                                 f"not {kernel_kind!r}")
+        if kernel_kind in ("walk", "nuts") and n_steps is not None and list(n_steps) != [1]:
+            raise ValueError(f"kernel_kind={kernel_kind!r} has no fixed leapfrog steps: `n_steps` "
+                             f"must be None or [1], got {list(n_steps)}")
         self.target = target
         self.autorun = bool(autorun)
         self.opened = None
@@ -306,7 +337,7 @@ class TuningMap(View):
         self._config_key = None
         super().__init__(figsize=(7.0, 4.4))
         with self.hold_trait_notifications():
-            self.kernel = kernel
+            self.kernel_kind = kernel_kind
             self.n_draws = n_draws
             self.n_chains = n_chains
             self.burn_in = burn_in
@@ -315,11 +346,15 @@ class TuningMap(View):
             self.uniform = uniform
             self.opens = opens
             self.n_steps = list(n_steps) if n_steps is not None else (
-                [1] if kernel == "walk" else list(_DEFAULT_N_STEPS))
+                [1] if kernel_kind in ("walk", "nuts") else list(_DEFAULT_N_STEPS))
+            self.max_depths = (list(max_depths) if max_depths is not None else
+                               list(_DEFAULT_MAX_DEPTHS) if kernel_kind == "nuts" else [])
             self.persistence = (list(persistence) if persistence is not None else
-                                list(_DEFAULT_PERSISTENCE) if kernel == "partial" else [])
-            self.step_sizes = (list(step_sizes) if step_sizes is not None
-                               else self._default_step_sizes())
+                                list(_DEFAULT_PERSISTENCE) if kernel_kind == "partial" else [])
+            self.scales = (list(scales) if scales is not None else
+                           self._default_columns("walk") if kernel_kind == "walk" else [])
+            self.step_sizes = (list(step_sizes) if step_sizes is not None else
+                               self._default_columns("hmc") if kernel_kind != "walk" else [])
             self.persistence_index = persistence_index
         self._lock_canvas()
         self._build_controls()
@@ -333,13 +368,23 @@ class TuningMap(View):
             self.compute()
 
     # ------------------------------------------------------------ validation
-    @traitlets.validate("step_sizes")
-    def _check_step_sizes(self, proposal):
+    @traitlets.validate("step_sizes", "scales")
+    def _check_columns(self, proposal):
         v = [float(x) for x in proposal["value"]]
-        if not v or not all(np.isfinite(x) and x > 0 for x in v):
+        name = proposal["trait"].name
+        used = (name == "scales") == (self.kernel_kind == "walk")
+        if (used and not v) or not all(np.isfinite(x) and x > 0 for x in v):
             raise traitlets.TraitError(
-                f"`step_sizes` must be a non-empty list of numbers > 0, got {v}")
+                f"`{name}` must be a non-empty list of numbers > 0, got {v}")
         return v
+
+    @traitlets.validate("max_depths")
+    def _check_max_depths(self, proposal):
+        v = list(proposal["value"])
+        if not all(1 <= int(x) <= MAX_DEPTH_LIMIT for x in v):
+            raise traitlets.TraitError(
+                f"`max_depths` must be a list of integers in [1, {MAX_DEPTH_LIMIT}], got {v}")
+        return [int(x) for x in v]
 
     @traitlets.validate("n_steps")
     def _check_n_steps(self, proposal):
@@ -366,7 +411,7 @@ class TuningMap(View):
     @traitlets.validate("persistence_index")
     def _check_index(self, proposal):
         v = proposal["value"]
-        n = len(self.persistence) if self.kernel == "partial" else 1
+        n = len(self.persistence) if self.kernel_kind == "partial" else 1
         if not 0 <= v < max(n, 1):
             raise traitlets.TraitError(
                 f"`persistence_index` must be in range({max(n, 1)}), got {v}")
@@ -386,11 +431,12 @@ class TuningMap(View):
             return None
         return found
 
-    def _default_step_sizes(self):
+    def _default_columns(self, kind):
+        """Six step sizes (or proposal scales for ``"walk"``) around the pilot run's."""
         pilot = self._pilot()
         if pilot is None:
             return _round3(np.geomspace(0.01, 1.0, 6))
-        if self.kernel == "walk":
+        if kind == "walk":
             sd = float(np.median(pilot.sd))
             centre = 2.38 * max(sd, 1e-8) / np.sqrt(self.target.dim)
         else:
@@ -432,7 +478,7 @@ class TuningMap(View):
         ]
 
     def _sync_slice_options(self):
-        if self.kernel == "partial" and self.persistence:
+        if self.kernel_kind == "partial" and self.persistence:
             self._slice_pick.options = [(number(a), k) for k, a in enumerate(self.persistence)]
             self._slice_pick.value = min(self.persistence_index, len(self.persistence) - 1)
             self._slice_pick.layout.display = None
@@ -450,12 +496,20 @@ class TuningMap(View):
     # --------------------------------------------------------------- arrays
     def _slices(self):
         """Persistence of each slice (None when the kernel has no persistence)."""
-        if self.kernel == "partial" and self.persistence:
+        if self.kernel_kind == "partial" and self.persistence:
             return list(self.persistence)
         return [None]
 
+    def _columns(self):
+        """The column knob's values: step sizes, or proposal scales for a random walk."""
+        return list(self.scales if self.kernel_kind == "walk" else self.step_sizes)
+
+    def _rows(self):
+        """The row knob's values: leapfrog steps, or NUTS's max depths."""
+        return list(self.max_depths if self.kernel_kind == "nuts" else self.n_steps)
+
     def _reset_arrays(self):
-        shape = (len(self._slices()), len(self.n_steps), len(self.step_sizes))
+        shape = (len(self._slices()), len(self._rows()), len(self._columns()))
         with self._lock:
             self._arrays = {q: np.full(shape, np.nan) for q in QUANTITIES}
             self._state = np.zeros(shape, dtype=np.int8)  # 0 pending, 1 done, 2 failed
@@ -465,14 +519,14 @@ class TuningMap(View):
 
     @property
     def values(self):
-        """``{quantity: ndarray (len(n_steps), len(step_sizes))}`` of the shown slice (copies)."""
+        """``{quantity: ndarray (n_rows, n_columns)}`` of the shown slice (copies)."""
         with self._lock:
             k = min(self.persistence_index, self._state.shape[0] - 1)
             return {q: a[k].copy() for q, a in self._arrays.items()}
 
     @property
     def values_all(self):
-        """``{quantity: ndarray (n_slices, len(n_steps), len(step_sizes))}`` (copies)."""
+        """``{quantity: ndarray (n_slices, n_rows, n_columns)}`` (copies)."""
         with self._lock:
             return {q: a.copy() for q, a in self._arrays.items()}
 
@@ -518,6 +572,7 @@ class TuningMap(View):
             self._reset_arrays()
         config = {n: getattr(self, n) for n in self._CONFIG}
         config["slices"] = self._slices()
+        config["columns"], config["rows"] = self._columns(), self._rows()
         config["mass_matrix"] = self.mass_matrix
         cells = [tuple(int(c) for c in idx) for idx in np.argwhere(self._pending())]
         # the shown slice first: that is what the user is looking at
@@ -592,7 +647,7 @@ class TuningMap(View):
 
     @staticmethod
     def _cell_kernel(c, k, i, j):
-        return make_cell_kernel(c["kernel"], c["step_sizes"][j], c["n_steps"][i], c["slices"][k],
+        return make_cell_kernel(c["kernel_kind"], c["columns"][j], c["rows"][i], c["slices"][k],
                                 c["uniform"], metric=c.get("mass_matrix"))
 
     def _compute_cell(self, job, k, i, j, initial):
@@ -667,10 +722,20 @@ class TuningMap(View):
 
     @staticmethod
     def _cell_name(c, k, i, j):
-        name = f"step size {number(c['step_sizes'][j], 3)}, {plural(c['n_steps'][i], 'step')}"
+        kind, column, row = c["kernel_kind"], c["columns"][j], c["rows"][i]
+        if kind == "walk":
+            return f"{KNOB_LABELS['scale']} {number(column, 3)}"
+        name = f"{KNOB_LABELS['step_size']} {number(column, 3)}, "
+        name += (f"{KNOB_LABELS['max_depth']} {row}" if kind == "nuts" else
+                 plural(row, "leapfrog step"))
         if c["slices"][k] is not None:
             name += f", persistence {number(c['slices'][k])}"
         return name
+
+    def _shown(self):
+        """Config-like dict of the shown map (for ``_cell_name``)."""
+        return {"kernel_kind": self.kernel_kind, "columns": self._columns(), "rows": self._rows(),
+                "slices": self._slices()}
 
     # -------------------------------------------------------------- settings
     @traitlets.observe(*_CONFIG)
@@ -681,10 +746,17 @@ class TuningMap(View):
     @guarded("settings change")
     def _reconfigure(self):
         # keep the knobs consistent with the kernel (these assignments re-enter here once)
-        if self.kernel == "walk" and self.n_steps != [1]:
-            self.n_steps = [1]  # one proposal per transition
-        if self.kernel == "partial" and not self.persistence:
+        kind = self.kernel_kind
+        if kind in ("walk", "nuts") and self.n_steps != [1]:
+            self.n_steps = [1]  # no fixed number of leapfrog steps
+        if kind == "partial" and not self.persistence:
             self.persistence = list(_DEFAULT_PERSISTENCE)
+        if kind == "nuts" and not self.max_depths:
+            self.max_depths = list(_DEFAULT_MAX_DEPTHS)
+        if kind == "walk" and not self.scales:
+            self.scales = self._default_columns("walk")
+        if kind != "walk" and not self.step_sizes:
+            self.step_sizes = self._default_columns(kind)
         key = self._current_config()
         if key == self._config_key:
             return  # a batch of notifications for one change (hold_trait_notifications)
@@ -726,21 +798,21 @@ class TuningMap(View):
         from .trajectory_view import run_parts
 
         target, kernel = run_parts(run, needs_step_size=False)
-        if isinstance(kernel, PartialRefreshHMC):
-            kind = "partial"
-        elif isinstance(kernel, HMC):
-            kind = "hmc"
-        elif isinstance(kernel, RandomWalk):
-            kind = "walk"
-        else:
-            raise ValueError(f"`run` used a {type(kernel).__name__}; a TuningMap covers HMC, "
-                             "partial-refresh HMC and the random walk")
-        kind = kwargs.pop("kernel", kind)
-        centre = kernel.scale if isinstance(kernel, RandomWalk) else kernel.step_size
-        args = {"kernel": kind, "mass_matrix": kernel.metric,
-                "step_sizes": _round3(float(centre) * 2.0 ** np.arange(-3, 4))}
-        if kind != "walk" and getattr(kernel, "n_steps", None) is not None:
+        try:
+            kind = kernel_kind(kernel, among=KINDS).short
+        except ValueError:
+            titles = ", ".join(kernel_kind(k).title for k in KINDS)
+            raise ValueError(f"`run` used a {type(kernel).__name__}; a TuningMap covers {titles}"
+                             ) from None
+        if kwargs.get("kernel_kind", kind) != kind or kwargs.get("kernel", kind) != kind:
+            raise ValueError(f"`run` used kernel kind {kind!r}: a map from it maps that kind")
+        columns = _round3(float(getattr(kernel, kernel.tuned_knob)) * 2.0 ** np.arange(-3, 4))
+        args = {"kernel_kind": kind, "mass_matrix": kernel.metric,
+                ("scales" if kind == "walk" else "step_sizes"): columns}
+        if kind in ("hmc", "partial"):
             args["n_steps"] = sorted(set(_DEFAULT_N_STEPS) | {int(kernel.n_steps)})
+        if kind == "nuts":
+            args["max_depths"] = sorted(set(_DEFAULT_MAX_DEPTHS) | {int(kernel.max_depth)})
         args.update(kwargs)
         return cls(target, **args)
 
@@ -748,8 +820,11 @@ class TuningMap(View):
     def from_settings(cls, target, settings, *, autorun=True, executor=None):
         """Build a map on ``target`` with saved ``settings`` (from ``map.settings``)."""
         s = cls.checked_settings(settings)
-        if s.get("kernel", "hmc") != "partial":
-            s.pop("persistence", None)
+        kind = s.get("kernel_kind", "hmc")
+        for name, kinds in (("persistence", ("partial",)), ("scales", ("walk",)),
+                            ("max_depths", ("nuts",)), ("step_sizes", ("hmc", "partial", "nuts"))):
+            if kind not in kinds:
+                s.pop(name, None)
         return cls(target, autorun=autorun, executor=executor, **s)
 
     # ---------------------------------------------------------------- figure
@@ -770,8 +845,10 @@ class TuningMap(View):
         canvas.draw = draw
 
     def _labels(self):
-        if self.kernel == "walk":
-            return "proposal scale", "proposals per transition"
+        if self.kernel_kind == "walk":
+            return KNOB_LABELS["scale"], "proposals per transition"
+        if self.kernel_kind == "nuts":
+            return "step size \u03b5", KNOB_LABELS["max_depth"]
         return "step size \u03b5", "leapfrog steps L"
 
     def _build_drawing(self):
@@ -782,14 +859,15 @@ class TuningMap(View):
             q = self.quantity
             x_label, y_label = self._labels()
             self._drawing = draw_knob_grid(
-                self._ax, self.values[q], self.step_sizes, self.n_steps, x_label=x_label,
+                self._ax, self.values[q], self._columns(), self._rows(), x_label=x_label,
                 y_label=y_label, value_label=_LABELS[q], fmt=_FORMATS[q], best=None)
             self._drawing.best.set_label("best cell")
 
     def best_cell(self, quantity=None):
         """``(i, j, value)`` of the best cell of the shown slice, or None when none is done.
 
-        ``i`` indexes ``n_steps`` (rows), ``j`` indexes ``step_sizes`` (columns).
+        ``i`` indexes the rows (``n_steps``, or ``max_depths`` for NUTS), ``j`` the
+        columns (``step_sizes``, or ``scales`` for a random walk).
         """
         q = quantity or self.quantity
         if q not in QUANTITIES:
@@ -802,7 +880,7 @@ class TuningMap(View):
         if q == "ESS per gradient":
             score = value
         elif q == "acceptance":
-            score = -np.abs(value - _TARGET_ACCEPT[self.kernel])
+            score = -np.abs(value - kernel_kind(self.kernel_kind).target_accept)
         else:
             score = -value
         tie = np.nan_to_num(v["ESS per gradient"], nan=-np.inf)
@@ -815,7 +893,7 @@ class TuningMap(View):
         if q == "ESS per gradient":
             return "highest"
         if q == "acceptance":
-            return f"closest to {number(_TARGET_ACCEPT[self.kernel])}"
+            return f"closest to {number(kernel_kind(self.kernel_kind).target_accept)}"
         return "lowest"
 
     def _refresh(self, draw=False, finished=False):
@@ -865,7 +943,7 @@ class TuningMap(View):
             d.colorbar.update_normal(d.image)
 
     def _title(self):
-        title = (f"{_KERNEL_TITLES[self.kernel]}: {plural(self.n_chains, 'chain')} \u00d7 "
+        title = (f"{kernel_kind(self.kernel_kind).title}: {plural(self.n_chains, 'chain')} \u00d7 "
                  f"{plural(self.n_draws, 'draw')} per cell")
         a = self._slices()[min(self.persistence_index, len(self._slices()) - 1)]
         if a is not None:
@@ -885,10 +963,8 @@ class TuningMap(View):
             found = f"best for {html.escape(q)}: none yet"
         else:
             i, j, value = best
-            a = self._slices()[min(self.persistence_index, len(self._slices()) - 1)]
-            where = f"step size {number(self.step_sizes[j], 3)}, {plural(self.n_steps[i], 'step')}"
-            if a is not None:
-                where += f", persistence {number(a)}"
+            where = self._cell_name(self._shown(), min(self.persistence_index,
+                                                       len(self._slices()) - 1), i, j)
             found = (f"best for {html.escape(q)} ({self._rule(q)}): {where} "
                      f"&rarr; {number(value, 3)}")
         caution = (f"Each cell is a short run ({plural(self.n_chains, 'chain')} &times; "
@@ -904,38 +980,36 @@ class TuningMap(View):
         if event.inaxes is not getattr(self, "_ax", None) or event.xdata is None:
             return
         i, j = int(round(event.ydata)), int(round(event.xdata))
-        if 0 <= i < len(self.n_steps) and 0 <= j < len(self.step_sizes):
+        if 0 <= i < len(self._rows()) and 0 <= j < len(self._columns()):
             self.open_cell(i, j)
 
     @guarded("open cell")
     def open_cell(self, i, j):
-        """Open the cell in row ``i`` (``n_steps[i]``), column ``j`` (``step_sizes[j]``).
+        """Open the cell in row ``i`` and column ``j`` (see ``best_cell``).
 
         Shows a ``TrajectoryView`` (or a ``ChainView`` when ``opens="chain"`` or the
-        kernel is a random walk) with the cell's knobs below the map and returns it.
+        kernel is a random walk or NUTS) with the cell's knobs below the map and returns it.
         """
-        if not (0 <= i < len(self.n_steps) and 0 <= j < len(self.step_sizes)):
-            raise IndexError(f"cell ({i}, {j}) is outside the {len(self.n_steps)} x "
-                             f"{len(self.step_sizes)} grid")
-        eps, n_steps = self.step_sizes[j], self.n_steps[i]
+        rows, columns = self._rows(), self._columns()
+        if not (0 <= i < len(rows) and 0 <= j < len(columns)):
+            raise IndexError(f"cell ({i}, {j}) is outside the {len(rows)} x "
+                             f"{len(columns)} grid")
+        column, row = columns[j], rows[i]
         a = self._slices()[min(self.persistence_index, len(self._slices()) - 1)]
         pilot = self._pilot()
         region = {}
         if pilot is not None:  # the cells' own region and starts: no second pilot run
             xlim, ylim = pilot.region((0, 1))
             region = {"xlim": xlim, "ylim": ylim}
-        if self.opens == "chain" or self.kernel == "walk":
+        if self.opens == "chain" or self.kernel_kind in ("walk", "nuts"):
             from .chain_view import ChainView
 
-            kwargs = {"step_size": eps, "n_steps": n_steps, "kernel_name": self.kernel,
-                      "uniform": self.uniform, "seed": self.seed, "n_chains": self.n_chains}
-            if a is not None:
-                kwargs["persistence"] = a
+            # the cell's own kernel (fixed knobs, mass matrix included) sets the view's knobs
+            kwargs = {"kernel": make_cell_kernel(self.kernel_kind, column, row, a, self.uniform,
+                                                 metric=self.mass_matrix),
+                      "seed": self.seed, "n_chains": self.n_chains}
             if pilot is not None:
                 kwargs["initial"] = pilot.initial
-            if self.mass_matrix is not None:  # the cell's own kernel, mass matrix included
-                kwargs["kernel"] = make_cell_kernel(self.kernel, eps, n_steps, a, self.uniform,
-                                                    metric=self.mass_matrix)
             view = ChainView(self.target, **kwargs, **region)
         else:
             from .trajectory_view import TrajectoryView, mass_from_metric
@@ -943,12 +1017,11 @@ class TuningMap(View):
             if pilot is not None:
                 region["start"] = pilot.start()
             mass, note = mass_from_metric(self.mass_matrix)
-            view = TrajectoryView(self.target, step_size=eps, n_steps=n_steps,
+            view = TrajectoryView(self.target, step_size=column, n_steps=row,
                                   persistence=a or 0.0, seed=self.seed, mass_scale=mass, **region)
             if note:
                 view.status = note
-        shown = {"step_sizes": self.step_sizes, "n_steps": self.n_steps, "slices": self._slices()}
-        name = self._cell_name(shown, min(self.persistence_index, len(self._slices()) - 1), i, j)
+        name = self._cell_name(self._shown(), min(self.persistence_index, len(self._slices()) - 1), i, j)
         header = widgets.HTML(
             f"<span style='font-family:monospace'>opened cell: {html.escape(name)}</span>")
         self._slot.children = [header, view]
