@@ -9,6 +9,7 @@ from pathlib import Path
 
 import pytest
 
+import phaseglass as pg
 from phaseglass.cli import SUBCOMMANDS, build_parser, load_model, main
 
 MODELS = textwrap.dedent('''
@@ -103,10 +104,12 @@ def test_model_that_fails_while_sampling_exits_1(model_dir, monkeypatch, capsys)
 
 
 def test_bad_option_values_exit_2(capsys):
-    assert main(["report", "--steps", "0"]) == 2
-    assert "--steps" in capsys.readouterr().err
-    assert main(["report", "--kernel", "nuts"]) == 2
+    assert main(["report", "--n-steps", "0"]) == 2
+    assert "--n-steps" in capsys.readouterr().err
+    assert main(["report", "--kernel", "slice"]) == 2
     assert "invalid choice" in capsys.readouterr().err
+    assert main(["report", "--kernel", "nuts", "--max-depth", "21"]) == 2
+    assert "--max-depth" in capsys.readouterr().err
     assert main(["report", "--coords", "one"]) == 2
     assert "--coords" in capsys.readouterr().err
     assert main([]) == 2
@@ -122,9 +125,12 @@ def test_unknown_coordinate_is_one_line(capsys, tmp_path):
 def test_help_lists_every_option():
     proc = run_cli(["report", "--help"], cwd=None)
     assert proc.returncode == 0
-    for flag in ("--model", "--kernel", "--step-size", "--steps", "--persistence", "--uniform",
-                 "--drift", "--warmup", "--draws", "--chains", "--seed", "--out"):
+    for flag in ("--model", "--kernel", "--step-size", "--scale", "--n-steps", "--max-depth",
+                 "--persistence", "--uniform", "--drift", "--warmup", "--draws", "--chains",
+                 "--seed", "--out"):
         assert flag in proc.stdout
+    assert "--steps " not in proc.stdout  # the former name works but is not advertised
+    assert "random-walk Metropolis" in proc.stdout  # titles from the kernel registry
     top = run_cli(["--help"], cwd=None)
     assert top.returncode == 0 and "report" in top.stdout
     assert "never prove convergence" in " ".join(top.stdout.split())
@@ -148,7 +154,7 @@ def test_load_model_demo_and_module(model_dir, monkeypatch):
 def test_report_end_to_end(model_dir, monkeypatch, capsys, tmp_path):
     monkeypatch.chdir(model_dir)
     out = tmp_path / "rep"
-    code = main(["report", "--model", "pg_cli_models:good", "--kernel", "partial", "--steps", "2",
+    code = main(["report", "--model", "pg_cli_models:good", "--kernel", "partial", "--n-steps", "2",
                  "--uniform", "drifting", "--drift", "0.05", "--draws", "40", "--warmup", "20",
                  "--chains", "2", "--seed", "3", "--no-grid", "--dpi", "30", "--out", str(out)])
     stdout, err = capsys.readouterr()
@@ -158,7 +164,7 @@ def test_report_end_to_end(model_dir, monkeypatch, capsys, tmp_path):
     assert {"report.html", "summary.json", "trajectory.png", "traces.png", "uniforms.png"} <= names
     summary = json.loads((out / "summary.json").read_text())
     s = summary["settings"]
-    assert s["kernel"] == "partial" and s["seed"] == 3 and s["drift"] == 0.05 and s["steps"] == 2
+    assert s["kernel"] == "partial" and s["seed"] == 3 and s["drift"] == 0.05 and s["n_steps"] == 2
     assert summary["kernel_after_warmup"]["kernel"] == "PartialRefreshHMC"
     assert summary["kernel_after_warmup"]["uniform"]["kind"] == "drifting"
     assert summary["command"].startswith("phaseglass report --model pg_cli_models:good")
@@ -180,8 +186,35 @@ def test_irrelevant_knobs_are_noted(tmp_path, capsys):
                  "--draws", "20", "--warmup", "0", "--chains", "2", "--seed", "1",
                  "--dpi", "20", "--quiet", "--out", str(tmp_path)]) == 0
     err = capsys.readouterr().err
-    assert "--steps does not apply to --kernel walk" in err
+    assert "--n-steps applies to --kernel hmc or partial only" in err
     assert "--persistence applies to --kernel partial only" in err
+
+
+def test_kernel_knobs_have_their_own_options():
+    from phaseglass.cli import _build_kernel
+
+    parser = build_parser()
+    kernel, notes = _build_kernel(parser.parse_args(["report", "--kernel", "walk", "--scale", "0.7"]))
+    assert isinstance(kernel, pg.RandomWalk) and kernel.scale == 0.7 and notes == []
+    # the former --steps still sets n_steps
+    kernel, _ = _build_kernel(parser.parse_args(["report", "--steps", "7"]))
+    assert isinstance(kernel, pg.HMC) and kernel.n_steps == 7
+    # a walk's scale given as --step-size (before issue 12) is read, with a note naming --scale
+    kernel, notes = _build_kernel(parser.parse_args(["report", "--kernel", "walk",
+                                                     "--step-size", "0.3"]))
+    assert kernel.scale == 0.3 and any("use --scale" in n for n in notes)
+    kernel, notes = _build_kernel(parser.parse_args(["report", "--kernel", "nuts", "--max-depth",
+                                                     "6", "--step-size", "0.2"]))
+    assert isinstance(kernel, pg.NUTS) and (kernel.step_size, kernel.max_depth) == (0.2, 6)
+    assert notes == []
+
+
+def test_nuts_report_end_to_end(tmp_path, capsys):
+    assert main(["report", *FAST, "--kernel", "nuts", "--max-depth", "4",
+                 "--out", str(tmp_path / "r")]) == 0, capsys.readouterr().err
+    summary = json.loads((tmp_path / "r" / "summary.json").read_text())
+    assert summary["settings"]["max_depth"] == 4
+    assert summary["kernel_after_warmup"]["kernel"] == "NUTS"
 
 
 def test_console_script_is_installed():

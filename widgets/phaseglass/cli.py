@@ -203,17 +203,32 @@ def _coord_pair(text):
 
 # ------------------------------------------------------------------ report
 
-#: Kernel defaults when a knob is not given (the warm-up tunes the step size anyway).
+#: Kernel kinds of ``--kernel`` (short names of ``core.registry``).
+CLI_KINDS = ("hmc", "partial", "walk", "nuts")
+
+#: Knob defaults of each kind when an option is not given (warm-up tunes the
+#: step size or scale anyway).
 KERNEL_DEFAULTS = {
-    "hmc": {"step_size": 0.25, "steps": 10},
-    "partial": {"step_size": 0.15, "steps": 1},
-    "walk": {"step_size": 0.5, "steps": None},
+    "hmc": {"step_size": 0.25, "n_steps": 10},
+    "partial": {"step_size": 0.15, "n_steps": 1, "persistence": 0.9},
+    "walk": {"scale": 0.5},
+    "nuts": {"step_size": 0.25, "max_depth": 10},
 }
+
+#: Each knob's option (the core's argument names as the user types them).
+_FLAGS = {"step_size": "--step-size", "scale": "--scale", "n_steps": "--n-steps",
+          "max_depth": "--max-depth", "persistence": "--persistence", "drift": "--drift"}
 
 
 def _add_report_arguments(p):
     from .core import demos
     from .core._validate import MAX_STEPS
+    from .core.nuts import MAX_DEPTH_LIMIT
+    from .core.registry import kernel_kind
+
+    def applies(knob):
+        kinds = [k for k in CLI_KINDS if knob in KERNEL_DEFAULTS[k]]
+        return ", ".join(f"{KERNEL_DEFAULTS[k][knob]} {k}" for k in kinds)
 
     model = p.add_argument_group("model")
     model.add_argument("--model", default="gaussian", metavar="NAME|MODULE:CALLABLE",
@@ -224,21 +239,31 @@ def _add_report_arguments(p):
                        help="two coordinates (names or indices) for trajectories, paths and the "
                             "first pair (default: the first two)")
     knobs = p.add_argument_group("sampler and knobs")
-    knobs.add_argument("--kernel", choices=("hmc", "partial", "walk"), default="hmc",
-                       help="hmc: fixed-length HMC; partial: HMC with partial momentum refresh; "
-                            "walk: random-walk Metropolis (default: hmc)")
+    knobs.add_argument("--kernel", choices=CLI_KINDS, default="hmc",
+                       help="; ".join(f"{k}: {kernel_kind(k).title}" for k in CLI_KINDS)
+                       + " (default: hmc)")
     knobs.add_argument("--step-size", type=_positive_float, default=None, metavar="EPS",
-                       help="leapfrog step size (walk: proposal scale); the starting value when "
-                            "--warmup > 0 (default: 0.25 hmc, 0.15 partial, 0.5 walk)")
-    knobs.add_argument("--steps", type=_count(1, MAX_STEPS), default=None, metavar="N",
-                       help="leapfrog steps per transition (default: 10 hmc, 1 partial)")
+                       help="leapfrog step size; the starting value when --warmup > 0 "
+                            f"(default: {applies('step_size')})")
+    knobs.add_argument("--scale", type=_positive_float, default=None, metavar="S",
+                       help="the random walk's proposal scale; the starting value when "
+                            f"--warmup > 0 (default: {applies('scale')})")
+    knobs.add_argument("--n-steps", type=_count(1, MAX_STEPS), default=None, metavar="N",
+                       dest="n_steps",
+                       help=f"leapfrog steps per transition (default: {applies('n_steps')})")
+    # the former name, kept working (hidden from --help)
+    knobs.add_argument("--steps", type=_count(1, MAX_STEPS), default=None, dest="n_steps",
+                       help=argparse.SUPPRESS)
+    knobs.add_argument("--max-depth", type=_count(1, MAX_DEPTH_LIMIT), default=None, metavar="D",
+                       help="NUTS: most doublings per transition, at most 2**D - 1 leapfrog steps "
+                            f"(default: {applies('max_depth')})")
     knobs.add_argument("--persistence", type=_fraction, default=None, metavar="A",
-                       help="momentum persistence in [0, 1) for --kernel partial (default: 0.9)")
+                       help=f"momentum persistence in [0, 1) (default: {applies('persistence')})")
     knobs.add_argument("--uniform", choices=("fresh", "drifting"), default="fresh",
                        help="accept/reject uniform: a fresh one per decision, or one that drifts "
                             "so rejections cluster (default: fresh)")
     knobs.add_argument("--drift", type=_positive_float, default=None, metavar="D",
-                       help="change of the drifting uniform per iteration, below 2 (default: 0.03)")
+                       help="change of the drifting uniform per transition, below 2 (default: 0.03)")
     knobs.add_argument("--warmup", type=_count(0), default=300, metavar="N",
                        help="tuning transitions before the kept draws (default: 300)")
     run = p.add_argument_group("run and output")
@@ -260,45 +285,48 @@ def _add_report_arguments(p):
                      help=f"resolution of the PNG figures, {DPI_RANGE[0]} to {DPI_RANGE[1]} "
                           "(default: 90)")
     run.add_argument("--no-grid", action="store_true",
-                     help="skip the step size x steps heat map (saves a few short runs)")
+                     help="skip the step size x leapfrog steps heat map (saves a few short runs)")
     run.add_argument("--gif", action="store_true",
                      help="also write chain.gif, a few transitions of one chain, step by step")
     run.add_argument("--quiet", action="store_true", help="print nothing but errors")
 
 
 def _build_kernel(args):
-    from .core.kernels import HMC, PartialRefreshHMC, RandomWalk
+    from .core.registry import kernel_kind
     from .core.uniforms import DriftingUniform, FreshUniform
 
     notes = []
     kind = args.kernel
-    defaults = KERNEL_DEFAULTS[kind]
-    if args.persistence is not None and kind != "partial":
-        notes.append("--persistence applies to --kernel partial only; ignored")
-    if args.steps is not None and kind == "walk":
-        notes.append("--steps does not apply to --kernel walk; ignored")
+    knobs = dict(KERNEL_DEFAULTS[kind])
+    if kind == "walk" and args.step_size is not None and args.scale is None:
+        # before issue 12 a walk's scale was given as --step-size: read it, say the new name
+        notes.append("--step-size of --kernel walk is its proposal scale: use --scale "
+                     "(read as --scale for now)")
+        args.scale, args.step_size = args.step_size, None
+    for knob in ("step_size", "scale", "n_steps", "max_depth", "persistence"):
+        given = getattr(args, knob)
+        if given is None:
+            continue
+        if knob in knobs:
+            knobs[knob] = given
+        else:
+            kinds = [k for k in CLI_KINDS if knob in KERNEL_DEFAULTS[k]]
+            notes.append(f"{_FLAGS[knob]} applies to --kernel {' or '.join(kinds)} only; ignored")
     if args.drift is not None and args.uniform != "drifting":
         notes.append("--drift applies to --uniform drifting only; ignored")
+    if args.uniform != "fresh" and kind == "nuts":
+        notes.append("--uniform does not apply to --kernel nuts (no accept/reject uniform); "
+                     "ignored")
+    entry = kernel_kind(kind)
     try:
-        uniform = (DriftingUniform(args.drift if args.drift is not None else 0.03)
-                   if args.uniform == "drifting" else FreshUniform())
-        eps = args.step_size if args.step_size is not None else defaults["step_size"]
-        steps = args.steps if args.steps is not None else defaults["steps"]
-        if kind == "hmc":
-            kernel = HMC(eps, steps, uniform=uniform)
-        elif kind == "partial":
-            persistence = args.persistence if args.persistence is not None else 0.9
-            kernel = PartialRefreshHMC(eps, steps, persistence, uniform=uniform)
-        else:
-            kernel = RandomWalk(eps, uniform=uniform)
+        if kind != "nuts":
+            knobs["uniform"] = (DriftingUniform(args.drift if args.drift is not None else 0.03)
+                                if args.uniform == "drifting" else FreshUniform())
+        positional = [knobs.pop(k) for k in entry.positional]
+        kernel = entry.cls(*positional, **knobs)
     except (TypeError, ValueError) as exc:
         raise UsageError(_with_flag(str(exc).splitlines()[0])) from None
     return kernel, notes
-
-
-#: The core's argument names and the options that set them.
-_FLAGS = {"step_size": "--step-size", "scale": "--step-size", "n_steps": "--steps",
-          "persistence": "--persistence", "drift": "--drift"}
 
 
 def _with_flag(message):
@@ -360,8 +388,9 @@ def _run_report(args):
     sampled = time.perf_counter() - started
     settings = {
         "model": args.model, "kernel": args.kernel,
-        "step_size (start of warm-up)": kernel.step_size if hasattr(kernel, "step_size") else kernel.scale,
-        "steps": getattr(kernel, "n_steps", None), "persistence": getattr(kernel, "persistence", None),
+        f"{kernel.tuned_knob} (start of warm-up)": getattr(kernel, kernel.tuned_knob),
+        "n_steps": getattr(kernel, "n_steps", None), "max_depth": getattr(kernel, "max_depth", None),
+        "persistence": getattr(kernel, "persistence", None),
         "uniform": args.uniform,
         "drift": args.drift if args.drift is not None else (0.03 if args.uniform == "drifting" else None),
         "warmup": args.warmup, "draws": args.draws, "chains": args.chains,
