@@ -201,3 +201,42 @@ def test_plan_is_data_and_follows_the_kernel():
     assert {"uniforms", "traces", "autocorrelation", "pairs"} <= set(q.names)
     assert any(f"Fewer than {MIN_ESS_DRAWS} draws per chain" in n for n in q.notes)
     assert any("needs a leapfrog kernel" in n for n in q.notes)
+
+
+def test_a_nuts_report_adds_the_tree_depth_figure(tmp_path):
+    import numpy as np
+
+    from phaseglass.report import decide, render
+
+    # sd 30 with step size 1: a U-turn needs about 94 leapfrog steps, beyond 2**3 - 1 = 7,
+    # so every tree stops at the depth limit
+    wide = pg.Target(lambda x: -0.5 * float(x @ x) / 900.0,
+                     lambda x: -np.asarray(x, dtype=float) / 900.0, dim=2)
+    run = pg.sample(wide, pg.NUTS(1.0, max_depth=3), n_draws=40, n_chains=2, seed=2, warmup=0)
+    p = decide.plan(run, run.summary(), grid=False)
+    assert p.names == [n for n in FIGURE_NAMES if n in p.names]
+    (planned,) = [f for f in p.figures if f.name == "tree_depth"]
+    assert planned.options == {"max_depth": 3}
+    assert "trajectory" not in p.names and any("DoublingView.from_run" in n for n in p.notes)
+    assert "max_depth = 3, i.e. 7 leapfrog steps" in render.caption(planned)
+    fig = render.figure(planned, run)
+    ax, ax_trace = fig.axes[:2]
+    depth = run.extras["tree_depth"]
+    bars, at_limit = ax.patches[:2]  # the histogram (below the limit) and the limit's bar
+    below, edges = bars.get_data().values, bars.get_data().edges
+    limit = at_limit.get_data().values
+    shares = [np.mean(depth == k) for k in (1, 2, 3)]
+    assert np.allclose(edges, [0.5, 1.5, 2.5, 3.5])
+    assert np.allclose(below, shares[:2] + [0.0]) and np.allclose(limit, [0.0, 0.0, shares[2]])
+    assert shares[2] == 1.0
+    for line, row in zip(ax_trace.get_lines()[1:], depth):  # after the limit line: one per chain
+        assert np.array_equal(line.get_ydata(), row)
+    hit = run.extras["depth_limit_hit"]  # a tree may also turn back at its last doubling
+    assert ax.get_title(loc="left") == (f"{np.mean(hit):.0%} of transitions stopped at "
+                                        "max_depth = 3 before turning back")
+    files = write_report(tmp_path, run, grid=False, dpi=30)
+    assert files.figures["tree_depth"].read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    assert any("maximum tree depth" in w for w in files.warnings)
+    # an HMC run has no trees: no tree-depth figure
+    hmc = pg.sample(wide, pg.HMC(1.0, 5), n_draws=20, n_chains=2, seed=1, warmup=0)
+    assert "tree_depth" not in decide.plan(hmc, hmc.summary(), grid=False).names

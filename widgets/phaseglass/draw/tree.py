@@ -8,14 +8,15 @@ from matplotlib.collections import PathCollection
 from matplotlib.lines import Line2D
 from matplotlib.patches import FancyArrowPatch
 from matplotlib.text import Text
-from matplotlib.ticker import FuncFormatter, NullLocator
+from matplotlib.ticker import FuncFormatter, MaxNLocator, NullLocator
 
 from . import style
 from ._base import Drawing, exclude_from_autoscale
 from .trajectory import (_ArrowInView, _check_upto, _energy_ticks, _line_in_view,
                          _plain_number, _SpacedTicks)
 
-__all__ = ["draw_tree", "draw_tree_energy", "tree_rows", "TreeDrawing", "TreeEnergyDrawing"]
+__all__ = ["draw_tree", "draw_tree_energy", "draw_tree_depths", "tree_rows", "TreeDrawing",
+           "TreeEnergyDrawing", "TreeDepthDrawing"]
 
 #: The U-turn: the stretch the criterion looked at (a wide pale band) and its two ends.
 TURN_SPAN = dict(color=style.OKABE_ITO["orange"], linewidth=7.0, alpha=0.35,
@@ -398,3 +399,121 @@ def draw_tree_energy(ax, tree, *, chain=0, upto=None, linthresh=1.0):
     d = TreeEnergyDrawing(ax=ax, error=error, abandoned=gone, divergence=div,
                           thresholds=thresholds, title=title)
     return d.update(tree, chain=chain, upto=upto)
+
+
+# ------------------------------------------------------------------ tree depth of a run
+
+def _depths(data):
+    d = getattr(data, "extras", None)
+    d = d.get("tree_depth") if isinstance(d, dict) else data
+    d = np.asarray(d)
+    if d.ndim == 1:
+        d = d[None, :]
+    if d.ndim != 2:
+        raise ValueError(f"`depth` must have shape (chain, draw), got {d.shape}")
+    return d.astype(int)
+
+
+@dataclass(repr=False, eq=False)
+class TreeDepthDrawing(Drawing):
+    """Returned by ``draw_tree_depths``.
+
+    Attributes
+    ----------
+    ax, ax_trace : Axes
+    bars : StepPatch
+        Share of transitions per tree depth 1..max_depth, chains pooled.
+    at_limit : StepPatch
+        The bar of the limit itself, hatched and in the divergence colour.
+    limit_lines : list of Line2D
+        ``max_depth`` marked on both panels (dash-dot).
+    traces : list of Line2D
+        Depth against draw, one line per chain.
+    title : Text
+        Share of transitions that stopped at the limit.
+    """
+
+    ax: Axes
+    ax_trace: Axes
+    bars: object
+    at_limit: object
+    limit_lines: list
+    traces: list
+    title: Text
+    max_depth: int
+
+    def update(self, depth, hit=None):
+        """Show other depths (and ``hit``, the transitions stopped by the limit) in place."""
+        d = _depths(depth)
+        top = self.max_depth
+        edges = np.arange(0.5, top + 1.5)
+        counts = np.array([np.count_nonzero(d == k) for k in range(1, top + 1)], dtype=float)
+        share = counts / max(d.size, 1)
+        self.bars.set_data(np.where(np.arange(1, top + 1) < top, share, 0.0), edges)
+        self.at_limit.set_data(np.where(np.arange(1, top + 1) == top, share, 0.0), edges)
+        for line, row in zip(self.traces, d):
+            line.set_data(np.arange(row.size), row)
+        if hit is None:
+            share_hit = float(np.mean(d >= top)) if d.size else 0.0
+            self.title.set_text(f"{share_hit:.0%} of transitions reached max_depth = {top}")
+        else:
+            share_hit = float(np.mean(np.asarray(hit, dtype=bool)))
+            self.title.set_text(f"{share_hit:.0%} of transitions stopped at max_depth = {top} "
+                                "before turning back")
+        self.ax.set_xlim(0.4, top + 0.6)
+        self.ax.set_ylim(0.0, max(float(share.max()) if share.size else 0.0, 0.05) * 1.15)
+        self.ax_trace.set_xlim(-0.5, d.shape[1] - 0.5)
+        self.ax_trace.set_ylim(0.5, top + 0.5)
+        return self
+
+
+def draw_tree_depths(ax, ax_trace, depth, max_depth, *, hit=None, max_chains=4):
+    """Tree depth of every NUTS transition: a histogram with the limit marked, and depth per draw.
+
+    Parameters
+    ----------
+    ax, ax_trace : Axes
+        Histogram (share of transitions per depth, chains pooled) and trace panels.
+    depth : Run or array_like, shape (chain, draw)
+        ``run.extras["tree_depth"]`` (or the Run).
+    max_depth : int
+        The kernel's limit, marked on both panels.
+    hit : array_like of bool, shape (chain, draw), optional
+        ``run.extras["depth_limit_hit"]``: the title then counts the trees the limit
+        stopped (a tree can also turn back at its last allowed doubling).
+    max_chains : int
+        Chains drawn in the trace panel.
+
+    Returns
+    -------
+    TreeDepthDrawing
+        ``update(depth)`` reuses the artists.
+    """
+    d = _depths(depth)
+    top = int(max_depth)
+    style.dress(ax)
+    style.dress(ax_trace)
+    empty = (np.zeros(top), np.arange(0.5, top + 1.5))
+    bars = ax.stairs(*empty, fill=True, facecolor=style.OKABE_ITO["sky_blue"], alpha=0.8,
+                     edgecolor=style.OKABE_ITO["blue"], label="tree depth")
+    at_limit = ax.stairs(*empty, fill=True, facecolor=style.OKABE_ITO["vermillion"], alpha=0.55,
+                         edgecolor=style.OKABE_ITO["vermillion"], hatch="//",
+                         label="depth = max_depth")
+    lines = [ax.axvline(top + 0.5, label=f"max_depth = {top}", **style.THRESHOLD),
+             ax_trace.axhline(top, **style.THRESHOLD)]
+    traces = []
+    for i in range(min(d.shape[0], int(max_chains))):
+        kw = style.chain_style(i)
+        (line,) = ax_trace.plot([], [], drawstyle="steps-mid", linewidth=0.9, label=f"chain {i}",
+                                **kw)
+        traces.append(line)
+    ax.set_xlabel("tree depth (doublings)")
+    ax.set_ylabel("share of transitions")
+    ax.xaxis.set_major_locator(MaxNLocator(integer=True))
+    ax_trace.set_xlabel("draw")
+    ax_trace.set_ylabel("tree depth")
+    ax_trace.yaxis.set_major_locator(MaxNLocator(integer=True))
+    title = ax.set_title("", loc="left", fontsize=9)
+    out = TreeDepthDrawing(ax=ax, ax_trace=ax_trace, bars=bars, at_limit=at_limit,
+                           limit_lines=lines, traces=traces, title=title, max_depth=top)
+    return out.update(d, hit)

@@ -14,7 +14,7 @@ from ..core.efficiency import MIN_ESS_DRAWS
 __all__ = ["FIGURE_NAMES", "Planned", "Plan", "plan", "grid_axes", "stream"]
 
 #: PNG files a report may contain, in the order shown (views that do not apply are skipped).
-FIGURE_NAMES = ("trajectory", "divergence", "uniforms", "traces", "autocorrelation",
+FIGURE_NAMES = ("trajectory", "divergence", "uniforms", "tree_depth", "traces", "autocorrelation",
                 "running_ess", "ess_per_gradient", "energy", "pairs", "gibbs", "tuning")
 
 #: Fewer draws per chain than this and the autocorrelation and energy views are left out.
@@ -92,6 +92,12 @@ def _uses_gradient(run):
     return run.kernel is not None and getattr(run.kernel, "uses_gradient", False)
 
 
+def _uses_trees(run):
+    """A no-U-turn run: its kernel has a depth limit and the run recorded tree depths."""
+    return (run.kernel is not None and hasattr(run.kernel, "max_depth")
+            and "tree_depth" in (run.extras or {}))
+
+
 def plan(run, digest, *, coords=None, grid=True, grid_draws=100, animation=False):
     """Decide the figures and notes of a report of ``run`` (see ``write_report``).
 
@@ -112,6 +118,10 @@ def plan(run, digest, *, coords=None, grid=True, grid_draws=100, animation=False
             add("divergence", coords=coords, index=0)
     elif coords is None:
         notes.append("Trajectory, path and pair views need at least two coordinates.")
+    elif _uses_trees(run):
+        notes.append("A no-U-turn transition is a doubling tree, not one fixed-length "
+                     "trajectory: open one with pg.DoublingView.from_run(run, draw=..., "
+                     "chain=...).")
     else:
         notes.append("This kernel makes no leapfrog trajectories, so the trajectory and "
                      "energy-error views are left out.")
@@ -120,6 +130,8 @@ def plan(run, digest, *, coords=None, grid=True, grid_draws=100, animation=False
     elif run.u is not None and run.u.ndim == 3:
         notes.append("Gibbs uniforms drive inverse CDFs rather than accept/reject decisions, "
                      "so the uniform-sequence view is left out.")
+    if _uses_trees(run) and run.n_draws:
+        add("tree_depth", max_depth=int(run.kernel.max_depth))
     shown = list(dict.fromkeys((list(coords) if coords else []) + list(range(run.dim))))
     add("traces", shown=shown)
     if run.n_draws >= MIN_VIEW_DRAWS:

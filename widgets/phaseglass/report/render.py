@@ -28,6 +28,12 @@ _CAPTIONS = {
     "uniforms": "The accept/reject uniform u of chain 0 per iteration: hollow circles are "
                 "rejections, the step line the acceptance probability (u above it means "
                 "rejection). A drifting uniform makes rejections come in runs.",
+    "tree_depth": "Tree depth of every no-U-turn transition: the share of transitions per "
+                  "depth (left, chains pooled; hatched: at the limit max_depth = "
+                  "{max_depth}, i.e. {max_steps} leapfrog steps) and the depth of each draw "
+                  "(right). Trees that stop at the limit were cut short before the trajectory "
+                  "turned back: a mass matrix matching the posterior's scales, or a "
+                  "reparameterisation, usually shortens them.",
     "traces": "Trace of each chain for up to four coordinates; X marks a divergent transition.",
     "autocorrelation": "Autocorrelation against lag, one line per chain.",
     "running_ess": "Bulk ESS of the first n draws per chain as n grows. The dotted line is what "
@@ -54,7 +60,10 @@ ANIMATION_CAPTION = ("A few transitions of one chain: each trajectory grows step
 
 def caption(planned):
     """The caption of a planned figure, in words."""
-    return _CAPTIONS[planned.name].format(**planned.options)
+    options = dict(planned.options)
+    if "max_depth" in options:
+        options["max_steps"] = 2 ** int(options["max_depth"]) - 1
+    return _CAPTIONS[planned.name].format(**options)
 
 
 def figure(planned, run, **computed):
@@ -160,6 +169,19 @@ def figure_uniforms(run):
     draw_uniform_sequence(ax, u, run.accepted[0, :n], prob)
     ax.set_xlabel(f"iteration (chain 0, first {n} draws)")
     legend(ax, loc="upper left", bbox_to_anchor=(1.0, 1.0))
+    return fig
+
+
+def figure_tree_depth(run, max_depth):
+    from ..draw import legend, style
+    from ..draw.tree import draw_tree_depths
+
+    fig = style.new_figure(10.0, 3.6)
+    ax, ax_t = fig.subplots(1, 2, width_ratios=[1.0, 1.6])
+    draw_tree_depths(ax, ax_t, run.extras["tree_depth"], max_depth,
+                     hit=run.extras.get("depth_limit_hit"))
+    legend(ax, loc="upper left")
+    legend(ax_t, loc="lower right", ncols=2)
     return fig
 
 
