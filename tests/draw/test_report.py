@@ -103,6 +103,9 @@ def test_random_walk_report_leaves_out_leapfrog_views(tmp_path):
     assert any("no leapfrog trajectories" in n for n in files.notes)
     html = files.html.read_text()
     assert "no leapfrog trajectories" in html
+    # the kernel table speaks the registry's words: its title, and the scale called a scale
+    assert "(what the draws below used): random-walk Metropolis" in html
+    assert "<td>proposal scale (scale)</td>" in html and "<td>step size" not in html
     # 2 x 40 random-walk draws: ESS far below 100 per chain, so there are warnings to show
     assert files.warnings and files.warnings == run.summary().warnings
     parser = _Collect()
@@ -200,7 +203,7 @@ def test_plan_is_data_and_follows_the_kernel():
     assert not {"trajectory", "running_ess", "ess_per_gradient", "energy", "tuning"} & set(q.names)
     assert {"uniforms", "traces", "autocorrelation", "pairs"} <= set(q.names)
     assert any(f"Fewer than {MIN_ESS_DRAWS} draws per chain" in n for n in q.notes)
-    assert any("needs a leapfrog kernel" in n for n in q.notes)
+    assert any("needs a fixed-length leapfrog kernel" in n for n in q.notes)
 
 
 def test_a_nuts_report_adds_the_tree_depth_figure(tmp_path):

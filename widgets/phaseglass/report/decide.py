@@ -158,6 +158,7 @@ def plan(run, digest, *, coords=None, grid=True, grid_draws=100, animation=False
         step_sizes, steps = grid_axes(run.kernel)
         add("tuning", step_sizes=step_sizes, steps=steps, draws=int(grid_draws))
     elif grid:
-        notes.append("The step size x steps heat map needs a leapfrog kernel.")
+        notes.append("The step size x leapfrog steps heat map needs a fixed-length leapfrog "
+                     "kernel (HMC, with or without partial momentum refresh).")
     return Plan(coords=coords, figures=figures, notes=notes, warnings=list(digest.warnings),
                 animation=bool(animation) and coords is not None)

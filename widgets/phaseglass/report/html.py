@@ -11,6 +11,7 @@ from string import Template
 
 import numpy as np
 
+from ..core.registry import KNOB_LABELS, kernel_kind
 from ..core.run import CAUTION, EBFMI_LIMIT, ESS_PER_CHAIN_LIMIT, RHAT_LIMIT
 from .decide import FIGURE_NAMES
 from .render import ANIMATION_CAPTION
@@ -101,11 +102,17 @@ def _settings(summary):
     rows = [[str(k), _fmt(v)] for k, v in (summary["settings"] or {}).items()]
     if rows:
         parts.append(_table(rows, ["setting", "value"], cls="kv"))
-    kern = summary["kernel_after_warmup"] or {}
+    kern = dict(summary["kernel_after_warmup"] or {})
     if kern:
-        parts.append("<p>Kernel after warm-up (what the draws below used):</p>")
-        parts.append(_table([[str(k), _fmt(v)] for k, v in kern.items()], ["knob", "value"],
-                            cls="kv"))
+        try:  # the registry's title and knob labels; the summary.json key beside each label
+            title = kernel_kind(kern.pop("kernel", None)).title
+        except ValueError:
+            title = None
+        what = f": {_e(title)}" if title else ""
+        parts.append(f"<p>Kernel after warm-up (what the draws below used){what}</p>")
+        rows = [[f"{KNOB_LABELS[k]} ({k})" if k in KNOB_LABELS else str(k), _fmt(v)]
+                for k, v in kern.items()]
+        parts.append(_table(rows, ["knob", "value"], cls="kv"))
     return "\n".join(parts)
 
 
