@@ -33,7 +33,6 @@ Three questions, each against a goal:
    non-vectorised 2-D target. Goals: (a) / (b) <= 3; numeric >= 5 x faster per sweep than before. With
    ``--before DIR`` (a checkout's ``widgets/`` folder, e.g. ``git worktree add /tmp/pg-old
    <commit>``) the same section also runs, in a child process, against that code.
-
 6. Memory (``--memory-only`` runs just this): peak memory of ``pg.sample`` with HMC (one
    leapfrog step, so the run is quick; the records are those of any kernel), 4 chains x
    10^5 draws, no warm-up, at dim 20 and dim 2, each in a fresh child process: the rise
@@ -42,6 +41,12 @@ Three questions, each against a goal:
    Goals: at dim 20 the peak <= 1.6 x the draws; at dim 2, where the per-transition
    records outweigh the draws, <= 1.3 x the Run's arrays. ``--before DIR`` measures the
    same in children importing phaseglass from DIR.
+7. Divergence replays (with ``--memory-only``): ``pg.sample`` with no warm-up and a too-large
+   step size on the centred ``apiaries(n_groups=12)`` (HMC(0.5, 20), 4 chains x 300 draws),
+   where most transitions diverge: sampling time, then the time to read every replay
+   afterwards. Goal: replays cost nothing until read (``--before DIR`` shows what they
+   cost inside sampling before).
+
 Each time is the best of several repeats (the minimum is the least noisy estimate of
 the cost on a shared machine). Ratios are given for wall time and, in parentheses,
 for process CPU time, which other processes on a busy machine disturb much less.
@@ -319,13 +324,13 @@ def _child_json(args, before=None):
     return json.loads(proc.stdout.strip().splitlines()[-1])
 
 
-def print_gibbs(sweeps, repeats, before=None):
-    rows = gibbs_rows(sweeps, repeats)
 def _gibbs_before(before, sweeps, repeats):
     """The same rows measured in a child process that imports phaseglass from ``before``."""
     return _child_json(["--gibbs-json", "--sweeps", str(sweeps), "--repeats", str(repeats)], before)
 
 
+def print_gibbs(sweeps, repeats, before=None):
+    rows = gibbs_rows(sweeps, repeats)
     old = _gibbs_before(before, sweeps, repeats) if before else None
     print("## Gibbs conditionals: ms per sweep, 4 chains, shift 0.381966\n")
     print("Best of the repeats; wall time, CPU time in parentheses" +
@@ -456,8 +461,6 @@ def print_autodiff(n_calls, repeats):
     print()
 
 
-def machine():
-    lines = [f"- machine: {platform.machine()}, {os.cpu_count()} logical CPUs "
 # ------------------------------------------------------------------- 6. memory
 
 def _rss_bytes():
@@ -500,6 +503,23 @@ def _memory_child(dim, n_draws, before=None):
     return _child_json(["--memory-json", "--dim", str(dim), "--draws", str(n_draws)], before)
 
 
+def replay_case(repeats):
+    """Seconds to sample a run that diverges often, and to read all its replays afterwards."""
+    target = pg.demos.apiaries("centred", n_groups=12)
+    kernel = pg.HMC(0.5, 20)
+    best, read, n_div = np.inf, np.inf, 0
+    for _ in range(repeats):
+        started = time.perf_counter()
+        run = pg.sample(target, kernel, n_draws=300, n_chains=4, warmup=0, seed=1)
+        mid = time.perf_counter()
+        for _, _, traj in run.divergences:  # integrates each replay (already done before)
+            traj.positions
+        end = time.perf_counter()
+        best, read, n_div = min(best, mid - started), min(read, end - mid), run.n_divergent
+    return {"sample_s": best, "read_s": read, "n_divergent": n_div,
+            "n_transitions": run.n_chains * run.n_draws}
+
+
 def print_memory(n_draws, before=None):
     print(f"## Memory: pg.sample, HMC, 4 chains x {n_draws} draws, no warm-up\n")
     print("Peak = rise of the process's maximum resident size while sampling (fresh process per "
@@ -519,8 +539,23 @@ def print_memory(n_draws, before=None):
                   f"{r['peak'] / r['draws']:.2f} | {r['peak'] / r['run']:.2f} | "
                   f"{goal}{'' if label == 'before' else (': met' if met else ': MISSED')} |")
     print()
+    print("## Divergence replays: centred apiaries-12, HMC(0.5, 20), 4 x 300 draws, no warm-up\n")
+    print("| code | divergent transitions | sample (s) | reading every replay afterwards (s) |")
+    print("|---|---|---|---|")
+    rows = [("now", _child_json(["--replay-json"]))]
+    if before:
+        rows.append(("before", _child_json(["--replay-json"], before)))
+    for label, r in rows:
+        print(f"| {label} | {r['n_divergent']} of {r['n_transitions']} | {r['sample_s']:.2f} | "
+              f"{r['read_s']:.2f} |")
+    if before:
+        print(f"\nSampling now takes {rows[0][1]['sample_s'] / rows[1][1]['sample_s']:.2f} x the "
+              f"time it took before (replays deferred until read).")
+    print()
 
 
+def machine():
+    lines = [f"- machine: {platform.machine()}, {os.cpu_count()} logical CPUs "
              f"(nproc {len(os.sched_getaffinity(0)) if hasattr(os, 'sched_getaffinity') else '?'}), "
              f"Python {platform.python_version()}, numpy {np.__version__}"]
     try:
@@ -551,19 +586,24 @@ def main():
     parser.add_argument("--sweeps", type=int, default=None, help=argparse.SUPPRESS)
     parser.add_argument("--repeats", type=int, default=None, help=argparse.SUPPRESS)
     parser.add_argument("--gibbs-json", action="store_true", help=argparse.SUPPRESS)  # for --before
-    args = parser.parse_args()
-    if args.gibbs_json:
-    parser.add_argument("--memory-only", action="store_true", help="only question 6, memory")
+    parser.add_argument("--memory-only", action="store_true",
+                        help="only questions 6 and 7, memory and divergence replays")
     parser.add_argument("--memory-json", action="store_true", help=argparse.SUPPRESS)  # a child
     parser.add_argument("--dim", type=int, default=None, help=argparse.SUPPRESS)
     parser.add_argument("--draws", type=int, default=None, help=argparse.SUPPRESS)
+    parser.add_argument("--replay-json", action="store_true", help=argparse.SUPPRESS)  # a child
+    args = parser.parse_args()
+    if args.gibbs_json:
         print(json.dumps(gibbs_rows(args.sweeps, args.repeats)))
         return
-    repeats = 1 if args.quick else 5
-    scale = 0.1 if args.quick else 1.0
     if args.memory_json:
         print(json.dumps(memory_case(args.dim, args.draws)))
         return
+    if args.replay_json:
+        print(json.dumps(replay_case(3)))
+        return
+    repeats = 1 if args.quick else 5
+    scale = 0.1 if args.quick else 1.0
 
     print("# phaseglass core benchmark\n")
     if args.quick:
@@ -573,12 +613,12 @@ def main():
     if args.jax_only:
         print_autodiff(n_calls=30 if args.quick else 300, repeats=repeats)
         return
-    gibbs = dict(sweeps=20 if args.quick else 200, repeats=repeats, before=args.before)
-    if args.gibbs_only:
     memory_draws = 10_000 if args.quick else 100_000
     if args.memory_only:
         print_memory(memory_draws, args.before)
         return
+    gibbs = dict(sweeps=20 if args.quick else 200, repeats=repeats, before=args.before)
+    if args.gibbs_only:
         print_gibbs(**gibbs)
         return
 
@@ -626,8 +666,8 @@ def main():
 
     print_autodiff(n_calls=30 if args.quick else 300, repeats=repeats)
     print_gibbs(**gibbs)
-
-
     print_memory(memory_draws, args.before)
+
+
 if __name__ == "__main__":
     main()

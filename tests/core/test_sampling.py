@@ -308,6 +308,77 @@ def test_auto_warmup_length_follows_n_draws_within_bounds():
 # ------------------------------------------------------------------- divergences, digest
 
 
+def funnel(dim=4):
+    """Neal's funnel, log p = N(v; 0, 3) + sum_i N(x_i; 0, exp(v / 2)): diverges at large steps."""
+    def value_and_grad(x):
+        v, z = x[:, 0], x[:, 1:]
+        s2 = np.exp(v)[:, None]
+        lp = -v ** 2 / 18.0 - 0.5 * np.sum(z ** 2 / s2, axis=1) - 0.5 * (dim - 1) * v
+        gv = -v / 9.0 + 0.5 * np.sum(z ** 2 / s2, axis=1) - 0.5 * (dim - 1)
+        return lp, np.column_stack([gv, -z / s2])
+    return pg.Target(value_and_grad=value_and_grad, dim=dim, vectorized=True)
+
+
+def _assert_same_trajectory(a, b):
+    for field in ("positions", "momenta", "potential", "kinetic", "energy_error"):
+        np.testing.assert_array_equal(getattr(a, field), getattr(b, field), err_msg=field)
+    assert (a.divergence_step, a.step_size, a.n_steps) == (b.divergence_step, b.step_size, b.n_steps)
+
+
+@pytest.mark.parametrize("kernel", [pg.HMC(0.9, 10), pg.PartialRefreshHMC(0.9, 3),
+                                    pg.NUTS(0.9, max_depth=5)], ids=["hmc", "partial", "nuts"])
+def test_divergence_replays_are_integrated_only_when_read_and_never_counted(kernel):
+    t = funnel()
+    pg.Sampler(t, kernel.copy(), n_chains=6, seed=0)  # the target checks its first batch once
+    start = (t.n_density, t.n_grad)
+    lazy_sampler = pg.Sampler(t, kernel.copy(), n_chains=6, seed=2)
+    lazy_sampler.step(60)
+    run = lazy_sampler.run
+    assert run.n_divergent >= 2 and len(run.divergences) == run.n_divergent
+    counted = (t.n_density, t.n_grad)
+    assert not any(d.replayed for d in run.divergences)  # nothing integrated yet
+    assert [(d[0], d[1]) for d in run.divergences] == [(d.chain, d.draw) for d in run.divergences]
+    assert not any(d.replayed for d in run.divergences)  # chain and draw integrate nothing
+    # the same run with every replay integrated right after its transition (as before)
+    s = pg.Sampler(t, kernel.copy(), n_chains=6, seed=2)
+    eager = []
+    for _ in range(60):
+        s.step()
+        eager.extend((c, d, tr) for c, d, tr in list(s.divergences)[len(eager):])
+    assert len(eager) == len(run.divergences)
+    counted_eager = (t.n_density, t.n_grad)
+    for (c, d, tr), lazy in zip(eager, run.divergences):
+        chain, draw, traj = lazy  # unpacking integrates
+        assert lazy.replayed and lazy.trajectory is traj and lazy[2] is traj and len(lazy) == 3
+        assert (chain, draw) == (c, d) and run.divergent[chain, draw] and traj.divergent
+        _assert_same_trajectory(traj, tr)
+    assert (t.n_density, t.n_grad) == counted_eager  # reading replays is not sampling work
+    # nor is integrating them right away: the eager run cost what the lazy one did
+    assert np.subtract(counted_eager, counted).tolist() == np.subtract(counted, start).tolist()
+
+
+def test_divergence_replays_equal_the_transitions_own_trajectories():
+    # keep_trajectories=True keeps the kernel's own integration of every chain; a replay
+    # integrates only the divergent rows again, from the start and momentum it stored
+    t = funnel()
+    kept = pg.sample(t, pg.HMC(0.9, 10), n_draws=60, n_chains=6, seed=5, warmup=0,
+                     keep_trajectories=True)
+    lazy = pg.sample(t, pg.HMC(0.9, 10), n_draws=60, n_chains=6, seed=5, warmup=0)
+    np.testing.assert_array_equal(kept.draws, lazy.draws)
+    assert [(d.chain, d.draw) for d in lazy.divergences] == [(c, d) for c, d, _ in kept.divergences]
+    assert any(sum(d.draw == e.draw for e in lazy.divergences) > 1 for d in lazy.divergences), \
+        "want a transition with several divergent chains (one replay batch)"
+    for replay in lazy.divergences:
+        own = kept.trajectories[replay.draw]
+        c, tr = replay.chain, replay.trajectory
+        assert tr.divergence_step == own.divergence_step[c]
+        for field in ("positions", "momenta", "potential", "kinetic"):
+            # same arithmetic on fewer rows: equal up to rounding in the batched products
+            np.testing.assert_allclose(getattr(tr, field), getattr(own, field)[c], rtol=1e-12,
+                                       atol=1e-12, err_msg=field)
+
+
+
 @pytest.fixture(scope="module")
 def orchard_runs():
     kernel = pg.HMC(0.2, 20)

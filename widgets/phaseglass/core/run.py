@@ -98,7 +98,9 @@ class Run:
     trajectories : list of Trajectory or None
         Batch trajectories per transition when kept.
     divergences : list of (chain, draw, Trajectory)
-        Replays of divergent transitions.
+        Replays of divergent transitions (the latest 500), each a
+        ``core.sampling.DivergenceReplay`` that unpacks and indexes like that
+        tuple and integrates its trajectory only when first read.
     names : tuple of str
     first_draw : int
         Index of the first kept draw (non-zero when a ring buffer dropped old ones).

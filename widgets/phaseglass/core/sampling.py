@@ -18,7 +18,7 @@ from .run import Run
 from .streams import Streams
 from .target import Target
 
-__all__ = ["Sampler", "sample", "auto_warmup"]
+__all__ = ["Sampler", "sample", "auto_warmup", "DivergenceReplay"]
 
 _INIT_TRIES = 100
 _START_KEY = 2**32 - 1  # spawn key of the streams that draw random starts
@@ -127,8 +127,10 @@ class Sampler:
     last_trajectory : Trajectory or None
         The latest batch trajectory when ``step(record=True)`` or
         ``keep_trajectories`` was used.
-    divergences : deque of (chain, draw, Trajectory)
-        A replay of each divergent transition (the latest 500).
+    divergences : deque of DivergenceReplay
+        A replay of each divergent transition (the latest 500), each behaving
+        like the tuple ``(chain, draw, Trajectory)`` and integrated only when
+        its trajectory is first read.
 
     Examples
     --------
@@ -279,8 +281,10 @@ class Sampler:
         return info
 
     def _keep_divergences(self, info, start, start_momentum, traj, replay_steps=None):
-        """Store a replay of each divergent transition (its start and trajectory).
+        """Keep a replay of each divergent transition, to be integrated when first read.
 
+        Only what re-integration needs is stored (start rows, momenta, step sizes,
+        step count, metric and energy limit); see ``DivergenceReplay``.
         ``replay_steps`` (n_chains,), from kernels whose trajectories vary in
         length, gives each chain's number of steps from ``start`` along
         ``start_momentum`` to its divergent state; otherwise the kernel's
@@ -288,33 +292,26 @@ class Sampler:
         """
         draw = self._records.count
         rows = np.flatnonzero(info["divergent"])
-        if traj is None and start_momentum is not None and replay_steps is not None:
-            for chain in rows:
-                q, p = start[chain:chain + 1], start_momentum[chain:chain + 1]
-                steps = max(int(replay_steps[chain]), 1)
-                eps = info["step_size"][chain:chain + 1]
-                with self.target.uncounted(), np.errstate(all="ignore"):  # replays are not sampling
-                    logp, grad = self.target._value_and_grad_rows(q)
-                    res = integrate(self.target, q, p, logp, grad, eps, steps, self.kernel.metric,
-                                    self.kernel.max_energy_error, record=True)
-                one = trajectory_from(res, eps, steps, self.kernel.max_energy_error, True)
-                self.divergences.append((int(chain), draw, one))
+        kernel = self.kernel
+        if traj is not None:  # already integrated (record=True): nothing to defer
+            for r in rows:
+                self.divergences.append(DivergenceReplay(int(r), draw, trajectory=_select(traj, r)))
             return
-        if traj is None and start_momentum is not None:
-            q, p = start[rows], start_momentum[rows]
-            eps = info["step_size"][rows]
-            with self.target.uncounted(), np.errstate(all="ignore"):  # a replay is not sampling work
-                logp, grad = self.target._value_and_grad_rows(q)
-                res = integrate(self.target, q, p, logp, grad, eps, self.kernel.n_steps,
-                                self.kernel.metric, self.kernel.max_energy_error, record=True)
-            traj = trajectory_from(res, eps, self.kernel.n_steps, self.kernel.max_energy_error, False)
-            rows_in_traj = range(len(rows))
-        elif traj is not None:
-            rows_in_traj = rows
-        else:
+        if start_momentum is None:
             return
-        for chain, r in zip(rows, rows_in_traj):
-            self.divergences.append((int(chain), draw, _select(traj, r)))
+        args = (self.target, kernel.metric, kernel.max_energy_error)
+        if replay_steps is not None:  # variable length: each chain on its own, as its own batch
+            for r in rows:
+                one = _ReplayBatch(*args, start[r:r + 1].copy(), start_momentum[r:r + 1].copy(),
+                                   info["step_size"][r:r + 1].copy(),
+                                   max(int(replay_steps[r]), 1), single=True)
+                self.divergences.append(DivergenceReplay(int(r), draw, batch=one, row=0))
+            return
+        # fixed length: the divergent rows of one transition integrate together, as one batch
+        batch = _ReplayBatch(*args, start[rows], start_momentum[rows], info["step_size"][rows],
+                             kernel.n_steps, single=False)
+        for i, r in enumerate(rows):
+            self.divergences.append(DivergenceReplay(int(r), draw, batch=batch, row=i))
 
     # ---------------------------------------------------------------- warm-up
     def warm_up(self, n, *, target_accept=None, metric="diagonal", progress=False):
@@ -386,6 +383,86 @@ class Sampler:
             divergences=list(self.divergences), first_draw=rec.count - rec.kept,
             n_chains=self.n_chains,
         )
+
+
+class _ReplayBatch:
+    """Starts of the divergent transitions of one transition, integrated on first request."""
+
+    __slots__ = ("target", "metric", "max_energy_error", "position", "momentum", "step_size",
+                 "n_steps", "single", "_trajectory")
+
+    def __init__(self, target, metric, max_energy_error, position, momentum, step_size, n_steps,
+                 single):
+        self.target, self.metric, self.max_energy_error = target, metric, max_energy_error
+        self.position, self.momentum, self.step_size = position, momentum, step_size
+        self.n_steps, self.single = int(n_steps), single
+        self._trajectory = None
+
+    def trajectory(self):
+        """The batch (or, with ``single``, one-chain) Trajectory; integrated once, uncounted."""
+        if self._trajectory is None:
+            q, p, eps = self.position, self.momentum, self.step_size
+            with self.target.uncounted(), np.errstate(all="ignore"):  # a replay is not sampling
+                logp, grad = self.target._value_and_grad_rows(q)
+                res = integrate(self.target, q, p, logp, grad, eps, self.n_steps, self.metric,
+                                self.max_energy_error, record=True)
+            self._trajectory = trajectory_from(res, eps, self.n_steps, self.max_energy_error,
+                                               self.single)
+        return self._trajectory
+
+
+class DivergenceReplay:
+    """One divergent transition in ``run.divergences``: ``(chain, draw, trajectory)``.
+
+    It behaves like that tuple (unpacking, indexing, ``len``), but the
+    trajectory is integrated only when first read (``replay.trajectory``,
+    ``replay[2]`` or unpacking), so a run with many divergences costs no
+    gradient evaluations for replays nobody looks at. Until then it holds only
+    what re-integration needs: the start, its momentum, the step size, the step
+    count and references to the target and metric. The divergent rows of one
+    transition are integrated together, exactly as ``pg.leapfrog`` would for
+    that batch, and never counted in ``target.n_grad``. ``chain`` and ``draw``
+    are read without integrating anything; ``replayed`` says whether the
+    trajectory exists yet.
+    """
+
+    __slots__ = ("chain", "draw", "_batch", "_row", "_trajectory")
+
+    def __init__(self, chain, draw, *, trajectory=None, batch=None, row=0):
+        self.chain, self.draw = chain, draw
+        self._trajectory, self._batch, self._row = trajectory, batch, row
+
+    @property
+    def replayed(self):
+        return self._trajectory is not None
+
+    @property
+    def trajectory(self):
+        """The replayed Trajectory of this chain (integrated on first read)."""
+        if self._trajectory is None:
+            traj = self._batch.trajectory()
+            self._trajectory = traj if self._batch.single else _select(traj, self._row)
+            self._batch = None  # the batch's other rows keep it alive as long as they need it
+        return self._trajectory
+
+    def __len__(self):
+        return 3
+
+    def __iter__(self):
+        yield self.chain
+        yield self.draw
+        yield self.trajectory
+
+    def __getitem__(self, index):
+        if index in (0, -3):
+            return self.chain
+        if index in (1, -2):
+            return self.draw
+        return (self.chain, self.draw, self.trajectory)[index]
+
+    def __repr__(self):
+        what = repr(self._trajectory) if self._trajectory is not None else "not replayed yet"
+        return f"DivergenceReplay(chain={self.chain}, draw={self.draw}, {what})"
 
 
 def _select(traj, row):
