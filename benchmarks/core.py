@@ -28,8 +28,9 @@ Three questions, each against a goal:
    Gibbs docstring suggests), (b) a hand-written object whose ``cdf``/``ppf`` call
    ``scipy.special.ndtr``/``ndtri`` (same draws), each also with ``vectorized=True`` (one
    call of the user's function per coordinate for all chains), (c) numeric conditionals
-   (``conditionals=None``), also on ``demos.orchards()`` (dim 9), ``demos.late_returns()``
-   (dim 20, a costly log-density; one sweep, skipped with ``--quick``) and on a
+   (``conditionals=None``), also on ``demos.apiaries(n_groups=12)`` (dim 14),
+   ``demos.late_returns()`` (dim 20, a costly log-density; one sweep, skipped with
+   ``--quick``) and on a
    non-vectorised 2-D target. Goals: (a) / (b) <= 3; numeric >= 5 x faster per sweep than before. With
    ``--before DIR`` (a checkout's ``widgets/`` folder, e.g. ``git worktree add /tmp/pg-old
    <commit>``) the same section also runs, in a child process, against that code.
@@ -286,7 +287,8 @@ def gibbs_rows(sweeps, repeats):
         "box: hand-written ndtr/ndtri, vectorized=True": (box, _hand_truncnorm, sweeps, True),
         "box: numeric": (box, None, max(sweeps // 10, 3)),
         "gaussian, non-vectorised target: numeric": (loop, None, max(sweeps // 40, 2)),
-        "orchards (dim 9): numeric": (pg.demos.orchards(), None, max(sweeps // 40, 2)),
+        "apiaries-12 (dim 14): numeric": (pg.demos.apiaries(n_groups=12), None,
+                                          max(sweeps // 40, 2)),
     }
     if sweeps >= 100:  # a model whose evaluations dominate: ~1.5-9 s per sweep
         cases["late_returns (dim 20, 2000 rows): numeric"] = (pg.demos.late_returns(), None, 1)

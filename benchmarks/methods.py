@@ -51,7 +51,7 @@ import phaseglass as pg  # noqa: E402
 
 MODELS = {
     "gaussian d=10": lambda: pg.demos.correlated_gaussian(dim=10),
-    "orchards (non-centred)": lambda: pg.demos.orchards("noncentred"),
+    "12 apiaries (non-centred)": lambda: pg.demos.get("apiaries-12-noncentred"),
     "glaze ridge": pg.demos.glaze_ridge,
     "late returns": pg.demos.late_returns,
 }

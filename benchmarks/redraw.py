@@ -11,7 +11,7 @@ for the two other views whose knobs act on every move:
 * ``ChainView``: a step-size change redraws the preview of the next transition (chain 0's
   trajectory from its current state, the chains not advanced), glaze ridge, 20 steps;
 * ``DivergenceView``: one step of a divergence replay (``replay_step += 1``) on the centred
-  orchards model, the first divergence of a short HMC run.
+  12-apiary demo (dim 14), the first divergence of a short HMC run.
 
 Both are timed the same way (trait change -> frame handed to ipympl) against the same
 30 ms goal; they have no naive counterpart here.
@@ -189,11 +189,11 @@ def chain_view_preview(repeats):
 
 
 def divergence_replay(repeats):
-    target = pg.demos.orchards("centred")
-    run = pg.sample(target, pg.HMC(0.2, 5), n_draws=300, warmup=200, n_chains=2, seed=1)
+    target = pg.demos.get("apiaries-12")
+    run = pg.sample(target, pg.HMC(0.2, 5), n_draws=300, warmup=200, n_chains=2, seed=3)
     if not run.n_divergent:
-        raise SystemExit("the orchards run had no divergence to replay; change the seed")
-    view = pg.DivergenceView(run, coords=("log_tau", "effect_1"))
+        raise SystemExit("the apiaries-12 run had no divergence to replay; change the seed")
+    view = pg.DivergenceView(run, coords=("log_tau", "apiary[0]"))
     view.figure.canvas.syncing_data_url = False
     tr = view.divergences[0][2]
     steps = int(tr.divergence_step)

@@ -44,12 +44,13 @@ def quad_vg(x):
 # Random points at which each demo's gradient is checked: around the posterior's bulk.
 DEMO_POINTS = {
     "gaussian": lambda rng: rng.standard_normal(2),
-    "orchards": lambda rng: np.r_[rng.uniform(-5, 5), rng.uniform(-1, 2), rng.normal(5, 5, 7)],
-    "orchards-noncentred": lambda rng: np.r_[rng.uniform(-5, 5), rng.uniform(-1, 2), rng.normal(0, 1, 7)],
     "glaze": lambda rng: rng.standard_normal(2),
     "late-returns": lambda rng: rng.normal(0.0, 0.5, 20),
     "apiaries": lambda rng: np.r_[rng.normal(3, 0.3), rng.uniform(-3, 0.5), rng.normal(3, 0.5, 48)],
     "apiaries-noncentred": lambda rng: np.r_[rng.normal(3, 0.3), rng.uniform(-3, 0.5), rng.normal(0, 1, 48)],
+    "apiaries-12": lambda rng: np.r_[rng.normal(3, 0.3), rng.uniform(-3, 0.5), rng.normal(3, 0.5, 12)],
+    "apiaries-12-noncentred": lambda rng: np.r_[rng.normal(3, 0.3), rng.uniform(-3, 0.5),
+                                                rng.normal(0, 1, 12)],
 }
 
 

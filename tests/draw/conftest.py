@@ -72,8 +72,8 @@ def divergent_traj(stiff):
 
 @pytest.fixture(scope="session")
 def funnel_run():
-    """A short centred-orchards run that has divergences (checked)."""
-    run = pg.sample(pg.demos.orchards("centred"), pg.HMC(0.4, 8), n_draws=120, n_chains=3,
+    """A short run on the centred 12-apiary funnel that has divergences (checked)."""
+    run = pg.sample(pg.demos.get("apiaries-12"), pg.HMC(0.1, 8), n_draws=120, n_chains=3,
                     warmup=0, seed=11)
     assert run.n_divergent > 0
     return run

@@ -186,7 +186,7 @@ def test_energy_rejects_a_single_draw(ax):
 
 def test_pair_highlights_divergent_draws(ax, funnel_run):
     run = funnel_run
-    d = draw_pair(ax, run, ("log_tau", "effect_1"))
+    d = draw_pair(ax, run, ("log_tau", "apiary[0]"))
     pts = run.draws[:, :, [1, 2]].reshape(-1, 2)
     div = run.divergent.reshape(-1)
     assert_allclose(d.points.get_xydata(), pts[~div])
@@ -203,12 +203,12 @@ def test_pair_highlights_divergent_draws(ax, funnel_run):
 
 def test_pair_grid_fills_a_figure(funnel_run):
     fig = Figure(figsize=(5, 5), dpi=40)
-    g = draw_pair_grid(fig, funnel_run, ["mu", "log_tau", "effect_1"], bins=10)
+    g = draw_pair_grid(fig, funnel_run, ["mu", "log_tau", "apiary[0]"], bins=10)
     assert g.axes.shape == (3, 3)
     assert set(g.pairs) == {(1, 0), (2, 0), (2, 1)}
     assert len(g.diagonal) == 3
     assert not g.axes[1, 2].get_visible()
-    assert g.pairs[(2, 1)].coords == (1, 2)  # x: log_tau, y: effect_1
+    assert g.pairs[(2, 1)].coords == (1, 2)  # x: log_tau, y: apiary[0]
     vals, edges = g.diagonal[1].get_data().values, g.diagonal[1].get_data().edges
     assert np.sum(vals * np.diff(edges)) == pytest.approx(1.0)
     before = [id(a) for a in g.artists]

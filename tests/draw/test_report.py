@@ -36,12 +36,13 @@ class _Collect(HTMLParser):
 
 @pytest.fixture(scope="module")
 def funnel_report(tmp_path_factory):
-    run = pg.sample(pg.demos.orchards("centred"), pg.HMC(0.4, 8), n_draws=60, n_chains=2,
+    run = pg.sample(pg.demos.get("apiaries-12"), pg.HMC(0.1, 8), n_draws=60, n_chains=2,
                     warmup=0, seed=11)
     assert run.n_divergent > 0
     out = tmp_path_factory.mktemp("report")
-    files = write_report(out, run, settings={"model": "orchards", "draws": 60}, title="orchards",
-                         coords=("log_tau", "effect_1"), grid_draws=30, dpi=40)
+    files = write_report(out, run, settings={"model": "apiaries-12", "draws": 60},
+                         title="apiaries-12", coords=("log_tau", "apiary[0]"), grid_draws=30,
+                         dpi=40)
     return run, files
 
 
@@ -84,7 +85,7 @@ def test_html_parses_and_has_every_section(funnel_report):
 def test_summary_json(funnel_report):
     run, files = funnel_report
     s = json.loads(files.summary.read_text())
-    assert s["settings"] == {"model": "orchards", "draws": 60}
+    assert s["settings"] == {"model": "apiaries-12", "draws": 60}
     assert s["caution"] == CAUTION
     assert s["diagnostics"] == json.loads(json.dumps(run.summary().as_dict(), allow_nan=False))
     assert s["warnings"] and any("divergent" in w for w in s["warnings"])

@@ -20,8 +20,9 @@ def sigma_min(gaussian):
 
 
 @pytest.fixture(scope="session")
-def orchards():
-    return pg.demos.orchards()
+def apiaries():
+    """The small hierarchical demo, centred (12 apiaries, dim 14: mu, log_tau, apiary[0..11])."""
+    return pg.demos.get("apiaries-12")
 
 
 def _fire(figure, ax, name, x, y, button=1):

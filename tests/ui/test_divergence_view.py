@@ -16,15 +16,15 @@ FUNNEL_SETTINGS = dict(n_draws=300, n_chains=2, warmup=0, seed=1)
 
 @pytest.fixture(scope="module")
 def funnel_run():
-    """Centred orchards at a fixed, moderate step size: the funnel makes HMC diverge."""
-    run = pg.sample(pg.demos.orchards("centred"), pg.HMC(0.4, 8), **FUNNEL_SETTINGS)
+    """Centred 12 apiaries at a fixed, moderate step size: the funnel makes HMC diverge."""
+    run = pg.sample(pg.demos.get("apiaries-12"), pg.HMC(0.1, 8), **FUNNEL_SETTINGS)  # 16
     assert run.n_divergent >= 5
     return run
 
 
 @pytest.fixture
 def view(funnel_run):
-    return DivergenceView(funnel_run, coords=("log_tau", "effect_1"))
+    return DivergenceView(funnel_run, coords=("log_tau", "apiary[0]"))
 
 
 def xy(line):
@@ -107,7 +107,7 @@ def test_step_replays_the_trajectory_one_leapfrog_step_at_a_time(view):
 def test_list_and_coordinates_controls(view, funnel_run):
     view._pick_list.value = 2
     assert view.selected == 2 and view.trajectory is view.divergences[2][2]
-    view._x_pick.value = 0  # mu against effect_1
+    view._x_pick.value = 0  # mu against apiary[0]
     assert view.coords == (0, 2)
     tr = view.trajectory
     k = tr.divergence_step
@@ -133,7 +133,7 @@ def test_replay_knob_keeps_typed_steps_and_follows_the_divergence(view):
 
 def test_replay_controls_are_disabled_until_there_is_a_divergence():
     async def main():
-        view = DivergenceView(pg.demos.orchards("centred"), kernel=pg.HMC(0.4, 8), n_draws=300,
+        view = DivergenceView(pg.demos.get("apiaries-12"), kernel=pg.HMC(0.1, 8), n_draws=300,
                               warmup=0, chunk=100, seed=1)
         before = [view._play.disabled, view._step_button.disabled, view._step_slider.disabled,
                   view._replay_knob.box.disabled]
@@ -227,8 +227,8 @@ def test_settings_round_trip_on_a_run(view, funnel_run):
 
 
 def test_a_target_is_sampled_and_settings_reproduce_the_run():
-    target = pg.demos.orchards("centred")
-    view = DivergenceView(target, kernel=pg.HMC(0.35, 8), n_draws=60, warmup=30, seed=4,
+    target = pg.demos.get("apiaries-12")
+    view = DivergenceView(target, kernel=pg.HMC(0.1, 8), n_draws=60, warmup=30, seed=4,
                           background=False)
     assert view.run.n_draws == 60 and view.run.n_warmup == 30 and not view.sampling
     settings = json.loads(json.dumps(view.settings))
@@ -240,7 +240,7 @@ def test_a_target_is_sampled_and_settings_reproduce_the_run():
 
 def test_in_a_running_event_loop_a_target_is_sampled_in_chunks():
     async def main():
-        view = DivergenceView(pg.demos.orchards("centred"), kernel=pg.HMC(0.35, 8), n_draws=40,
+        view = DivergenceView(pg.demos.get("apiaries-12"), kernel=pg.HMC(0.1, 8), n_draws=40,
                               warmup=20, chunk=15, seed=4)
         assert view.sampling and view.run is None  # the cell returns at once
         await view.wait()
@@ -252,23 +252,23 @@ def test_in_a_running_event_loop_a_target_is_sampled_in_chunks():
 
 
 def test_errors_in_user_code_land_in_status(funnel_run):
-    orchards = pg.demos.orchards("centred")
+    apiaries = pg.demos.get("apiaries-12")
     broken = {"on": False}
 
     def log_density(x):
         if broken["on"]:
-            raise FloatingPointError("orchard data file missing")
-        return orchards.log_density(x)
+            raise FloatingPointError("hive weighings file missing")
+        return apiaries.log_density(x)
 
-    flaky = pg.Target(log_density, dim=orchards.dim, vectorized=True, names=orchards.names,
-                      value_and_grad=lambda x: orchards.value_and_grad(x))
-    run = pg.sample(flaky, pg.HMC(0.4, 8), **FUNNEL_SETTINGS)
+    flaky = pg.Target(log_density, dim=apiaries.dim, vectorized=True, names=apiaries.names,
+                      value_and_grad=lambda x: apiaries.value_and_grad(x))
+    run = pg.sample(flaky, pg.HMC(0.1, 8), **FUNNEL_SETTINGS)
     np.testing.assert_array_equal(run.draws, funnel_run.draws)
     view = DivergenceView(run)
     broken["on"] = True
     view.select(2)  # the log-density slice through its start calls the user's function
     assert view.status.startswith("error during selection")
-    assert "orchard data file missing" in view.status
+    assert "hive weighings file missing" in view.status
     broken["on"] = False
     view.select(3)
     assert view.status == "" and view.trajectory is view.divergences[3][2]
@@ -304,8 +304,8 @@ def test_the_readout_gives_the_replayed_steps_energy_error(view):
 # ------------------------------------------------- opening on the ranked pair
 @pytest.fixture(scope="module")
 def warm_funnel_run():
-    """Centred orchards with a short warm-up: diverges in the funnel's neck (small log_tau)."""
-    run = pg.sample(pg.demos.orchards("centred"), pg.HMC(0.4, 8),
+    """Centred 12 apiaries with a short warm-up: diverges in the funnel's neck (small log_tau)."""
+    run = pg.sample(pg.demos.get("apiaries-12"), pg.HMC(0.2, 8),  # 28 divergences
                     **dict(FUNNEL_SETTINGS, warmup=100))
     assert run.n_divergent >= 10
     return run
@@ -331,14 +331,14 @@ def test_opens_on_the_top_ranked_pair_and_says_why(warm_funnel_run):
 
 
 def test_explicit_coords_are_kept(warm_funnel_run):
-    view = DivergenceView(warm_funnel_run, coords=("mu", "effect_2"))
+    view = DivergenceView(warm_funnel_run, coords=("mu", "apiary[1]"))
     assert view.coords == (0, 3)
     assert "differ most" not in view._readout.value
 
 
 def test_a_targets_view_moves_to_the_top_pair_once_sampled():
-    target = pg.demos.orchards("centred")
-    kw = dict(kernel=pg.HMC(0.4, 8), n_draws=300, warmup=100, seed=1, background=False)
+    target = pg.demos.get("apiaries-12")
+    kw = dict(kernel=pg.HMC(0.2, 8), n_draws=300, warmup=100, seed=1, background=False)
     view = DivergenceView(target, **kw)
     assert view.run.n_divergent > 0
     assert view.coords == pg.divergence_ranking(view.run).top_pair
@@ -445,7 +445,7 @@ def test_the_grid_fits_the_column_and_nothing_is_cut(warm_funnel_run, k):
 
 
 def test_the_grid_follows_a_targets_run_once_ranked():
-    view = DivergenceView(pg.demos.orchards("centred"), kernel=pg.HMC(0.4, 8), n_draws=300,
+    view = DivergenceView(pg.demos.get("apiaries-12"), kernel=pg.HMC(0.2, 8), n_draws=300,
                           warmup=100, seed=1, background=False)
     assert not view._grid_toggle.disabled and len(view._ranked_list.options) == 7
     fig = view.pair_grid(2)

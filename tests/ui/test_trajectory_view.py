@@ -160,19 +160,19 @@ def test_contours_are_computed_once_per_region(gaussian):
     assert view.grid_evaluations == n + 1
 
 
-def test_coordinate_pickers_switch_the_slice(orchards):
-    start = np.zeros(orchards.dim)
-    view = pg.TrajectoryView(orchards, start=start, xlim=(-3, 3), ylim=(-3, 3), step_size=0.05,
+def test_coordinate_pickers_switch_the_slice(apiaries):
+    start = np.zeros(apiaries.dim)
+    view = pg.TrajectoryView(apiaries, start=start, xlim=(-3, 3), ylim=(-3, 3), step_size=0.05,
                              n_steps=10)
     n = view.grid_evaluations
     assert view.coords == (0, 1)
-    view._x_pick.value = 2  # show effect_1 against log_tau
+    view._x_pick.value = 2  # show apiary[0] against log_tau
     assert view.coords == (2, 1)
     assert view.grid_evaluations == n + 1
-    assert view._ax.get_xlabel() == "effect_1"
+    assert view._ax.get_xlabel() == "apiary[0]"
     assert np.allclose(view._path.path.get_xydata(), view.trajectory.positions[:, [2, 1]])
     # the mass knobs name the shown coordinates in full and control their masses
-    assert view._mass_knobs[0].label.value == "mass effect_1"
+    assert view._mass_knobs[0].label.value == "mass apiary[0]"
     assert view._mass_knobs[1].label.value == "mass log_tau"
     view._mass_knobs[0].box.value = 2.5  # a typed value is taken exactly
     assert view.mass_scale[2] == 2.5 and view.mass_x == 2.5
@@ -376,4 +376,4 @@ def test_the_figure_fits_the_column_and_nothing_is_cut(gaussian):
     for ax in (view._ax, view._ax_err):
         assert b.y1 <= ax.get_window_extent(renderer).y0  # below the panels, not over them
     labels = [t.get_text() for t in key.get_texts()]
-    assert "initial momentum" in labels and "max energy error \u00b11000" in labels
+    assert "initial momentum" in labels and "divergence threshold \u00b11000" in labels

@@ -10,10 +10,10 @@ from .target import Target
 
 __all__ = [
     "correlated_gaussian",
-    "orchards",
     "glaze_ridge",
     "late_returns",
     "apiaries",
+    "FEW_APIARIES",
     "DEMOS",
     "get",
 ]
@@ -65,89 +65,6 @@ def correlated_gaussian(dim=2, correlation=0.9, scales=None):
     t.cov = cov
     t.description = (f"Daily drift of {dim} antique clocks wound by the same hand (invented): "
                      f"a Gaussian with correlation {correlation} between neighbours.")
-    return t
-
-
-# ------------------------------------------------------------- hierarchical
-
-#: Invented data: change in apple yield (kg per tree) after a new pruning method
-#: at seven community orchards, with each orchard's standard error.
-ORCHARD_GAIN = np.array([11.0, 4.0, -3.0, 8.0, 2.0, 6.0, 15.0])
-ORCHARD_SE = np.array([13.0, 9.0, 15.0, 10.0, 8.0, 12.0, 11.0])
-
-_PRIOR_MU_SD = 10.0
-_PRIOR_TAU_SCALE = 5.0
-
-
-def orchards(form="centred"):
-    """Hierarchical model of seven invented orchards, centred or non-centred.
-
-    ``gain_j ~ N(effect_j, se_j)``, ``effect_j ~ N(mu, tau)``,
-    ``mu ~ N(0, 10)``, ``tau ~ half-Cauchy(0, 5)``, sampled as ``log_tau``.
-
-    In the centred form the parameters are ``mu, log_tau, effect_1..7``; the
-    funnel between ``log_tau`` and the effects makes HMC diverge at moderate
-    step sizes. The non-centred form samples ``z_j`` with
-    ``effect_j = mu + tau * z_j`` and removes the funnel.
-
-    Parameters
-    ----------
-    form : {"centred", "noncentred"}
-    """
-    y, se = ORCHARD_GAIN, ORCHARD_SE
-    J = y.size
-    if form not in ("centred", "noncentred"):
-        raise ValueError(f"`form` must be 'centred' or 'noncentred', got {form!r}")
-
-    def hyper_terms(mu, s):
-        tau = np.exp(s)
-        r = tau / _PRIOR_TAU_SCALE
-        # mu ~ N(0, 10); tau ~ half-Cauchy(0, 5) with log-Jacobian s
-        lp = -0.5 * (mu / _PRIOR_MU_SD) ** 2 - np.log1p(r * r) + s
-        d_mu = -mu / _PRIOR_MU_SD**2
-        d_s = -2.0 * r * r / (1.0 + r * r) + 1.0
-        return tau, lp, d_mu, d_s
-
-    if form == "centred":
-        def value_and_grad(x):
-            mu, s, th = x[:, 0], x[:, 1], x[:, 2:]
-            tau, lp, d_mu, d_s = hyper_terms(mu, s)
-            dev = (th - mu[:, None]) / tau[:, None]
-            lp = lp - 0.5 * np.sum(dev**2, axis=1) - J * s
-            lik = (y - th) / se
-            lp = lp - 0.5 * np.sum(lik**2, axis=1)
-            g = np.empty_like(x)
-            g[:, 0] = d_mu + np.sum(dev, axis=1) / tau
-            g[:, 1] = d_s + np.sum(dev**2, axis=1) - J
-            g[:, 2:] = -dev / tau[:, None] + lik / se
-            return lp, g
-
-        names = ["mu", "log_tau"] + [f"effect_{j + 1}" for j in range(J)]
-    else:
-        def value_and_grad(x):
-            mu, s, z = x[:, 0], x[:, 1], x[:, 2:]
-            tau, lp, d_mu, d_s = hyper_terms(mu, s)
-            th = mu[:, None] + tau[:, None] * z
-            lik = (y - th) / se
-            lp = lp - 0.5 * np.sum(z**2, axis=1) - 0.5 * np.sum(lik**2, axis=1)
-            dth = lik / se  # d lp / d theta
-            g = np.empty_like(x)
-            g[:, 0] = d_mu + np.sum(dth, axis=1)
-            g[:, 1] = d_s + np.sum(dth * z, axis=1) * tau
-            g[:, 2:] = -z + dth * tau[:, None]
-            return lp, g
-
-        names = ["mu", "log_tau"] + [f"z_{j + 1}" for j in range(J)]
-
-    def log_density(x):
-        return value_and_grad(x)[0]
-
-    t = Target(log_density, dim=J + 2, vectorized=True, value_and_grad=value_and_grad, names=names)
-    t.form = form
-    t.description = (
-        f"Seven community orchards (invented data), {form} form: yield change after a new "
-        "pruning method, partially pooled across orchards."
-    )
     return t
 
 
@@ -238,6 +155,9 @@ APIARY_SEED = 1203
 _APIARY_PRIOR_MU = (2.0, 4.0)      # mean and sd (kg) of the normal prior on mu
 _APIARY_PRIOR_TAU_SCALE = 1.5      # scale (kg) of the half-normal prior on tau
 _APIARY_HIVE_SD = 2.4              # hive-to-hive sd within an apiary (kg), taken as known
+#: The small version (dim 14): a funnel quick enough for views, tests and the divergences
+#: notebook; in ``DEMOS`` as "apiaries-12" and "apiaries-12-noncentred".
+FEW_APIARIES = 12
 
 
 def _apiary_data(n_groups, seed):
@@ -277,7 +197,9 @@ def apiaries(form="centred", n_groups=48, seed=APIARY_SEED):
     ----------
     form : {"centred", "noncentred"}
     n_groups : int >= 2
-        Number of apiaries (dim = n_groups + 2). The default 48 gives dim 50.
+        Number of apiaries (dim = n_groups + 2). The default 48 gives dim 50;
+        ``FEW_APIARIES`` (12, dim 14) is the small funnel the divergences
+        notebook, the views' docstrings and the tests use.
     seed : int
         Seed of the ``SeedSequence`` that invents the data (``APIARY_SEED``).
 
@@ -373,12 +295,12 @@ def apiaries(form="centred", n_groups=48, seed=APIARY_SEED):
 
 DEMOS = {
     "gaussian": correlated_gaussian,
-    "orchards": lambda: orchards("centred"),
-    "orchards-noncentred": lambda: orchards("noncentred"),
     "glaze": glaze_ridge,
     "late-returns": late_returns,
     "apiaries": lambda: apiaries("centred"),
     "apiaries-noncentred": lambda: apiaries("noncentred"),
+    "apiaries-12": lambda: apiaries("centred", n_groups=FEW_APIARIES),
+    "apiaries-12-noncentred": lambda: apiaries("noncentred", n_groups=FEW_APIARIES),
 }
 
 

@@ -231,8 +231,7 @@ class HMC(_Hamiltonian):
         cannot lock into a periodic orbit (common practice, Handbook of MCMC
         2011, ch. 5). 0 turns it off.
     max_energy_error : float
-        Largest ``|energy error|`` before a transition counts as divergent
-        (1000, common practice).
+        Divergence threshold on ``|energy error|`` (1000, common practice).
 
     Examples
     --------

@@ -96,7 +96,7 @@ class DivergenceView(View):
     Examples
     --------
     >>> import phaseglass as pg
-    >>> run = pg.sample(pg.demos.orchards("centred"), pg.HMC(0.4, 8), n_draws=300,
+    >>> run = pg.sample(pg.demos.apiaries("centred", n_groups=12), pg.HMC(0.1, 8), n_draws=300,
     ...                 n_chains=2, warmup=0, seed=1)
     >>> view = pg.DivergenceView(run)        # opens on the top-ranked pair
     >>> view.coords == view.ranking.top_pair
@@ -104,7 +104,7 @@ class DivergenceView(View):
     >>> fig = view.pair_grid(4)              # the top 4 pairs, shown below the figure
     >>> view.grid.pairs[0] == view.ranking.top_pair
     True
-    >>> view = pg.DivergenceView(run, coords=("log_tau", "effect_1"))
+    >>> view = pg.DivergenceView(run, coords=("log_tau", "apiary[0]"))
     >>> len(view.divergences) == run.n_divergent
     True
     >>> view.select(2)
@@ -350,7 +350,7 @@ class DivergenceView(View):
         return [(int(a), int(b)) for a, b in r.pairs[:k]]
 
     def _pair_words(self, rank):
-        """``("log_tau \u00d7 effect_1", "|shift| 0.8 + 0.4 = 1.2")`` for the pair ranked ``rank``."""
+        """``("log_tau \u00d7 apiary[0]", "|shift| 0.8 + 0.4 = 1.2")`` for the pair ranked ``rank``."""
         r = self.ranking
         a, b = (int(v) for v in r.pairs[rank])
         return (f"{self.names[a]} \u00d7 {self.names[b]}",
@@ -836,7 +836,7 @@ class DivergenceView(View):
                          f"draw {t}")
             parts.append(f"diverged at leapfrog step {k} of {tr.n_steps} "
                          f"(step size {number(tr.step_size, 3)}), {dh_text} "
-                         f"(max energy error &plusmn;{number(tr.max_energy_error)})")
+                         f"(threshold &plusmn;{number(tr.max_energy_error)})")
             now = float(tr.energy_error[self.replay_step])
             now_text = (f"{'+' if now > 0 else ''}{number(now)}" if np.isfinite(now)
                         else "not finite")

@@ -93,8 +93,7 @@ class TrajectoryView(View):
     xlim, ylim : (float, float), optional
         View region; default from a short pilot run.
     max_energy_error : float
-        Largest ``|energy error|`` before a transition counts as divergent
-        (1000, common practice).
+        Divergence threshold (1000, common practice).
 
     Attributes
     ----------
