@@ -145,7 +145,7 @@ def test_drifting_uniform_gives_longer_runs_of_acceptances(gaussian):
     lambda u: pg.PartialRefreshHMC(0.4, 1, persistence=0.9, uniform=u),
     lambda u: pg.RandomWalk(1.0, uniform=u),
 ], ids=["partial", "randomwalk"])
-def test_drifting_u_moves_by_drift_each_iteration(gaussian, make):
+def test_drifting_u_moves_by_drift_each_transition(gaussian, make):
     drift = 0.03
     run = pg.sample(gaussian, make(pg.DriftingUniform(drift)), exact_start(gaussian, 4, 1),
                     n_draws=3000, n_chains=4, seed=4, warmup=0)
@@ -173,7 +173,7 @@ def test_drifting_u_moves_by_drift_each_iteration(gaussian, make):
              | np.isclose(nxt, wrapped(-scaled + drift), atol=1e-9))
     assert match.all()
     # |v| stays uniform on [0, 1] (the rescale preserves it); KS on every 50th draw,
-    # far beyond the correlation time of u (about 2 / drift iterations).
+    # far beyond the correlation time of u (about 2 / drift transitions).
     assert scipy.stats.kstest(u[:, ::50].ravel(), "uniform").pvalue > 1e-3
 
 

@@ -61,7 +61,7 @@ def test_next_decision_marks_u_and_the_acceptance_probability(ax):
     assert d.u.get_markerfacecolor() == style.ACCEPTED["color"]
     assert len(d.accept_prob.get_xydata()) == 0
     d.update(None)
-    assert len(d.u.get_xydata()) == 0 and d.iteration is None
+    assert len(d.u.get_xydata()) == 0 and d.draw is None
     with pytest.raises(ValueError, match="`u`"):
         d.update(3, 1.5, True)
 

@@ -263,7 +263,7 @@ def test_knob_change_draws_the_preview_at_once_without_advancing(glaze):
     assert np.mean(np.any(blitted[..., :3] != full[..., :3], axis=-1)) < 0.002
     view.step_size = 0.02
     assert not np.allclose(view._next.path.get_xydata()[-1], path[-1])
-    # the u the next iteration would draw, at that iteration
+    # the u the next transition would draw, at its draw index
     assert np.allclose(view._next_u.u.get_xydata(), [[20, view.preview.u]])
     text = view._readout.value
     assert "preview" in text and "would be " + ("accepted" if view.preview.accepted else "rejected") in text

@@ -46,7 +46,7 @@ class DriftingUniform:
     Parameters
     ----------
     drift : float > 0
-        Change of ``v`` per iteration.
+        Change of ``v`` per transition.
     jitter : float >= 0
         Half-width of extra uniform noise added to each change.
 

@@ -1,4 +1,4 @@
-"""The accept/reject uniform of one chain over iterations, with rejections marked."""
+"""The accept/reject uniform of one chain over draws, with rejections marked."""
 
 from dataclasses import dataclass
 
@@ -62,10 +62,10 @@ def _summary(accepted):
     runs = rejection_runs(accepted)
     n = accepted.size
     if n == 0:
-        return "no iterations yet"
+        return "no draws yet"
     if runs.size == 0:
         return f"none of {n} rejected"
-    # short: the title must fit over a narrow panel (about 300 px) for thousands of iterations
+    # short: the title must fit over a narrow panel (about 300 px) for thousands of draws
     return f"{runs.sum()} of {n} rejected: {_plural(runs.size, 'run')}, longest {runs.max()}"
 
 
@@ -77,19 +77,19 @@ class UniformSequenceDrawing(Drawing):
     ----------
     ax : Axes
     trail : Line2D
-        Thin grey line through every ``u`` (shows the sweeps of a drifting uniform).
+        Thin grey line through every ``u`` (shows the slow drifts of a drifting uniform).
     accepted : Line2D
-        Filled circles at ``(iteration, u)`` of accepted proposals.
+        Filled circles at ``(draw, u)`` of accepted proposals.
     rejected : Line2D
         Hollow circles at the rejected ones.
     accept_prob : Line2D
-        The acceptance probability per iteration (empty when not given): a
+        The acceptance probability per draw (empty when not given): a
         proposal is accepted when ``u`` falls below it.
     summary : Text
         Count of rejections and of runs of consecutive rejections
         (``"3 of 6 rejected: 2 runs, longest 2"``).
     first : int
-        Iteration number of the first value.
+        Draw index of the first value.
     """
 
     ax: Axes
@@ -122,10 +122,10 @@ class UniformSequenceDrawing(Drawing):
 
 
 def draw_uniform_sequence(ax, u, accepted, accept_prob=None, *, first=0, trail=True):
-    """Draw the accept/reject uniform of one chain per iteration.
+    """Draw the accept/reject uniform of one chain, one point per transition.
 
-    Rejected iterations are hollow circles, accepted ones filled, so clusters
-    of rejections (as a drifting uniform produces) and the slow sweeps of
+    Rejected transitions are hollow circles, accepted ones filled, so clusters
+    of rejections (as a drifting uniform produces) and the slow drifts of
     ``u`` stand out. With ``accept_prob`` the acceptance probability is drawn
     as a step line: points above it are the rejections.
 
@@ -137,7 +137,7 @@ def draw_uniform_sequence(ax, u, accepted, accept_prob=None, *, first=0, trail=T
     accepted : array_like of bool, shape (draws,)
     accept_prob : array_like, shape (draws,), optional
     first : int
-        Iteration number of ``u[0]`` (``run.first_draw`` for a ring buffer).
+        Draw index of ``u[0]`` (``run.first_draw`` for a ring buffer).
     trail : bool
         Join the values with a thin line.
 
@@ -154,7 +154,7 @@ def draw_uniform_sequence(ax, u, accepted, accept_prob=None, *, first=0, trail=T
     (rej,) = ax.plot([], [], markersize=5, label="u, rejected", zorder=4, **style.REJECTED)
     summary = ax.set_title("", loc="left", fontsize=9)
     ax.set_ylim(-0.03, 1.03)
-    ax.set_xlabel("iteration")
+    ax.set_xlabel("draw")
     ax.set_ylabel("accept/reject uniform u")
     d = UniformSequenceDrawing(ax=ax, trail=line, accepted=acc, rejected=rej, accept_prob=prob,
                                summary=summary, first=int(first))
@@ -179,32 +179,32 @@ class NextDecisionDrawing(Drawing):
     ----------
     ax : Axes
     u : Line2D
-        Diamond at ``(iteration, u)``: filled (accepted colour) when the decision
+        Diamond at ``(draw, u)``: filled (accepted colour) when the decision
         would accept, hollow (rejected colour) when it would reject; empty when
         nothing is previewed.
     accept_prob : Line2D
-        Dashed tick from ``iteration - 0.5`` to ``iteration + 0.5`` at the
+        Dashed tick from ``draw - 0.5`` to ``draw + 0.5`` at the
         acceptance probability (``u`` below it accepts); empty when nothing is previewed.
-    iteration : int or None
+    draw : int or None
     """
 
     ax: Axes
     u: Line2D
     accept_prob: Line2D
-    iteration: object = None
+    draw: object = None
 
-    def update(self, iteration=None, u=None, accepted=None, accept_prob=None):
-        """Show another pending decision, or nothing when ``iteration`` is None."""
-        if iteration is None:
-            self.iteration = None
+    def update(self, draw=None, u=None, accepted=None, accept_prob=None):
+        """Show another pending decision, or nothing when ``draw`` is None."""
+        if draw is None:
+            self.draw = None
             self.u.set_data([], [])
             self.accept_prob.set_data([], [])
             return self
         u = float(u)
         if not 0.0 <= u <= 1.0:
             raise ValueError(f"`u` must lie in [0, 1], got {u}")
-        self.iteration = int(iteration)
-        self.u.set_data([self.iteration], [u])
+        self.draw = int(draw)
+        self.u.set_data([self.draw], [u])
         colour = style.ACCEPTED["color"] if accepted else style.REJECTED["markeredgecolor"]
         self.u.set_color(colour)
         self.u.set_markeredgecolor(colour)
@@ -213,25 +213,25 @@ class NextDecisionDrawing(Drawing):
             self.accept_prob.set_data([], [])
         else:
             p = float(accept_prob)
-            self.accept_prob.set_data([self.iteration - 0.5, self.iteration + 0.5], [p, p])
+            self.accept_prob.set_data([self.draw - 0.5, self.draw + 0.5], [p, p])
         self._rescale()
         return self
 
 
-def draw_next_decision(ax, iteration=None, u=None, accepted=None, accept_prob=None, *,
+def draw_next_decision(ax, draw=None, u=None, accepted=None, accept_prob=None, *,
                        label="next u (preview)"):
     """Mark the accept/reject decision a chain's next transition would make.
 
     For a preview beside ``draw_uniform_sequence``: the ``u`` the next
-    iteration would draw (a diamond, filled when it would accept, hollow when
+    transition would draw (a diamond, filled when it would accept, hollow when
     it would reject) and its acceptance probability (a dashed tick). Nothing
-    is drawn while ``iteration`` is None.
+    is drawn while ``draw`` is None.
 
     Parameters
     ----------
     ax : Axes
-    iteration : int, optional
-        Iteration number of the pending decision (``run.first_draw + run.n_draws``).
+    draw : int, optional
+        Draw index of the pending decision (``run.first_draw + run.n_draws``).
     u : float in [0, 1]
     accepted : bool
     accept_prob : float, optional
@@ -241,9 +241,9 @@ def draw_next_decision(ax, iteration=None, u=None, accepted=None, accept_prob=No
     Returns
     -------
     NextDecisionDrawing
-        ``update(iteration=None, u=None, accepted=None, accept_prob=None)`` reuses the artists.
+        ``update(draw=None, u=None, accepted=None, accept_prob=None)`` reuses the artists.
     """
     (marker,) = ax.plot([], [], label=label, zorder=6, **_NEXT_MARKER)
     (prob,) = ax.plot([], [], label="_next acceptance probability", zorder=5, **_NEXT_PROB)
     d = NextDecisionDrawing(ax=ax, u=marker, accept_prob=prob)
-    return d.update(iteration, u, accepted, accept_prob)
+    return d.update(draw, u, accepted, accept_prob)

@@ -25,7 +25,7 @@ _CAPTIONS = {
                   "hollow: rejected. The arrow is the initial momentum.",
     "divergence": "The first divergent transition, replayed: the dashed segment with an X is the "
                   "step where the energy error passed the divergence threshold.",
-    "uniforms": "The accept/reject uniform u of chain 0 per iteration: hollow circles are "
+    "uniforms": "The accept/reject uniform u of chain 0 per draw: hollow circles are "
                 "rejections, the step line the acceptance probability (u above it means "
                 "rejection). A drifting uniform makes rejections come in runs.",
     "tree_depth": "Tree depth of every no-U-turn transition: the share of transitions per "
@@ -167,7 +167,7 @@ def figure_uniforms(run):
     u = run.u[0, :n]
     prob = None if run.accept_prob is None else run.accept_prob[0, :n]
     draw_uniform_sequence(ax, u, run.accepted[0, :n], prob)
-    ax.set_xlabel(f"iteration (chain 0, first {n} draws)")
+    ax.set_xlabel(f"draw (chain 0, first {n} draws)")
     legend(ax, loc="upper left", bbox_to_anchor=(1.0, 1.0))
     return fig
 

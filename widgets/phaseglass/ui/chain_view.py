@@ -48,7 +48,7 @@ class NextTransition:
     Attributes
     ----------
     draw : int
-        Iteration number the transition would get (``sampler.n_draws``).
+        Draw index the transition would get (``sampler.n_draws``).
     start : ndarray, shape (dim,)
         Chain 0's current position (sampler's scale).
     proposal : ndarray, shape (dim,)
@@ -155,7 +155,7 @@ class ChainView(View):
     Left: the draws over the log-density (sampler's scale; a 2-D slice through
     the first chain's start for an n-D target), divergent transitions marked,
     and the latest trajectory of chain 0. Right: a trace per chain and chain
-    0's accept/reject variable ``u`` per iteration (rejections hollow) with
+    0's accept/reject variable ``u`` per draw (rejections hollow) with
     the acceptance probability. A readout gives the running acceptance rate,
     divergences, gradient evaluations and ESS per gradient so far (with the
     caution that diagnostics never prove convergence).
@@ -457,7 +457,7 @@ class ChainView(View):
         self._traces = draw_traces(self._ax_trace, run.unconstrained, i, names=self.target.names,
                                    divergent=run.divergent)
         self._useq = draw_uniform_sequence(self._ax_u, run.u[0], run.accepted[0], run.accept_prob[0])
-        self._useq.autoscale = False  # the view leaves room for the next iteration's preview
+        self._useq.autoscale = False  # the view leaves room for the next transition's preview
         self._next_u = draw_next_decision(self._ax_u)
         self._next_u.autoscale = False
         self._ax.set_xlim(self.xlim)
@@ -467,7 +467,7 @@ class ChainView(View):
                                  fontsize=9)
         self._ax_trace.set_xlabel("")
         self._ax_u.set_ylabel("u of chain 0")
-        for ax in (self._ax_trace, self._ax_u):  # iterations are whole numbers
+        for ax in (self._ax_trace, self._ax_u):  # draws are whole numbers
             ax.xaxis.set_major_locator(MaxNLocator(nbins=6, integer=True))
         handles = key_handles("start", "path", "accepted", "rejected", "divergent") + [self._next.path]
         legend(self._ax, loc="upper center", bbox_to_anchor=(0.5, -0.11), ncol=3, handles=handles,
@@ -598,7 +598,7 @@ class ChainView(View):
             self._ax_trace.set_xlim(run.first_draw - 0.5, run.first_draw + 10, auto=None)
             self._ax_trace.set_ylim(self.xlim, auto=None)
         self._useq.update(run.u[0], run.accepted[0], run.accept_prob[0], first=run.first_draw)
-        # a free slot at the right: where the next iteration's preview goes
+        # a free slot at the right: where the next transition's preview goes
         last = run.first_draw + run.n_draws
         room = max(1.0, 0.03 * run.n_draws) if run.n_draws else 10.0
         self._ax_u.set_xlim(run.first_draw - 0.5, last + room)
