@@ -386,7 +386,7 @@ def draw_tree_energy(ax, tree, *, chain=0, upto=None, linthresh=1.0):
     ax.axvline(0.0, **style.REFERENCE, zorder=1)
     thr = t["max_energy_error"]
     thresholds = [ax.axhline(sign * thr, zorder=1, label=lab, **style.THRESHOLD)
-                  for sign, lab in ((1, f"divergence threshold \u00b1{thr:g}"), (-1, None))]
+                  for sign, lab in ((1, f"max energy error \u00b1{thr:g}"), (-1, None))]
     (error,) = ax.plot([], [], label="energy error \u0394H", zorder=3,
                        **{**style.PATH, "markersize": 3.0})
     (gone,) = ax.plot([], [], label="abandoned subtree", zorder=3, **ABANDONED)

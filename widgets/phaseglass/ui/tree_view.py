@@ -32,7 +32,7 @@ class DoublingView(View):
     criterion fired with the two end momenta it compared (orange diamonds and
     arrows), and a divergent subtree's dashed segment and ``X``. Right: the
     energy error of every leapfrog state against its place in time (steps from
-    the start, negative backward) and the divergence threshold.
+    the start, negative backward) and the divergence limit (max energy error).
 
     The doubling slider and Play show the first k doublings in the order the
     random directions chose them. Click the left panel to move the start;
@@ -211,7 +211,7 @@ class DoublingView(View):
                   "abandoned subtree", "candidates (area: chance of selection)",
                   "U-turn: stretch checked", "U-turn: momenta compared", "start",
                   "selected (next state)", "initial momentum", "divergent subtree",
-                  f"divergence threshold \u00b1{number(self.max_energy_error)}"]
+                  f"max energy error \u00b1{number(self.max_energy_error)}"]
         legend(fig, loc="outside lower center", ncols=3, handles=handles, labels=labels,
                fontsize=7)
         self.set_dynamic([d.path, d.newest, d.abandoned, d.candidates, d.divergent, d.turn_span,
