@@ -245,7 +245,7 @@ def test_dual_averaging_reaches_target_acceptance(kernel, metric):
     # resonance (step_size * n_steps close to a multiple of pi * sd for some coordinate)
     # a larger step can accept more often, and dual averaging can settle anywhere.
     run = pg.sample(mixed_scales_gaussian(), kernel, n_draws=1000, n_chains=4, warmup=1000,
-                    seed=12, target_accept=0.8, metric_adaptation=metric)
+                    seed=12, target_accept=0.8, mass_adaptation=metric)
     assert abs(run.accepted.mean() - 0.8) < 0.1
     assert abs(run.accept_prob.mean() - 0.8) < 0.1
     # the tuned value is what the kept draws used (HMC jitters it by up to +-10%)

@@ -501,8 +501,22 @@ def test_sample_errors():
         pg.sample(t, pg.HMC(0.1, 5), [1.0, 2.0], n_chains=0, warmup=0)
     with pytest.raises(ValueError, match="`warmup` must be >= 0, got -5"):
         pg.sample(t, pg.HMC(0.1, 5), [1.0, 2.0], warmup=-5)
-    with pytest.raises(ValueError, match="`metric_adaptation`|`metric` must be one of"):
-        pg.sample(t, pg.HMC(0.1, 5), [1.0, 2.0], warmup=30, metric_adaptation="full")
+    with pytest.raises(ValueError, match="`mass_adaptation` must be one of"):
+        pg.sample(t, pg.HMC(0.1, 5), [1.0, 2.0], warmup=30, mass_adaptation="full")
+
+
+def test_former_metric_adaptation_keyword_warms_up_the_same_and_names_the_new_one():
+    # issue 12: "metric" means a Metric object; the shape warm-up estimates is mass_adaptation
+    t = pg.demos.correlated_gaussian(2, 0.0, scales=[1.0, 3.0])
+    new = pg.sample(t, pg.HMC(0.3, 5), n_draws=5, warmup=60, seed=2, mass_adaptation=None)
+    with pytest.warns(DeprecationWarning, match="use `mass_adaptation`"):
+        old = pg.sample(t, pg.HMC(0.3, 5), n_draws=5, warmup=60, seed=2, metric_adaptation=None)
+    np.testing.assert_array_equal(old.draws, new.draws)
+    assert old.kernel.metric.kind == "identity"  # None was honoured, not mistaken for unset
+    sampler = pg.Sampler(t, pg.HMC(0.3, 5), n_chains=2, seed=2)
+    with pytest.warns(DeprecationWarning, match="use `mass_adaptation`"):
+        sampler.warm_up(60, metric="diagonal")
+    assert sampler.kernel.metric.kind == "diagonal"
     with pytest.raises(ValueError, match="`metric` has dimension 3 but the target has dim=2"):
         pg.sample(t, pg.HMC(0.1, 5, metric=np.ones(3)), [1.0, 2.0], warmup=0)
     with pytest.raises(ValueError, match=r"`target_accept` must lie in"):

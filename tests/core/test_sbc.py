@@ -216,7 +216,7 @@ SAMPLERS = {
         lambda: pg.PartialRefreshHMC(0.3, 1, persistence=0.9, uniform=pg.DriftingUniform(0.03)))),
     "randomwalk": (simulate_one_mean, one_mean(lambda: pg.RandomWalk(0.5))),
     "randomwalk-drifting-nometric": (simulate_one_mean, one_mean(
-        lambda: pg.RandomWalk(0.5, uniform="drifting"), metric_adaptation=None)),
+        lambda: pg.RandomWalk(0.5, uniform="drifting"), mass_adaptation=None)),
     # Gibbs has nothing to tune; by lag 10 the autocorrelation is within +-0.05 (the
     # shift scheme's oscillates, 0.13 at lag 7; ordinary Gibbs is below 0.02 by lag 5)
     "gibbs-shift": (simulate_two_means, with_sampler(

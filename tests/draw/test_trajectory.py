@@ -245,7 +245,7 @@ def test_energy_error_tick_labels_never_overlap(smooth_traj, size):
     for low, high in zip(boxes, boxes[1:]):
         assert high.y0 >= low.y1, [t.get_text() for t in labels]
     values = set(ax.get_yticks())
-    assert {0.0, 1000.0, -1000.0} <= values  # zero and the divergence threshold always
+    assert {0.0, 1000.0, -1000.0} <= values  # zero and +-max_energy_error always
     assert all(t.get_text().lstrip("\u2212").isdigit() for t in labels)  # plain numbers
 
 

@@ -376,4 +376,4 @@ def test_the_figure_fits_the_column_and_nothing_is_cut(gaussian):
     for ax in (view._ax, view._ax_err):
         assert b.y1 <= ax.get_window_extent(renderer).y0  # below the panels, not over them
     labels = [t.get_text() for t in key.get_texts()]
-    assert "initial momentum" in labels and "divergence threshold \u00b11000" in labels
+    assert "initial momentum" in labels and "max energy error \u00b11000" in labels

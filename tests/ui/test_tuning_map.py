@@ -60,7 +60,7 @@ def test_acceptance_falls_as_the_step_size_grows_with_one_step(computed):
 def test_divergences_beyond_the_stability_limit(computed, sigma_min):
     # Leapfrog is stable on a Gaussian only for eps < 2 sigma along every direction
     # (Neal 2011, Handbook of MCMC, ch. 5, the "What stepsize?" discussion). Beyond it the
-    # error grows geometrically, past the divergence threshold within a few steps; a
+    # error grows geometrically, past max_energy_error within a few steps; a
     # single step cannot get there, so only rows with several steps are checked.
     limit = 2.0 * sigma_min
     div = computed.values["divergence rate"]

@@ -100,6 +100,11 @@ def user_stacklevel():
     return level
 
 
+#: Default of a keyword kept one release under its former name (any value, None included,
+#: means the caller used the old name).
+RENAMED = object()
+
+
 def warn_renamed(old, new, what="keyword"):
     """DeprecationWarning for a name kept for one release: says what to use instead."""
     import warnings

@@ -19,7 +19,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ._validate import check_int
+from ._validate import RENAMED, check_int, warn_renamed
 from .efficiency import evaluation_cost, ess_per_gradient
 from .kernels import Kernel
 from .streams import seed_sequence
@@ -40,7 +40,7 @@ _DESCRIPTIONS = {
     "R-hat max": "largest rank-normalised split R-hat over the parameters",
 }
 #: Options of ``sample`` that one entry of ``kernels`` may set for itself.
-_PER_KERNEL = ("warmup", "target_accept", "metric_adaptation")
+_PER_KERNEL = ("warmup", "target_accept", "mass_adaptation")
 
 
 # ------------------------------------------------------------ sending work away
@@ -243,7 +243,7 @@ class KernelComparison:
         Spawn key of each seed's child; seed ``r`` of every kernel uses child ``r``.
     n_draws, n_chains : int
     options : tuple of dict
-        The ``sample`` options of each kernel (warm-up, target acceptance, metric adaptation).
+        The ``sample`` options of each kernel (warm-up, target acceptance, mass adaptation).
     """
 
     labels: tuple
@@ -373,6 +373,9 @@ def _entries(kernels):
         if isinstance(v, dict):
             options = dict(v)
             v = options.pop("kernel", None)
+            if "metric_adaptation" in options:  # the former name, one more release
+                warn_renamed("metric_adaptation", "mass_adaptation", "entry key")
+                options["mass_adaptation"] = options.pop("metric_adaptation")
             unknown = sorted(set(options) - set(_PER_KERNEL))
             if unknown:
                 raise ValueError(f"an entry of `kernels` may set 'kernel' and {_PER_KERNEL}, "
@@ -393,8 +396,8 @@ def _entries(kernels):
 
 
 def compare_kernels(target, kernels, *, n_seeds=4, seed=0, n_draws=500, n_chains=4,
-                    warmup="auto", target_accept=None, metric_adaptation="diagonal",
-                    initial=None, executor=None):
+                    warmup="auto", target_accept=None, mass_adaptation="diagonal",
+                    initial=None, executor=None, metric_adaptation=RENAMED):
     """Run every kernel with every seed on ``target`` and tabulate how well each mixes.
 
     Each cell (one kernel, one seed) is an independent ``sample`` run. Seed ``r``
@@ -408,13 +411,13 @@ def compare_kernels(target, kernels, *, n_seeds=4, seed=0, n_draws=500, n_chains
     kernels : dict of str -> Kernel, or sequence of Kernel
         The kernels or settings to compare (labels are made from the knobs
         when a sequence is given). An entry may also be a dict
-        ``{"kernel": k, "warmup": ..., "target_accept": ..., "metric_adaptation": ...}``
+        ``{"kernel": k, "warmup": ..., "target_accept": ..., "mass_adaptation": ...}``
         to compare the same kernel under different ``sample`` settings.
     n_seeds : int
         Replicate runs per kernel.
     seed : int or SeedSequence
         Root of the per-cell seeds; the same seed gives the same table.
-    n_draws, n_chains, warmup, target_accept, metric_adaptation
+    n_draws, n_chains, warmup, target_accept, mass_adaptation
         As for ``sample``, for every cell (an entry of ``kernels`` may override
         the last three).
     initial : array_like, optional
@@ -463,8 +466,11 @@ def compare_kernels(target, kernels, *, n_seeds=4, seed=0, n_draws=500, n_chains
     # children next time
     root = np.random.SeedSequence(ss.entropy, spawn_key=ss.spawn_key, pool_size=ss.pool_size)
     children = root.spawn(n_seeds)
+    if metric_adaptation is not RENAMED:
+        warn_renamed("metric_adaptation", "mass_adaptation")
+        mass_adaptation = metric_adaptation
     shared = {"warmup": warmup, "target_accept": target_accept,
-              "metric_adaptation": metric_adaptation}
+              "mass_adaptation": mass_adaptation}
     if initial is not None:
         initial = np.asarray(initial, dtype=float)
     jobs = []

@@ -231,7 +231,8 @@ class HMC(_Hamiltonian):
         cannot lock into a periodic orbit (common practice, Handbook of MCMC
         2011, ch. 5). 0 turns it off.
     max_energy_error : float
-        Divergence threshold on ``|energy error|`` (1000, common practice).
+        Largest ``|energy error|`` before a transition counts as divergent
+        (1000, common practice).
 
     Examples
     --------

@@ -62,8 +62,8 @@ class NUTS(Kernel):
     metric : Metric or array, optional
         Inverse mass matrix (identity by default).
     max_energy_error : float
-        Divergence threshold on ``|energy error|`` of any state in the tree,
-        as for ``HMC`` (1000, common practice). A divergent subtree is
+        Largest ``|energy error|`` of any state in the tree before the tree
+        counts as divergent, as for ``HMC`` (1000, common practice). A divergent subtree is
         discarded and the tree stops.
 
     Notes

@@ -10,7 +10,7 @@ from collections import deque
 
 import numpy as np
 
-from ._validate import check_fraction, check_in, check_int
+from ._validate import RENAMED, check_fraction, check_in, check_int, warn_renamed
 from .adaptation import DualAveraging, estimate_metric, warmup_windows
 from .kernels import ChainState, Kernel
 from .leapfrog import integrate, trajectory_from
@@ -314,7 +314,8 @@ class Sampler:
             self.divergences.append(DivergenceReplay(int(r), draw, batch=batch, row=i))
 
     # ---------------------------------------------------------------- warm-up
-    def warm_up(self, n, *, target_accept=None, metric="diagonal", progress=False):
+    def warm_up(self, n, *, target_accept=None, mass_adaptation="diagonal", progress=False,
+                metric=RENAMED):
         """Tune the kernel for ``n`` transitions: dual averaging plus metric windows.
 
         Parameters
@@ -322,9 +323,10 @@ class Sampler:
         n : int
         target_accept : float, optional
             Defaults to the kernel's ``default_target_accept``.
-        metric : {"diagonal", "dense", None}
-            Metric estimated in doubling windows from pooled warm-up draws
-            (regularised); ``None`` keeps the kernel's metric.
+        mass_adaptation : {"diagonal", "dense", None}
+            Shape of the mass matrix (the kernel's Metric) estimated in doubling
+            windows from pooled warm-up draws (regularised); ``None`` keeps the
+            kernel's metric. ``metric=`` is its deprecated former name.
 
         Returns
         -------
@@ -332,7 +334,10 @@ class Sampler:
             The tuned knob's value at each warm-up transition.
         """
         n = check_int("warmup", n, minimum=0)
-        check_in("metric", metric, ("diagonal", "dense", None))
+        if metric is not RENAMED:
+            warn_renamed("metric", "mass_adaptation")
+            mass_adaptation = metric
+        check_in("mass_adaptation", mass_adaptation, ("diagonal", "dense", None))
         self.warmup_done = 0
         knob = self.kernel.tuned_knob
         history = np.full(n, np.nan)
@@ -344,7 +349,7 @@ class Sampler:
         if not 0 < target_accept < 1:
             raise ValueError(f"`target_accept` must lie in (0, 1), got {target_accept}")
         da = DualAveraging(getattr(self.kernel, knob), target_accept) if knob else None
-        ends = warmup_windows(n) if (metric and knob) else []
+        ends = warmup_windows(n) if (mass_adaptation and knob) else []
         window_start = int(0.15 * n)
         window = []
         started = time.perf_counter()
@@ -359,7 +364,7 @@ class Sampler:
             if ends and i + 1 == ends[0]:
                 ends.pop(0)
                 pooled = np.concatenate(window, axis=0)
-                self.kernel.metric = estimate_metric(pooled, metric)
+                self.kernel.metric = estimate_metric(pooled, mass_adaptation)
                 self.kernel.metric_changed(self.state)
                 window = []
                 if da is not None:
@@ -495,8 +500,8 @@ def auto_warmup(n_draws):
 
 
 def sample(target, kernel, initial=None, n_draws=1000, *, n_chains=4, warmup="auto", seed=None,
-           target_accept=None, keep_trajectories=False, metric_adaptation="diagonal",
-           progress=False):
+           target_accept=None, keep_trajectories=False, mass_adaptation="diagonal",
+           progress=False, metric_adaptation=RENAMED):
     """Draw from ``target`` with ``kernel`` on several chains.
 
     Parameters
@@ -527,7 +532,9 @@ def sample(target, kernel, initial=None, n_draws=1000, *, n_chains=4, warmup="au
         of them, each at most ``core.sampling.trajectory_memory(kernel, dim, n_chains)`` bytes
         (for HMC ``n_chains * (n_steps + 1) * (2 * dim + 4) * 8``; NUTS up to
         ``2**max_depth`` states per chain). A warning gives the total above 1 GiB.
-    metric_adaptation : {"diagonal", "dense", None}
+    mass_adaptation : {"diagonal", "dense", None}
+        Shape of the mass matrix warm-up estimates (None: keep the kernel's
+        metric). ``metric_adaptation=`` is its deprecated former name.
     progress : bool
         Print a one-line progress bar (terminal or notebook).
 
@@ -558,7 +565,10 @@ def sample(target, kernel, initial=None, n_draws=1000, *, n_chains=4, warmup="au
         raise ValueError(f'`warmup` must be "auto" or a whole number of transitions '
                          f'(0 switches warm-up off), got {warmup!r}')
     warmup = auto_warmup(n_draws) if auto else check_int("warmup", warmup, minimum=0)
-    check_in("metric_adaptation", metric_adaptation, ("diagonal", "dense", None))
+    if metric_adaptation is not RENAMED:
+        warn_renamed("metric_adaptation", "mass_adaptation")
+        mass_adaptation = metric_adaptation
+    check_in("mass_adaptation", mass_adaptation, ("diagonal", "dense", None))
     if target_accept is not None:  # checked even without warm-up: a typo is still a typo
         target_accept = check_fraction("target_accept", target_accept)
         if not 0 < target_accept < 1:
@@ -569,8 +579,8 @@ def sample(target, kernel, initial=None, n_draws=1000, *, n_chains=4, warmup="au
         _warn_trajectory_memory(target, kernel, n_draws, sampler.n_chains)
     history = None
     try:
-        history = sampler.warm_up(warmup, target_accept=target_accept, metric=metric_adaptation,
-                                  progress=progress)
+        history = sampler.warm_up(warmup, target_accept=target_accept,
+                                  mass_adaptation=mass_adaptation, progress=progress)
         sampler.keep_trajectories = bool(keep_trajectories)
         sampler.reset_records(expected=n_draws)
         started = time.perf_counter()

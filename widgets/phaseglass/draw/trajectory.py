@@ -437,14 +437,14 @@ class EnergyErrorDrawing(Drawing):
     error : Line2D
         ``(step, energy_error[step])`` for steps ``0..upto``.
     thresholds : list of Line2D
-        The divergence threshold at ``+max_energy_error`` and ``-max_energy_error``.
+        The largest energy error allowed, at ``+max_energy_error`` and ``-max_energy_error``.
     divergence : Line2D
         ``X`` at the step that diverged (a value beyond the scale, or infinite, is
         drawn on the edge of the Axes, whole); empty otherwise.
     verdict : Text
         The Axes title (left): final energy error and acceptance probability
         ``min(1, exp(-dH))``, or where it diverged; on a linear axis also a note
-        when the divergence threshold is off-scale.
+        when ``max_energy_error`` is off-scale.
     accept_line : Line2D or None
         On ``twin``: acceptance probability if the trajectory stopped at each step.
     twin : Axes or None
@@ -503,8 +503,8 @@ class EnergyErrorDrawing(Drawing):
             lo, hi = self.ax.get_ylim()
             off = thr > hi or -thr < lo
             if off:
-                text += f"\n(divergence threshold \u00b1{thr:g} is off-scale)"
-            self.thresholds[0].set_label("_threshold" if off else f"divergence threshold \u00b1{thr:g}")
+                text += f"\n(max energy error \u00b1{thr:g} is off-scale)"
+            self.thresholds[0].set_label("_threshold" if off else f"max energy error \u00b1{thr:g}")
         self.verdict.set_text(text)
         return self
 
@@ -523,8 +523,8 @@ def draw_energy_error(ax, trajectory, *, chain=0, upto=None, scale="symlog", lin
         Show steps ``0..upto`` only.
     scale : {"symlog", "linear"}
         ``symlog`` (default) shows small errors and the +-``max_energy_error``
-        divergence threshold on one axis (linear within +-``linthresh``). On a
-        linear axis a note says when the threshold is off-scale.
+        lines on one axis (linear within +-``linthresh``). On a linear axis a note
+        says when ``max_energy_error`` is off-scale.
     linthresh : float
     secondary : bool
         Add a right-hand axis with the acceptance probability ``min(1, exp(-dH))``
@@ -548,7 +548,7 @@ def draw_energy_error(ax, trajectory, *, chain=0, upto=None, scale="symlog", lin
     ax.axhline(0.0, **style.REFERENCE, zorder=1)
     thresholds = [
         ax.axhline(sign * traj.max_energy_error, zorder=1, label=lab, **style.THRESHOLD)
-        for sign, lab in ((1, f"divergence threshold \u00b1{traj.max_energy_error:g}"), (-1, None))
+        for sign, lab in ((1, f"max energy error \u00b1{traj.max_energy_error:g}"), (-1, None))
     ]
     (error,) = ax.plot([], [], label="energy error \u0394H", zorder=3,
                        **{**style.PATH, "markersize": 3.5})

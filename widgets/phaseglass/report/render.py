@@ -24,7 +24,7 @@ _CAPTIONS = {
                   "(left) and its energy error per step (right). Filled end point: accepted; "
                   "hollow: rejected. The arrow is the initial momentum.",
     "divergence": "The first divergent transition, replayed: the dashed segment with an X is the "
-                  "step where the energy error passed the divergence threshold.",
+                  "step where the energy error passed max_energy_error.",
     "uniforms": "The accept/reject uniform u of chain 0 per draw: hollow circles are "
                 "rejections, the step line the acceptance probability (u above it means "
                 "rejection). A drifting uniform makes rejections come in runs.",

@@ -84,7 +84,7 @@ def pilot(target, *, seed=0, n_chains=2):
         try:
             with target.uncounted():  # a view's pilot is not the user's work
                 run = sample(target, HMC(0.1, 10), n_draws=_PILOT_DRAWS, n_chains=n_chains,
-                             warmup=_PILOT_WARMUP, seed=seed, metric_adaptation=None)
+                             warmup=_PILOT_WARMUP, seed=seed, mass_adaptation=None)
             found = Pilot(target, run.unconstrained, run.draws[:, -1].copy(), run.kernel.step_size)
         except Exception as exc:  # user code can raise anything: the view falls back and says so
             return Pilot(target, None, None, 0.1, error=exc)

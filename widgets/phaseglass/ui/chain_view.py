@@ -243,7 +243,7 @@ class ChainView(View):
         # a kernel passed in (e.g. tuned by pg.sample) keeps its mass matrix for every kernel built here
         self._metric = None
         self._given_step = {}  # a passed (tuned) kernel's own step centres its slider range
-        self._given_extras = {}  # ... and its jitter / divergence threshold are kept
+        self._given_extras = {}  # ... and its jitter / max_energy_error are kept
         if kernel is not None:
             self._metric = kernel.metric
             self._given_extras = _extras_of(kernel)

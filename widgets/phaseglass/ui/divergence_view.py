@@ -836,7 +836,7 @@ class DivergenceView(View):
                          f"draw {t}")
             parts.append(f"diverged at leapfrog step {k} of {tr.n_steps} "
                          f"(step size {number(tr.step_size, 3)}), {dh_text} "
-                         f"(threshold &plusmn;{number(tr.max_energy_error)})")
+                         f"(max energy error &plusmn;{number(tr.max_energy_error)})")
             now = float(tr.energy_error[self.replay_step])
             now_text = (f"{'+' if now > 0 else ''}{number(now)}" if np.isfinite(now)
                         else "not finite")

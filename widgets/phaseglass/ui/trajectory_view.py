@@ -93,7 +93,8 @@ class TrajectoryView(View):
     xlim, ylim : (float, float), optional
         View region; default from a short pilot run.
     max_energy_error : float
-        Divergence threshold (1000, common practice).
+        Largest ``|energy error|`` before a transition counts as divergent
+        (1000, common practice).
 
     Attributes
     ----------
