@@ -9,6 +9,7 @@ from scipy import special, stats
 
 import phaseglass as pg
 from phaseglass.draw.gibbs import chain_spread, staircase
+from phaseglass.ui._base import number
 from phaseglass.ui.gibbs_view import ShiftGibbsView, spread_out_starts
 
 # An invented bivariate normal: means, standard deviations and correlation of our own choosing.
@@ -68,7 +69,7 @@ def test_ordinary_gibbs_on_a_shared_stream_coalesces(target):
     view.step(70)
     spread = chain_spread(view.run.draws)
     assert spread[0] > 1e-3
-    assert spread[-1] < 1e-12 and view.distance < 1e-12
+    assert spread[-1] < 1e-12 and view.spread < 1e-12
     assert view.met_at is not None and view.met_at < 70
     assert "all chains met" in view._readout.value
     # the drawn spread is the computed one (zeros shown at the drawing's floor)
@@ -82,7 +83,12 @@ def test_a_shift_keeps_the_chains_apart(target):
     view.step(50)
     spread = chain_spread(view.run.draws)
     assert spread.min() > 0.05
-    assert view.distance > 0.05 and view.met_at is None
+    assert view.spread > 0.05 and view.met_at is None
+    # one definition: the readout's spread is the last drawn one (chain_spread of the states)
+    assert view.spread == pytest.approx(spread[-1], rel=1e-12)
+    assert f"chain spread {number(view.spread, 3)}" in view._readout.value
+    with pytest.warns(DeprecationWarning, match="use `spread`"):
+        assert view.distance == view.spread
     # ... while every chain still moves about the target
     assert np.all(np.ptp(view.run.draws[:, :, 0], axis=1) > SD[0])
 

@@ -45,7 +45,7 @@ def staircase(xy, first_moves_x=True):
 
 
 def chain_spread(draws):
-    """Largest distance between chains per draw, over all coordinates.
+    """The chain spread per draw: the widest gap between chains over all coordinates.
 
     Parameters
     ----------
@@ -190,7 +190,7 @@ class ChainSpreadDrawing(Drawing):
 
 
 def draw_chain_spread(ax, draws, *, first=0):
-    """Draw, per draw, the largest gap between chains (log scale).
+    """Draw the chain spread per draw (``chain_spread``, log scale).
 
     For chains on one shared stream a falling spread shows them coupling; a
     marker shows the first draw where all of them coincide.
@@ -209,10 +209,10 @@ def draw_chain_spread(ax, draws, *, first=0):
     style.dress(ax)
     ax.set_yscale("log")
     (line,) = ax.plot([], [], color=style.OKABE_ITO["black"], linewidth=1.2,
-                      label="largest gap between chains")
+                      label="chain spread")
     (met,) = ax.plot([], [], linestyle="none", marker="*", markersize=12,
                      color=style.OKABE_ITO["bluish_green"], markeredgecolor="black", zorder=5)
     ax.set_xlabel("draw")
-    ax.set_ylabel("spread across chains")
+    ax.set_ylabel("chain spread")
     d = ChainSpreadDrawing(ax=ax, spread=line, met=met, first=int(first))
     return d.update(draws)

@@ -8,6 +8,7 @@ import traitlets
 from matplotlib.lines import Line2D
 from matplotlib.ticker import LogLocator, MaxNLocator, NullLocator
 
+from ..core._validate import warn_renamed
 from ..core.gibbs import DEFAULT_GRID_SIZE, Gibbs
 from ..core.run import CAUTION
 from ..core.sampling import Sampler
@@ -83,9 +84,9 @@ class ShiftGibbsView(View):
     Left: the paths of the latest ``trail`` sweeps over the log-density
     contours (a 2-D slice through the pilot mean for an n-D target; computed
     once per region). Right: a trace per chain of each shown coordinate, and
-    the largest gap between chains per sweep (log scale). The figure's title
-    and a readout give the sweep count, the shift in use and the largest
-    distance between chains. Step, Play/Pause (front-end driven: each tick of the Play control makes one
+    the chain spread per sweep (``draw.gibbs.chain_spread``: the widest gap
+    between chains over the coordinates; log scale). The figure's title and a
+    readout give the sweep count, the shift in use and the chain spread now. Step, Play/Pause (front-end driven: each tick of the Play control makes one
     sweep, so the kernel is never blocked) and Reset drive it.
 
     Everything is on the sampler's (unconstrained) scale; for a target without
@@ -132,8 +133,9 @@ class ShiftGibbsView(View):
     path_points : ndarray, shape (chain, k, dim)
         The states the paths are drawn through: the start followed by the
         draws (the latest ``trail + 1`` of them), sampler's scale.
-    distance : float
-        Largest Euclidean distance between two chains now (sampler's scale).
+    spread : float
+        The chain spread now: the widest gap between chains over the
+        coordinates (sampler's scale; ``distance`` is its deprecated former name).
     met_at : int or None
         Index of the first draw (since the last reset) at which all chains coincided.
 
@@ -159,7 +161,7 @@ class ShiftGibbsView(View):
     >>> view.n_sweeps
     20
     >>> view.step(40)
-    >>> view.distance < 1e-9
+    >>> view.spread < 1e-9
     True
     """
 
@@ -408,7 +410,7 @@ class ShiftGibbsView(View):
         for c, head in enumerate(self._paths.heads):
             head.set_markersize(max(11.0 - 0.8 * c, 5.0))
         self._ax_spread.set_xlabel("draw (one sweep each)")
-        self._ax_spread.set_ylabel("largest gap\nbetween chains")
+        self._ax_spread.set_ylabel("chain spread")
         self._ax_spread.yaxis.set_major_locator(LogLocator(numticks=5))
         self._ax_spread.yaxis.set_minor_locator(NullLocator())
         for ax in (self._ax_tx, self._ax_ty):
@@ -538,13 +540,17 @@ class ShiftGibbsView(View):
         return z if self.trail == 0 else z[:, -(self.trail + 1):]
 
     @property
-    def distance(self):
-        """Largest Euclidean distance between two chains now (sampler's scale)."""
+    def spread(self):
+        """The chain spread now (``chain_spread`` of the chains' states, sampler's scale)."""
         if self.sampler is None:
             return float("nan")
-        z = self.sampler.state.position
-        diff = z[:, None, :] - z[None, :, :]
-        return float(np.sqrt(np.max(np.sum(diff * diff, axis=-1))))
+        return float(chain_spread(self.sampler.state.position[:, None, :])[0])
+
+    @property
+    def distance(self):
+        """Deprecated: the former name of ``spread``."""
+        warn_renamed("distance", "spread", "attribute")
+        return self.spread
 
     # -------------------------------------------------------------- observers
     @traitlets.observe("shift", "random_shift", "ordinary", "n_chains", "seed")
@@ -697,7 +703,7 @@ class ShiftGibbsView(View):
         else:
             mode = f"c = {number(self.shift)}"
         parts = [plural(self.n_sweeps, "sweep"), f"shift {mode}",
-                 f"largest distance between chains {number(self.distance, 3)}"]
+                 f"chain spread {number(self.spread, 3)}"]
         if self.met_at is not None:
             parts.append(f"<b>all chains met at draw {self.met_at}</b>")
         if self._replayed is not None:
