@@ -19,7 +19,8 @@ def test_internals_live_in_their_modules_not_at_the_top():
 
 def test_every_exported_name_exists_and_the_views_show_in_dir():
     names = dir(pg)
-    for view in ("TrajectoryView", "ChainView", "ShiftGibbsView", "DivergenceView", "TuningMap"):
+    for view in ("TrajectoryView", "ChainView", "ShiftGibbsView", "DivergenceView", "TuningMap",
+                 "DoublingView"):
         assert view in names
     for name in pg.__all__:
         assert getattr(pg, name) is not None, name

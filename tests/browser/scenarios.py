@@ -83,7 +83,16 @@ MANY_PARAMETERS = Scenario(
     view_names=("DivergenceView-50-parameters",),
 )
 
-ALL = (TOUR, DIVERGENCES, PERSISTENT_VS_HMC, SHIFT_GIBBS, YOUR_MODEL, MANY_PARAMETERS)
+TREE_DEPTH = Scenario(
+    name="tree_depth",
+    notebook=NOTEBOOKS / "tree_depth.ipynb",
+    copy_whole_folder=True,  # one server for all the notebooks
+    run_timeout_s=240.0,  # two NUTS runs (~10 s headless)
+    check_views=True,
+    view_names=("DoublingView-saturated", "DoublingView-with-mass-matrix"),
+)
+
+ALL = (TOUR, DIVERGENCES, PERSISTENT_VS_HMC, SHIFT_GIBBS, YOUR_MODEL, MANY_PARAMETERS, TREE_DEPTH)
 
 
 def run_budget_s(scenario: Scenario) -> float:
