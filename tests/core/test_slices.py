@@ -120,3 +120,24 @@ def test_choose_limits_single_point_and_quantiles():
         choose_limits(np.zeros((2, 2)), np.zeros((2, 3)))
     with pytest.raises(ValueError, match="at least one source"):
         choose_limits()
+
+
+def test_one_coordinate_lookup_serves_pairs_and_drawings():
+    # issue 12: coordinate lookup exists once (core.slices.resolve_coord)
+    from matplotlib.figure import Figure
+
+    from phaseglass.core.slices import resolve_coord
+    from phaseglass.draw import draw_traces
+
+    names = ("mu", "log_tau", "nu")
+    assert resolve_coord("nu", names) == 2 and resolve_coord(-1, dim=3) == 2
+    assert resolve_coords(("nu", -3), names) == (2, 0)
+    with pytest.raises(ValueError, match="`coord` names an unknown coordinate 'sigma'"):
+        resolve_coord("sigma", names)
+    with pytest.raises(ValueError, match="`coord` index 3 is out of range for 3 coordinates"):
+        resolve_coord(3, names)
+    with pytest.raises(TypeError, match="`coords` entries must be int or str"):
+        resolve_coords((0, 1.5), names)
+    draws = np.zeros((2, 5, 3))
+    with pytest.raises(ValueError, match="unknown coordinate 'sigma' \\(known names: mu, log_tau, nu\\)"):
+        draw_traces(Figure().add_subplot(), draws, "sigma", names=names)

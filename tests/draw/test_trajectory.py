@@ -137,6 +137,10 @@ def test_trajectory_from_a_batch_and_by_name(ax, gaussian):
     assert_allclose(single.energy_error, batch.energy_error[1])
     with pytest.raises(ValueError, match="chain"):
         one_chain(batch, 5)
+    # one definition (issue 12): the drawings use the core's, as the sampler's divergence records do
+    from phaseglass.core.leapfrog import one_chain as core_one_chain
+
+    assert one_chain is core_one_chain
     with pytest.raises(TypeError, match="Trajectory"):
         draw_trajectory(ax, np.zeros((3, 2)))
 

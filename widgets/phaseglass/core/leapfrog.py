@@ -237,6 +237,37 @@ class Trajectory:
                 f"dim={self.positions.shape[2]}, {int(np.sum(self.divergent))} divergent)")
 
 
+def one_chain(trajectory, chain=0):
+    """Return one chain's Trajectory from a batch Trajectory (a single one is returned as is).
+
+    The one way to take a chain out of a batch: the sampler's divergence records,
+    previews and every drawing use it.
+
+    Parameters
+    ----------
+    trajectory : Trajectory
+        Single (positions (n_steps + 1, dim)) or batch (chains, n_steps + 1, dim).
+    chain : int
+    """
+    if not isinstance(trajectory, Trajectory):
+        raise TypeError(f"`trajectory` must be a phaseglass Trajectory, got {type(trajectory).__name__}")
+    if trajectory.positions.ndim == 2:
+        return trajectory
+    n = trajectory.positions.shape[0]
+    if not -n <= chain < n:
+        raise ValueError(f"`chain` must be in range({n}) for this batch, got {chain}")
+    div = bool(trajectory.divergent[chain])
+    eps = np.asarray(trajectory.step_size).reshape(-1)
+    return Trajectory(
+        positions=trajectory.positions[chain], momenta=trajectory.momenta[chain],
+        potential=trajectory.potential[chain], kinetic=trajectory.kinetic[chain],
+        hamiltonian=trajectory.hamiltonian[chain], energy_error=trajectory.energy_error[chain],
+        divergent=div, divergence_step=int(trajectory.divergence_step[chain]) if div else None,
+        step_size=float(eps[chain] if eps.size > 1 else eps[0]), n_steps=trajectory.n_steps,
+        max_energy_error=trajectory.max_energy_error,
+    )
+
+
 def trajectory_from(integration, step_size, n_steps, max_energy_error, single):
     """Build the public Trajectory from a recorded integration."""
     rec = integration.record

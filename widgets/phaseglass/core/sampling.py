@@ -13,7 +13,7 @@ import numpy as np
 from ._validate import RENAMED, check_fraction, check_in, check_int, warn_renamed
 from .adaptation import DualAveraging, estimate_metric, warmup_windows
 from .kernels import ChainState, Kernel
-from .leapfrog import integrate, trajectory_from
+from .leapfrog import integrate, one_chain, trajectory_from
 from .run import Run
 from .streams import Streams
 from .target import Target
@@ -295,7 +295,8 @@ class Sampler:
         kernel = self.kernel
         if traj is not None:  # already integrated (record=True): nothing to defer
             for r in rows:
-                self.divergences.append(DivergenceReplay(int(r), draw, trajectory=_select(traj, r)))
+                self.divergences.append(DivergenceReplay(int(r), draw,
+                                                         trajectory=one_chain(traj, int(r))))
             return
         if start_momentum is None:
             return
@@ -446,7 +447,7 @@ class DivergenceReplay:
         """The replayed Trajectory of this chain (integrated on first read)."""
         if self._trajectory is None:
             traj = self._batch.trajectory()
-            self._trajectory = traj if self._batch.single else _select(traj, self._row)
+            self._trajectory = traj if self._batch.single else one_chain(traj, self._row)
             self._batch = None  # the batch's other rows keep it alive as long as they need it
         return self._trajectory
 
@@ -468,21 +469,6 @@ class DivergenceReplay:
     def __repr__(self):
         what = repr(self._trajectory) if self._trajectory is not None else "not replayed yet"
         return f"DivergenceReplay(chain={self.chain}, draw={self.draw}, {what})"
-
-
-def _select(traj, row):
-    """One chain's Trajectory out of a batch Trajectory."""
-    from .leapfrog import Trajectory
-
-    div = bool(traj.divergent[row])
-    return Trajectory(
-        positions=traj.positions[row], momenta=traj.momenta[row], potential=traj.potential[row],
-        kinetic=traj.kinetic[row], hamiltonian=traj.hamiltonian[row],
-        energy_error=traj.energy_error[row], divergent=div,
-        divergence_step=int(traj.divergence_step[row]) if div else None,
-        step_size=float(np.asarray(traj.step_size).reshape(-1)[row if np.ndim(traj.step_size) else 0]),
-        n_steps=traj.n_steps, max_energy_error=traj.max_energy_error,
-    )
 
 
 #: The automatic warm-up length: as many transitions as draws, but at least

@@ -10,7 +10,42 @@ import numpy as np
 
 from ._validate import check_int
 
-__all__ = ["resolve_coords", "log_density_grid", "choose_limits"]
+__all__ = ["resolve_coord", "resolve_coords", "log_density_grid", "choose_limits"]
+
+
+def resolve_coord(coord, names=None, dim=None, *, argument="coord"):
+    """Turn one coordinate given by index or by name into an int (the one lookup of phaseglass).
+
+    Parameters
+    ----------
+    coord : int or str
+        An index (negative counts from the end) or a name from ``names``.
+    names : sequence of str, optional
+    dim : int, optional
+        Number of coordinates; defaults to ``len(names)``.
+    argument : str
+        The argument named in error messages.
+
+    Examples
+    --------
+    >>> resolve_coord("c", names=("a", "b", "c")), resolve_coord(-1, dim=3)
+    (2, 2)
+    """
+    if dim is None:
+        dim = None if names is None else len(names)
+    if isinstance(coord, str):
+        if names is None or coord not in names:
+            known = "no names are known" if names is None else f"known names: {', '.join(names)}"
+            raise ValueError(f"`{argument}` names an unknown coordinate {coord!r} ({known})")
+        return list(names).index(coord)
+    if isinstance(coord, numbers.Integral) and not isinstance(coord, bool):
+        i = int(coord)
+        if dim is not None:
+            if not -dim <= i < dim:
+                raise ValueError(f"`{argument}` index {i} is out of range for {dim} coordinates")
+            i %= dim
+        return i
+    raise TypeError(f"`{argument}` entries must be int or str, got {type(coord).__name__} {coord!r}")
 
 
 def resolve_coords(coords, names=None, dim=None):
@@ -37,24 +72,7 @@ def resolve_coords(coords, names=None, dim=None):
     """
     if isinstance(coords, (str, numbers.Integral)) or np.ndim(coords) != 1 or len(coords) != 2:
         raise ValueError(f"`coords` must be a pair of indices or names, got {coords!r}")
-    if dim is None:
-        dim = None if names is None else len(names)
-    out = []
-    for c in coords:
-        if isinstance(c, str):
-            if names is None or c not in names:
-                known = "no names are known" if names is None else f"known names: {', '.join(names)}"
-                raise ValueError(f"`coords` names an unknown coordinate {c!r} ({known})")
-            out.append(list(names).index(c))
-        elif isinstance(c, numbers.Integral) and not isinstance(c, bool):
-            i = int(c)
-            if dim is not None:
-                if not -dim <= i < dim:
-                    raise ValueError(f"`coords` index {i} is out of range for {dim} coordinates")
-                i %= dim
-            out.append(i)
-        else:
-            raise TypeError(f"`coords` entries must be int or str, got {type(c).__name__} {c!r}")
+    out = [resolve_coord(c, names, dim, argument="coords") for c in coords]
     if out[0] == out[1]:
         raise ValueError(f"`coords` must name two different coordinates, got {coords!r}")
     return tuple(out)

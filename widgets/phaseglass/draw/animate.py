@@ -73,7 +73,7 @@ def record_chain(target, kernel, n_transitions=20, *, seed=None, initial=None):
     """
     from phaseglass.core.sampling import Sampler
 
-    from .trajectory import one_chain
+    from ..core.leapfrog import one_chain
 
     n_transitions = int(n_transitions)
     if n_transitions < 1:

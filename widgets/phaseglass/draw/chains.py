@@ -8,6 +8,7 @@ from matplotlib.axes import Axes
 from matplotlib.lines import Line2D
 
 from phaseglass.core.efficiency import MIN_ESS_DRAWS, ess_per_gradient
+from phaseglass.core.slices import resolve_coord, resolve_coords
 
 from . import style
 from ._base import Drawing, as_chain_draws, check_divergent, exclude_from_autoscale
@@ -19,23 +20,13 @@ __all__ = [
 ]
 
 
-def _coord(coord, names):
-    if isinstance(coord, str):
-        if coord not in names:
-            raise ValueError(f"`coord` {coord!r} is not one of {', '.join(names)}")
-        return names.index(coord)
-    i = int(coord)
-    if not -len(names) <= i < len(names):
-        raise ValueError(f"`coord` {i} is out of range for {len(names)} coordinates")
-    return i % len(names)
-
-
 def _coords(coords, names, limit=6):
+    """Indices of ``coords`` (one or several; the first ``limit`` when None)."""
     if coords is None:
         return list(range(min(len(names), limit)))
     if isinstance(coords, (str, int, np.integer)):
         coords = [coords]
-    return [_coord(c, names) for c in coords]
+    return [resolve_coord(c, names, argument="coords") for c in coords]
 
 
 def _chain_lines(ax, n, **extra):
@@ -119,7 +110,7 @@ def draw_traces(ax, draws, coord=0, *, names=None, divergent=None, first=0):
         ``update(draws, divergent=None, *, first=None)`` reuses the lines.
     """
     x, names, div_run = as_chain_draws(draws, names)
-    coord = _coord(coord, names)
+    coord = resolve_coord(coord, names)
     style.dress(ax)
     lines = _chain_lines(ax, x.shape[0], linewidth=0.9, alpha=0.9)
     (div,) = ax.plot([], [], zorder=5, linestyle="none", markersize=7,
@@ -186,7 +177,7 @@ def draw_autocorrelation(ax, draws, coord=0, *, max_lag=40, names=None):
         ``update(draws)`` recomputes into the same lines.
     """
     x, names, _ = as_chain_draws(draws, names)
-    coord = _coord(coord, names)
+    coord = resolve_coord(coord, names)
     if int(max_lag) < 1:
         raise ValueError(f"`max_lag` must be >= 1, got {max_lag}")
     style.dress(ax)
@@ -427,7 +418,7 @@ def _next_parts(transition, coords, chain):
     """Split a pending transition into (path, divergent segment, proposal), each (k, 2)."""
     from phaseglass.core.leapfrog import Trajectory
 
-    from .trajectory import one_chain
+    from ..core.leapfrog import one_chain
 
     none = np.empty((0, 2))
     if transition is None:
@@ -525,7 +516,6 @@ def draw_next_transition(ax, transition=None, accepted=None, *, coords=(0, 1), c
     >>> d.path.get_xydata().shape
     (13, 2)
     """
-    from phaseglass.core.slices import resolve_coords
 
     if names is not None:
         coords = resolve_coords(coords, names, len(names))

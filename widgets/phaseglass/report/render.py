@@ -87,7 +87,7 @@ def png(fig, dpi):
 def _replay(run, seed):
     """One fresh transition of chain 0 from its last draw with the tuned kernel, recorded."""
     from ..core.sampling import Sampler
-    from ..draw.trajectory import one_chain
+    from ..core.leapfrog import one_chain
 
     sampler = Sampler(run.target, run.kernel.copy(), run.draws[0, -1], n_chains=1, seed=seed)
     info = sampler.step(record=True)

@@ -12,6 +12,7 @@ from matplotlib.ticker import MaxNLocator
 from ..core._validate import MAX_STEPS, warn_renamed
 from ..core.efficiency import MIN_ESS_DRAWS, ess_per_gradient, evaluation_cost
 from ..core.kernels import HMC, PartialRefreshHMC, RandomWalk
+from ..core.leapfrog import one_chain
 from ..core.metric import Metric
 from ..core.nuts import MAX_DEPTH_LIMIT, NUTS
 from ..core.registry import KNOB_LABELS, kernel_kind
@@ -22,7 +23,6 @@ from ..core.uniforms import DriftingUniform, FreshUniform
 from ..draw import draw_log_density, draw_pair, draw_traces, draw_trajectory, draw_uniform_sequence
 from ..draw.chains import draw_next_transition
 from ..draw.style import key_handles, legend
-from ..draw.trajectory import one_chain
 from ..draw.uniforms import draw_next_decision
 from ._base import View, check_range, check_target, guarded, number, plural
 from ._controls import KnobControl
