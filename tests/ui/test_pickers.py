@@ -111,7 +111,7 @@ def test_text_widths_are_at_least_what_matplotlib_lays_out():
     from matplotlib.textpath import TextToPath
 
     prop = FontProperties(family="DejaVu Sans", size=13)
-    for text in ("site[117]", "log_tau", "AVATAR", "effect_of_fertiliser_on_orchard[119]",
+    for text in ("site[117]", "log_tau", "AVATAR", "effect_of_fertiliser_on_paddock[119]",
                  "\u03c3_\u03b1 \u00d7 mu"):
         # matplotlib's own layout of the string (with kerning) in the same face
         laid_out = TextToPath().get_text_width_height_descent(text, prop, ismath=False)[0]
@@ -122,7 +122,7 @@ def test_the_box_holds_the_longest_name_and_two_pickers_fit_the_column():
     width = box_width_px(NAMES)
     # the box: the longest name in DejaVu Sans (wider than notebook fonts), padding, the arrow
     assert width >= text_width_px("site[117]") + 30
-    long_names = [f"effect_of_fertiliser_on_orchard[{i}]" for i in range(120)]
+    long_names = [f"effect_of_fertiliser_on_paddock[{i}]" for i in range(120)]
     wide = box_width_px(long_names)
     assert text_width_px(long_names[-1]) + 30 <= wide <= 330
     # x and y pickers with their labels, next to a 340 px control, within 800 px
