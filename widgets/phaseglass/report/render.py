@@ -46,8 +46,8 @@ _CAPTIONS = {
               f"between energy levels slowly; E-BFMI below {EBFMI_LIMIT} flags it.",
     "pairs": "Pairwise scatter of the draws (chains pooled), divergent transitions marked X, "
              "and each coordinate's histogram.",
-    "gibbs": "Chains sharing one random stream: their latest paths (left) and the largest gap "
-             "between chains per draw (right).",
+    "gibbs": "Chains sharing one random stream: their latest paths (left) and the chain spread "
+             "(the widest gap between chains over the coordinates) per draw (right).",
     "tuning": TUNING_LABEL + " for a grid of step size x leapfrog steps around the run's "
               "settings ({draws} draws per chain per cell). Short runs are noisy: read it for "
               "trends, not decimals.",

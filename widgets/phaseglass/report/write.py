@@ -64,7 +64,7 @@ def write_report(out_dir, run, *, settings=None, title=None, coords=None, grid=T
     coords : pair of int or str, optional
         Coordinates of the trajectory, paths and first pair (default the first two).
     grid : bool
-        Add the step size x steps heat map (a few short extra runs; leapfrog kernels).
+        Add the step size x leapfrog steps heat map (a few short extra runs; leapfrog kernels).
     grid_draws : int
         Draws per chain in each heat-map cell.
     animation : bool

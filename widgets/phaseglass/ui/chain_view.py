@@ -217,7 +217,7 @@ class ChainView(View):
     scale = traitlets.Float(0.5, help="The random walk's proposal scale.").tag(setting=True)
     max_depth = traitlets.Int(10, help="NUTS: most doublings per transition.").tag(setting=True)
     persistence = traitlets.Float(0.9, help="Momentum persistence of partial refresh.").tag(setting=True)
-    drift = traitlets.Float(0.03, help="Drift per draw of the drifting uniform.").tag(setting=True)
+    drift = traitlets.Float(0.03, help="Drift per transition of the drifting uniform.").tag(setting=True)
     n_chains = traitlets.Int(2, help="Number of chains.").tag(setting=True)
     seed = traitlets.Int(0, help="Seed of every random stream.").tag(setting=True)
     coords = traitlets.Tuple(traitlets.Int(), traitlets.Int(),
