@@ -6,9 +6,10 @@ not a test and asserts nothing.
 
 Three questions, each against a goal:
 
-1. Sampler overhead. Wall time of ``pg.sample(..., n_chains=1)`` divided by the time
-   of the same number of bare gradient evaluations (the target's own joint
-   value-and-gradient function called in a loop). Goal <= 1.25 wherever one gradient
+1. Sampler overhead (``--overhead-only`` runs just this). Wall time of ``pg.sample`` with
+   1 and with 4 chains divided by the time of the same bare gradient calls (the target's
+   own joint value-and-gradient function called in a loop on the same batches: all
+   chains still moving at each step). Goal <= 1.25 wherever one gradient
    costs >= 0.1 ms (we count late_returns in, the "~0.1 ms" case, even when it
    measures a little less); for cheaper gradients the ratio says little, so we report
    the fixed cost per leapfrog step in microseconds instead. The bare loop evaluates
@@ -129,44 +130,80 @@ def hand_written_hmc(value_and_grad, x0, step_size, n_steps, n_draws, seed):
     return draws
 
 
-def overhead_row(name, target, x0, step_size, n_steps, n_draws, repeats):
+def overhead_row(name, target, x0, step_size, n_steps, n_draws, repeats, n_chains=1):
     vg = target._user_vg  # the user's own joint function, no wrapper
     kernel = pg.HMC(step_size, n_steps, jitter=0.0)
-    probe = pg.sample(target, kernel, x0, n_draws=n_draws, n_chains=1, seed=1, keep_trajectories=True, warmup=0)
+    probe = pg.sample(target, kernel, x0, n_draws=n_draws, n_chains=n_chains, seed=1,
+                      keep_trajectories=True, warmup=0)
     # The bare loop evaluates the very points the sampler evaluated (the start, then every
-    # leapfrog step), since a gradient's cost can depend on where it is taken.
-    steps = np.concatenate([tr.positions[0, 1:] for tr in probe.trajectories])
-    steps = steps[np.all(np.isfinite(steps), axis=1)]  # nothing is evaluated after a divergence
-    points = np.concatenate([x0[None, :], steps])[:, None, :].copy()  # (n_grad, 1, dim)
-    n_grad = points.shape[0]
-    assert n_grad == probe.total_grad + 1  # plus the gradient at the start
+    # leapfrog step, in the same batches: the chains still moving at that step), since a
+    # gradient's cost can depend on where it is taken and on the batch size.
+    points = [np.repeat(x0[None, :], n_chains, axis=0)]
+    for tr in probe.trajectories:  # positions (chain, step, dim)
+        for k in range(1, tr.positions.shape[1]):
+            rows = tr.positions[:, k]
+            rows = rows[np.all(np.isfinite(rows), axis=1)]  # nothing is evaluated after a divergence
+            if rows.size:
+                points.append(np.ascontiguousarray(rows))
+    n_grad = sum(x.shape[0] for x in points)
+    assert n_grad == probe.total_grad + n_chains  # plus the gradients at the start
+    n_calls = len(points)
 
     def bare():
         for x in points:
             vg(x)
 
     def ours():
-        pg.sample(target, kernel, x0, n_draws=n_draws, n_chains=1, seed=1, warmup=0)
+        pg.sample(target, kernel, x0, n_draws=n_draws, n_chains=n_chains, seed=1, warmup=0)
 
     def hand():
         hand_written_hmc(vg, x0, step_size, n_steps, n_draws, 1)
 
-    # interleave the three so that a burst of load elsewhere hits them alike
-    results = {"bare": [], "ours": [], "hand": []}
+    # interleave them so that a burst of load elsewhere hits them alike
+    fns = (("bare", bare), ("ours", ours)) + ((("hand", hand),) if n_chains == 1 else ())
+    results = {key: [] for key, _ in fns}
     for _ in range(repeats):
-        for key, fn in (("bare", bare), ("ours", ours), ("hand", hand)):
+        for key, fn in fns:
             results[key].append(best_of(fn, 1))
-    t_bare, t_ours, t_hand = (
-        Timing(min(t.wall for t in results[k]), min(t.cpu for t in results[k]))
-        for k in ("bare", "ours", "hand"))
+    best = {k: Timing(min(t.wall for t in v), min(t.cpu for t in v)) for k, v in results.items()}
+    t_bare, t_ours, t_hand = best["bare"], best["ours"], best.get("hand")
     return {
-        "name": name, "grad_ms": 1e3 * t_bare.wall / n_grad, "n_grad": n_grad,
-        "acceptance": float(np.mean(probe.accepted)),
-        "ratio_bare": t_ours / t_bare, "ratio_hand": t_ours / t_hand,
-        "hand_over_bare": t_hand / t_bare,
-        "fixed_us": (t_ours - t_bare) * (1e6 / n_grad),
-        "hand_fixed_us": (t_hand - t_bare) * (1e6 / n_grad),
+        "name": name, "n_chains": n_chains, "grad_ms": 1e3 * t_bare.wall / n_calls,
+        "n_grad": n_grad, "acceptance": float(np.mean(probe.accepted)),
+        "ratio_bare": t_ours / t_bare, "ratio_hand": t_ours / t_hand if t_hand else None,
+        "hand_over_bare": t_hand / t_bare if t_hand else None,
+        "fixed_us": (t_ours - t_bare) * (1e6 / n_calls),
+        "hand_fixed_us": (t_hand - t_bare) * (1e6 / n_calls) if t_hand else None,
     }
+
+
+def print_overhead(rows):
+    print("## Sampler overhead, 1 and 4 chains (HMC, 10 leapfrog steps, no warm-up)\n")
+    print("Wall time, CPU time in parentheses. A gradient is one batched call for all chains "
+          "still moving (4 rows with 4 chains); fixed cost is per leapfrog step (per batched call).\n")
+    print("| target | chains | gradient call (ms) | pg.sample / bare gradients | goal "
+          "| fixed cost per step, ours (µs) | fixed cost per step, hand-written (µs) "
+          "| pg.sample / hand-written HMC | goal |")
+    print("|---|---|---|---|---|---|---|---|---|")
+    for r in rows:
+        # late_returns is the brief's "~0.1 ms gradient" case; count it in even if it measures a bit less
+        costly = r["grad_ms"] >= 0.1 or r["name"].startswith("late_returns()")
+        goal = "<= 1.25" if costly else "n/a (< 0.1 ms): see µs"
+        hand = (f"{r['hand_fixed_us'].fmt('.1f')} | {r['ratio_hand'].fmt('.2f')} | <= 1.1"
+                if r["ratio_hand"] is not None else "n/a | n/a (one chain only) | n/a")
+        print(f"| {r['name']} | {r['n_chains']} | {r['grad_ms']:.4f} | {r['ratio_bare'].fmt('.2f')} "
+              f"| {goal} | {r['fixed_us'].fmt('.1f')} | {hand} |")
+    print()
+    for r in rows:
+        costly = r["grad_ms"] >= 0.1 or r["name"].startswith("late_returns()")
+        verdicts = []
+        if costly:
+            verdicts.append(f"vs bare {'met' if r['ratio_bare'].wall <= 1.25 else 'MISSED'}")
+        if r["ratio_hand"] is not None:
+            verdicts.append(f"vs hand-written {'met' if r['ratio_hand'].wall <= 1.1 else 'MISSED'}")
+        if verdicts:
+            print(f"- {r['name']}, {r['n_chains']} chain(s): {', '.join(verdicts)} (wall time)")
+    print()
 
 
 def batching_row(n_batch, n_single, n_draws, repeats):
@@ -588,6 +625,8 @@ def main():
     parser.add_argument("--sweeps", type=int, default=None, help=argparse.SUPPRESS)
     parser.add_argument("--repeats", type=int, default=None, help=argparse.SUPPRESS)
     parser.add_argument("--gibbs-json", action="store_true", help=argparse.SUPPRESS)  # for --before
+    parser.add_argument("--overhead-only", action="store_true",
+                        help="only question 1, sampler overhead for 1 and 4 chains")
     parser.add_argument("--memory-only", action="store_true",
                         help="only questions 6 and 7, memory and divergence replays")
     parser.add_argument("--memory-json", action="store_true", help=argparse.SUPPRESS)  # a child
@@ -631,30 +670,14 @@ def main():
     lr = pg.demos.late_returns()
     cases.append(("late_returns() 2000x20", lr, lr.true_coef.copy(), 0.02, 10,
                   max(int(300 * scale), 10)))
-    rows = [overhead_row(*case, repeats=2 * repeats - 1) for case in cases]  # these are short
-
-    print("## Sampler overhead, one chain (HMC, 10 leapfrog steps, no warm-up)\n")
-    print("Wall time, CPU time in parentheses.\n")
-    print("| target | gradient (ms) | gradients | pg.sample / bare gradients | goal "
-          "| fixed cost per step, ours (µs) | fixed cost per step, hand-written (µs) "
-          "| pg.sample / hand-written HMC | goal |")
-    print("|---|---|---|---|---|---|---|---|---|")
-    for r in rows:
-        # late_returns is the brief's "~0.1 ms gradient" case; count it in even if it measures a bit less
-        costly = r["grad_ms"] >= 0.1 or r["name"].startswith("late_returns")
-        goal = "<= 1.25" if costly else "n/a (< 0.1 ms): see µs"
-        print(f"| {r['name']} | {r['grad_ms']:.4f} | {r['n_grad']} | {r['ratio_bare'].fmt('.2f')} | {goal} | "
-              f"{r['fixed_us'].fmt('.1f')} | {r['hand_fixed_us'].fmt('.1f')} | "
-              f"{r['ratio_hand'].fmt('.2f')} | <= 1.1 |")
-    print()
-    for r in rows:
-        costly = r["grad_ms"] >= 0.1 or r["name"].startswith("late_returns")
-        verdicts = []
-        if costly:
-            verdicts.append(f"vs bare {'met' if r['ratio_bare'].wall <= 1.25 else 'MISSED'}")
-        verdicts.append(f"vs hand-written {'met' if r['ratio_hand'].wall <= 1.1 else 'MISSED'}")
-        print(f"- {r['name']}: {', '.join(verdicts)} (wall time)")
-    print()
+    small = pg.demos.late_returns(n_rows=400, n_coef=11)
+    cases.append(("late_returns(400 rows, 11 coefficients)", small, small.true_coef.copy(), 0.03, 10,
+                  max(int(300 * scale), 10)))
+    rows = [overhead_row(*case, repeats=2 * repeats - 1, n_chains=c)  # these are short
+            for c in (1, 4) for case in cases]
+    print_overhead(rows)
+    if args.overhead_only:
+        return
 
     b = batching_row(n_batch=1000, n_single=10 if not args.quick else 3,
                      n_draws=max(int(200 * scale), 10), repeats=repeats)

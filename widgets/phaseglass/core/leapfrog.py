@@ -54,6 +54,19 @@ class _Integration:
                  "divergence_step", "n_grad", "record")
 
 
+def _same(p):
+    return p
+
+
+def _velocity_of(metric):
+    """``metric.velocity`` without its per-call dispatch on the kind (same products)."""
+    if metric.kind == "identity":
+        return _same
+    if metric.kind == "diagonal":
+        return metric.inverse_mass.__mul__  # inverse_mass * p, equal to p * inverse_mass
+    return metric.velocity
+
+
 def integrate(target, position, momentum, logp, grad, step_size, n_steps, metric,
               max_energy_error=DEFAULT_MAX_ENERGY_ERROR, record=False):
     """Integrate a batch of chains; each stops at its first non-finite value or large energy error.
@@ -66,15 +79,17 @@ def integrate(target, position, momentum, logp, grad, step_size, n_steps, metric
     if n == 1 and not record:
         return _integrate_one(target, position, momentum, logp, grad, step_size, n_steps, metric,
                               max_energy_error)
-    eps = np.empty((n, 1))
-    eps[:, 0] = step_size  # a scalar or (n,)
-    half = 0.5 * eps
-    if n == 1 or np.ndim(step_size) == 0:
+    scalar = getattr(step_size, "ndim", 0) == 0  # np.ndim costs a microsecond on a float
+    if n == 1 or scalar:
         # one step size for every chain: the same products with a Python float, which
         # numpy applies faster than a broadcast (n, 1) array
-        eps_all = float(np.ravel(step_size)[0])
+        eps_all = float(step_size) if scalar else float(np.ravel(step_size)[0])
         half_all = 0.5 * eps_all
+        eps = half = None  # (n, 1) arrays, made only if a chain stops early
     else:
+        eps = np.empty((n, 1))
+        eps[:, 0] = step_size  # (n,)
+        half = 0.5 * eps
         eps_all, half_all = eps, half
     velocity = metric.velocity
     kinetic = metric.kinetic
@@ -82,7 +97,7 @@ def integrate(target, position, momentum, logp, grad, step_size, n_steps, metric
     h0 = -logp + kinetic(momentum)
     q, p, lp, g = position, momentum, logp, grad
     h_end = h0.copy()
-    divergence_step = np.full(n, -1)
+    divergence_step = None  # (n,) made at the first divergence; -1 for chains that ran through
     active = None  # None means every chain is still moving
     rec = None
     if record:
@@ -94,14 +109,29 @@ def integrate(target, position, momentum, logp, grad, step_size, n_steps, metric
         }
         rec["positions"][0], rec["momenta"][0] = q, p
         rec["potential"][0], rec["kinetic"][0] = -lp, h0 + lp
+    # The loop while every chain moves is written out with the metric's own products
+    # (the same operations, in the same order, as _kick_drift_kick and Metric.kinetic),
+    # so a step costs as few numpy calls as it can: this is the sampler's hot path.
+    fast_velocity = _velocity_of(metric)
+    add_reduce, max_reduce, absolute = np.add.reduce, np.maximum.reduce, np.abs
     with np.errstate(all="ignore"):
         for k in range(1, n_steps + 1):
             if active is None:
-                qn, pn, lpn, gn = _kick_drift_kick(q, p, g, eps_all, half_all, velocity, vg)
-                idx = slice(None)
-                kn = kinetic(pn)
+                p_half = p + half_all * g
+                qn = q + eps_all * fast_velocity(p_half)
+                lpn, gn = vg(qn)
+                pn = p_half + half_all * gn
+                kn = 0.5 * add_reduce(pn * fast_velocity(pn), axis=-1)
                 hn = kn - lpn
                 err = hn - h0
+                # |err| <= max is False for NaN too (max_reduce propagates NaN). A
+                # non-finite gradient always shows up here: it makes the new momentum,
+                # hence the kinetic energy (a positive-definite form, so nothing cancels)
+                # and the energy error, non-finite.
+                if rec is None and max_reduce(absolute(err)) <= max_energy_error:
+                    q, p, lp, g, h_end = qn, pn, lpn, gn, hn
+                    continue
+                idx = slice(None)
             else:
                 idx = np.flatnonzero(active)
                 if idx.size == 0:
@@ -114,14 +144,7 @@ def integrate(target, position, momentum, logp, grad, step_size, n_steps, metric
             if rec is not None:
                 rec["positions"][k, idx], rec["momenta"][k, idx] = qn, pn
                 rec["potential"][k, idx], rec["kinetic"][k, idx] = -lpn, kn
-            # |err| <= max is False for NaN too. A non-finite gradient always shows up here:
-            # it makes the new momentum, hence the kinetic energy (a positive-definite form,
-            # so nothing cancels) and the energy error, non-finite.
-            if err.size == 1:
-                all_fine = abs(err[0]) <= max_energy_error  # scalar test: cheaper for one chain
-            else:
-                all_fine = (np.abs(err) <= max_energy_error).all()
-            if all_fine:
+            if max_reduce(absolute(err)) <= max_energy_error:
                 if active is None:
                     q, p, lp, g, h_end = qn, pn, lpn, gn, hn
                 else:
@@ -132,6 +155,10 @@ def integrate(target, position, momentum, logp, grad, step_size, n_steps, metric
                 active = np.ones(n, dtype=bool)
                 q, p, lp, g = q.copy(), p.copy(), lp.copy(), g.copy()
                 idx = np.arange(n)
+                divergence_step = np.full(n, -1)
+                if eps is None:
+                    eps = np.full((n, 1), eps_all)
+                    half = 0.5 * eps
             ok, stop = idx[~bad], idx[bad]
             q[ok], p[ok], lp[ok], g[ok], h_end[ok] = qn[~bad], pn[~bad], lpn[~bad], gn[~bad], hn[~bad]
             h_end[stop] = hn[bad]
@@ -140,10 +167,15 @@ def integrate(target, position, momentum, logp, grad, step_size, n_steps, metric
     out = _Integration()
     out.position, out.momentum, out.logp, out.grad = q, p, lp, g
     out.h0, out.h_end = h0, h_end
-    out.divergent = divergence_step >= 0
-    out.divergence_step = divergence_step
-    # one gradient per step taken: a chain that stopped at step k evaluated k of them
-    out.n_grad = np.where(out.divergent, divergence_step, n_steps)
+    if divergence_step is None:  # every chain ran through
+        out.divergent = np.zeros(n, dtype=bool)
+        out.divergence_step = np.full(n, -1)
+        out.n_grad = np.full(n, n_steps)
+    else:
+        out.divergent = divergence_step >= 0
+        out.divergence_step = divergence_step
+        # one gradient per step taken: a chain that stopped at step k evaluated k of them
+        out.n_grad = np.where(out.divergent, divergence_step, n_steps)
     out.record = rec
     return out
 

@@ -8,6 +8,8 @@ import numpy as np
 
 from ._validate import as_points, check_callable, check_int, real_values
 
+_FLOAT = np.dtype(float)
+
 __all__ = ["Target", "GradientCheck"]
 
 _FD_WARNING = (
@@ -487,13 +489,7 @@ class Target:
         self.n_grad += n
         if self.vectorized:
             v, g = _pair(self._batch("value_and_grad", self._user_vg, x))
-            v = real_values("value_and_grad", v).reshape(-1)
-            g = real_values("value_and_grad", g)
-            if v.shape != (n,):
-                raise ValueError(f"`value_and_grad` must return values of shape ({n},), got {v.shape}")
-            if g.shape != (n, self.dim):  # inline test: this is the integrators' hot path
-                self._check_grad_shape(g, n, False)
-            return v, g
+            return self._vg_values(v, g, n)
         vals = np.empty(n)
         grads = np.empty((n, self.dim))
         for k in range(n):
@@ -508,6 +504,16 @@ class Target:
             self._check_grad_shape(g, 1, True)
             grads[k] = g
         return vals, grads
+
+    def _vg_values(self, v, g, n):
+        """A vectorized ``value_and_grad``'s output as float arrays (n,) and (n, dim), checked."""
+        v = real_values("value_and_grad", v).reshape(-1)
+        g = real_values("value_and_grad", g)
+        if v.shape != (n,):
+            raise ValueError(f"`value_and_grad` must return values of shape ({n},), got {v.shape}")
+        if g.shape != (n, self.dim):
+            self._check_grad_shape(g, n, False)
+        return v, g
 
     def _fd_grad(self, x):
         """Central differences of the user's log-density, one batched evaluation."""
@@ -558,6 +564,18 @@ class Target:
     def _value_and_grad_rows(self, pts):
         """Fast path for the integrators: (n, dim) float array in, no shape juggling."""
         if self._bounds is None:
+            if self.vectorized and self._user_vg is not None and "value_and_grad" in self._checked:
+                # the integrators' hot path, once the first batch was checked: float64
+                # arrays of the right shapes go back as they are, anything else through
+                # the same conversion and checks as _call_vg
+                n = pts.shape[0]
+                self.n_density += n
+                self.n_grad += n
+                v, g = _pair(self._user_vg(pts))
+                if (type(v) is np.ndarray and type(g) is np.ndarray and v.dtype == _FLOAT
+                        and g.dtype == _FLOAT and v.shape == (n,) and g.shape == (n, self.dim)):
+                    return v, g
+                return self._vg_values(v, g, n)
             return self._call_vg(pts)
         x = self._bounds.to_user(pts)
         v, gx = self._call_vg(x)
