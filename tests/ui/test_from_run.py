@@ -33,7 +33,7 @@ def test_trajectory_view_takes_the_runs_step_size_mass_and_chosen_draw(tuned_run
     assert view.target is tuned_run.target
     assert view.step_size == tuned_run.kernel.step_size
     assert view.n_steps == tuned_run.kernel.n_steps
-    assert view.mass_scale == pytest.approx(list(1.0 / inv), rel=1e-12)
+    assert view.inverse_mass == pytest.approx(list(inv), rel=1e-12)
     assert np.array_equal(view.start, tuned_run.unconstrained[1, 5])
     # the trajectory drawn is the run's leapfrog with the run's metric
     ref = pg.leapfrog(tuned_run.target, view.start, view.momentum, view.step_size, view.n_steps,
@@ -67,7 +67,7 @@ def test_dense_metric_uses_its_diagonal_and_says_so(badly_scaled, tuned_run):
     run = copy.copy(tuned_run)
     run.kernel = pg.HMC(0.3, 5, metric=pg.Metric(np.array([[4.0, 0.5], [0.5, 0.25]])))
     view = pg.TrajectoryView.from_run(run)
-    assert view.mass_scale == pytest.approx([0.25, 4.0])
+    assert view.inverse_mass == pytest.approx([4.0, 0.25])
     assert "dense" in view.status and "diagonal" in view.status
 
 
@@ -89,7 +89,7 @@ def test_trajectory_view_from_run_errors_name_the_argument(tuned_run, divergent_
 
 def test_arrow_shows_the_velocity_and_a_drag_points_it_at_the_mouse(tuned_run, fire):
     view = pg.TrajectoryView.from_run(tuned_run)
-    m = np.asarray(view.mass_scale)
+    m = 1.0 / np.asarray(view.inverse_mass)  # the masses
     path = view._path
     tail, tip = path.momentum_ends
     shown = view.coords
@@ -189,7 +189,7 @@ def test_tuning_map_from_run_centres_on_the_tuned_step_size(tuned_run):
     assert m.step_sizes[-1] == pytest.approx(eps * 8, rel=5e-3)
     assert tuned_run.kernel.n_steps in m.n_steps
     opened = m.open_cell(0, 3)
-    assert opened.mass_scale == pytest.approx(list(1 / tuned_run.kernel.metric.inverse_mass))
+    assert opened.inverse_mass == pytest.approx(list(tuned_run.kernel.metric.inverse_mass))
 
 
 def test_tuning_map_mass_matrix_errors_name_the_argument(badly_scaled):

@@ -24,14 +24,14 @@ def make(target, **kw):
 
 def reference(view):
     """The trajectory the view should show, computed directly by the core."""
-    metric = pg.Metric(1.0 / np.asarray(view.mass_scale))
+    metric = pg.Metric(np.asarray(view.inverse_mass))
     return pg.leapfrog(view.target, view.start, view.momentum, view.step_size, view.n_steps,
                        metric=metric, max_energy_error=view.max_energy_error)
 
 
 def test_knobs_are_traits_with_help(gaussian):
     view = make(gaussian)
-    for name in ("step_size", "n_steps", "persistence", "start", "momentum", "mass_scale", "seed",
+    for name in ("step_size", "n_steps", "persistence", "start", "momentum", "inverse_mass", "seed",
                  "coords", "xlim", "ylim"):
         trait = view.traits()[name]
         assert trait.help, name
@@ -131,10 +131,10 @@ def test_resample_momentum_keeps_the_persistence(gaussian):
     assert view.trajectory.momenta[0] == pytest.approx(view.momentum)
 
 
-def test_mass_scale_changes_the_metric(gaussian):
+def test_inverse_mass_changes_the_metric(gaussian):
     view = make(gaussian, step_size=0.2, n_steps=12)
     p_old = view.momentum.copy()
-    view.mass_scale = [4.0, 0.25]
+    view.inverse_mass = [0.25, 4.0]
     assert np.allclose(view._metric().inverse_mass, [0.25, 4.0])
     # the same standard-normal draw, now scaled by sqrt(M)
     assert np.allclose(view.momentum, p_old * np.sqrt([4.0, 0.25]))
@@ -172,11 +172,11 @@ def test_coordinate_pickers_switch_the_slice(apiaries):
     assert view._ax.get_xlabel() == "apiary[0]"
     assert np.allclose(view._path.path.get_xydata(), view.trajectory.positions[:, [2, 1]])
     # the mass knobs name the shown coordinates in full and control their masses
-    assert view._mass_knobs[0].label.value == "mass apiary[0]"
-    assert view._mass_knobs[1].label.value == "mass log_tau"
+    assert view._mass_knobs[0].label.value == "inverse mass apiary[0]"
+    assert view._mass_knobs[1].label.value == "inverse mass log_tau"
     view._mass_knobs[0].box.value = 2.5  # a typed value is taken exactly
-    assert view.mass_scale[2] == 2.5 and view.mass_x == 2.5
-    assert np.allclose(view._metric().inverse_mass[2], 1 / 2.5)
+    assert view.inverse_mass[2] == 2.5 and view.inverse_mass_x == 2.5
+    assert np.allclose(view._metric().inverse_mass[2], 2.5)
     # choosing the same coordinate for both axes is refused with a message
     view._x_pick.value = 1
     assert view.coords == (2, 1) and view._x_pick.value == 2
@@ -188,7 +188,7 @@ def test_coordinate_pickers_switch_the_slice(apiaries):
 
 def test_settings_round_trip_reproduces_the_trajectory(gaussian):
     view = make(gaussian, step_size=0.17, n_steps=23, persistence=0.4, seed=9)
-    view.mass_scale = [2.0, 0.5]
+    view.inverse_mass = [0.5, 2.0]
     view.resample_momentum()
     view.move_start(0.4, -1.1)
     saved = json.loads(json.dumps(view.settings))
@@ -340,8 +340,8 @@ def test_controls_are_labelled_in_full_and_wide_enough_to_aim(gaussian):
     names = gaussian.names
     knobs = [view._step_knob, view._steps_knob, view._persist_knob] + view._mass_knobs
     labels = [k.label.value for k in knobs]
-    assert labels == ["step size", "steps", "persistence", f"mass {names[0]}",
-                      f"mass {names[1]}"]
+    assert labels == ["step size", "leapfrog steps", "persistence",
+                      f"inverse mass {names[0]}", f"inverse mass {names[1]}"]
     for k in knobs:
         assert int(k.slider.layout.width.rstrip("px")) >= 160
         assert k.label.layout.flex == "0 0 auto"  # a label never shrinks (no ellipsis)
@@ -350,9 +350,9 @@ def test_controls_are_labelled_in_full_and_wide_enough_to_aim(gaussian):
     assert "persistence" in view._resample.tooltip and "Resample" in view._resample.tooltip
     # the mass knobs set the shown coordinates' masses
     view._mass_knobs[1].box.value = 0.25
-    assert view.mass_scale == [1.0, 0.25] and view.mass_y == 0.25
-    view.mass_scale = [3.0, 0.5]
-    assert (view.mass_x, view.mass_y) == (3.0, 0.5)
+    assert view.inverse_mass == [1.0, 0.25] and view.inverse_mass_y == 0.25
+    view.inverse_mass = [3.0, 0.5]
+    assert (view.inverse_mass_x, view.inverse_mass_y) == (3.0, 0.5)
     assert view._mass_knobs[0].box.value == 3.0
 
 

@@ -21,7 +21,7 @@ def make(target, **kw):
 def reference(view):
     """The tree the view should show, built directly by the kernel."""
     kernel = pg.NUTS(view.step_size, view.max_depth,
-                     metric=pg.Metric(1.0 / np.asarray(view.mass_scale)))
+                     metric=pg.Metric(np.asarray(view.inverse_mass)))
     return kernel.build_tree(view.target, view.start, view.momentum, seed=view.seed)
 
 

@@ -340,8 +340,8 @@ class View(widgets.VBox):
     #: Keys a view's settings may hold besides its knobs (e.g. how its run was sampled).
     EXTRA_SETTINGS = ()
 
-    #: {old setting name: new name}: saved settings with an old name are read with a
-    #: DeprecationWarning for one release.
+    #: {old setting name: new name, or (new name, convert)}: saved settings with an old
+    #: name are read (``convert(old value)`` when given) with a DeprecationWarning for one release.
     RENAMED_SETTINGS = {}
 
     @classmethod
@@ -356,9 +356,11 @@ class View(widgets.VBox):
         if view != cls.__name__:
             raise ValueError(f"`settings` are for a {view}, not a {cls.__name__}")
         for old, new in cls.RENAMED_SETTINGS.items():  # settings saved before a rename
+            new, convert = (new, None) if isinstance(new, str) else new
             if old in settings and new not in settings:
                 warn_renamed(old, new, "setting")
-                settings[new] = settings.pop(old)
+                value = settings.pop(old)
+                settings[new] = value if convert is None else convert(value)
         known = set(cls.setting_names()) | set(cls.EXTRA_SETTINGS)
         unknown = sorted(k for k in settings if k not in known)
         if unknown:

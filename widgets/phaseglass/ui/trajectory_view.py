@@ -5,9 +5,10 @@ import numpy as np
 import traitlets
 from matplotlib.ticker import MaxNLocator
 
-from ..core._validate import MAX_STEPS
+from ..core._validate import MAX_STEPS, warn_renamed
 from ..core.leapfrog import leapfrog
 from ..core.metric import Metric
+from ..core.registry import KNOB_LABELS
 from ..core.slices import resolve_coords
 from ..core.streams import seed_sequence
 from ..draw import draw_energy_error, draw_log_density, draw_trajectory, legend
@@ -50,8 +51,13 @@ def run_region(run, coords, start=None):
     return lims[0], lims[1]
 
 
-def mass_from_metric(metric):
-    """(mass_scale list or None, note) of a Metric: the diagonal mass, 1 / inverse mass.
+def reciprocals(values):
+    """``[1 / v for v in values]`` as floats (a former ``mass_scale`` to ``inverse_mass``)."""
+    return [1.0 / float(v) for v in values]
+
+
+def inverse_mass_of(metric):
+    """(diagonal inverse mass list or None, note) of a Metric, for a view's ``inverse_mass``.
 
     A dense metric keeps only its diagonal; the note says so (for the status line).
     """
@@ -59,9 +65,9 @@ def mass_from_metric(metric):
         return None, ""
     inv = np.asarray(metric.inverse_mass, dtype=float)
     if metric.kind == "dense":
-        return [float(1.0 / v) for v in np.diag(inv)], (
+        return [float(v) for v in np.diag(inv)], (
             "the run's mass matrix is dense: this view uses its diagonal only")
-    return [float(1.0 / v) for v in inv], ""
+    return [float(v) for v in inv], ""
 
 _DRAG_RADIUS_PX = 12  # a press this close to the start point drags the momentum
 _MASS_RANGE = (0.01, 100.0)
@@ -116,8 +122,9 @@ class TrajectoryView(View):
     persistence = traitlets.Float(
         0.0, help="Momentum kept when the momentum is resampled: p <- a p + sqrt(1-a^2) xi."
     ).tag(setting=True)
-    mass_scale = traitlets.List(
-        traitlets.Float(), help="Diagonal of the mass matrix, one entry per coordinate."
+    inverse_mass = traitlets.List(
+        traitlets.Float(), help="Diagonal of the inverse mass matrix (the Metric's inverse_mass), "
+                                "one entry per coordinate."
     ).tag(setting=True)
     seed = traitlets.Int(0, help="Seed of the momentum draws.").tag(setting=True)
     coords = traitlets.Tuple(traitlets.Int(), traitlets.Int(),
@@ -126,14 +133,14 @@ class TrajectoryView(View):
     momentum = traitlets.Any(help="Initial momentum, shape (dim,).").tag(setting=True)
     xlim = traitlets.Tuple(traitlets.Float(), traitlets.Float(), help="x range shown.").tag(setting=True)
     ylim = traitlets.Tuple(traitlets.Float(), traitlets.Float(), help="y range shown.").tag(setting=True)
-    mass_x = traitlets.Float(1.0, help="Mass of the coordinate on the x axis (its entry of "
-                                       "`mass_scale`).")
-    mass_y = traitlets.Float(1.0, help="Mass of the coordinate on the y axis (its entry of "
-                                       "`mass_scale`).")
+    inverse_mass_x = traitlets.Float(1.0, help="Inverse mass of the coordinate on the x axis (its "
+                                               "entry of `inverse_mass`).")
+    inverse_mass_y = traitlets.Float(1.0, help="Inverse mass of the coordinate on the y axis (its "
+                                               "entry of `inverse_mass`).")
 
     def __init__(self, target, *, start=None, coords=(0, 1), step_size=0.1, n_steps=20,
                  persistence=0.0, seed=0, xlim=None, ylim=None, max_energy_error=1000.0,
-                 mass_scale=None):
+                 inverse_mass=None, mass_scale=None):
         check_target(target, min_dim=2)
         self.target = target
         self.max_energy_error = float(max_energy_error)
@@ -158,7 +165,11 @@ class TrajectoryView(View):
             self.coords = coords
             self.xlim = tuple(float(v) for v in xlim)
             self.ylim = tuple(float(v) for v in ylim)
-            self.mass_scale = [1.0] * target.dim if mass_scale is None else [float(m) for m in mass_scale]
+            if mass_scale is not None:  # the former name held the mass, 1 / inverse mass
+                warn_renamed("mass_scale", "inverse_mass")
+                inverse_mass = reciprocals(mass_scale)
+            self.inverse_mass = ([1.0] * target.dim if inverse_mass is None
+                                 else [float(m) for m in inverse_mass])
             self.step_size = step_size
             self.n_steps = n_steps
             self.persistence = persistence
@@ -176,19 +187,19 @@ class TrajectoryView(View):
 
     # ------------------------------------------------------------ validation
     _RANGES = {"step_size": (0.0, None, "(]"), "n_steps": (1, MAX_STEPS, "[]"),
-               "persistence": (0.0, 1.0, "[)"), "mass_x": (0.0, None, "(]"),
-               "mass_y": (0.0, None, "(]")}
+               "persistence": (0.0, 1.0, "[)"), "inverse_mass_x": (0.0, None, "(]"),
+               "inverse_mass_y": (0.0, None, "(]")}
 
     @traitlets.validate(*_RANGES)
     def _check_knob(self, proposal):
         return check_range(proposal, self._RANGES)
 
-    @traitlets.validate("mass_scale")
+    @traitlets.validate("inverse_mass")
     def _check_mass(self, proposal):
         v = [float(m) for m in proposal["value"]]
         if len(v) != self.target.dim or not all(np.isfinite(m) and m > 0 for m in v):
             raise traitlets.TraitError(
-                f"`mass_scale` must hold {self.target.dim} positive numbers, got {v}")
+                f"`{proposal['trait'].name}` must hold {self.target.dim} positive numbers, got {v}")
         return v
 
     @traitlets.validate("start", "momentum")
@@ -208,13 +219,13 @@ class TrajectoryView(View):
                                       label="step size", css_class="pg-step-size")
         self._step_knob.slider.add_class("pg-primary")
         self._steps_knob = KnobControl(self, "n_steps", low=1, high=300, integer=True,
-                                       label="steps", css_class="pg-n-steps")
+                                       label=KNOB_LABELS["n_steps"], css_class="pg-n-steps")
         self._persist_knob = KnobControl(self, "persistence", low=0.0, high=0.99,
                                          label="persistence", css_class="pg-persistence")
         self._mass_knobs = [
             KnobControl(self, name, low=_MASS_RANGE[0], high=_MASS_RANGE[1], log=True,
-                        label="mass", css_class=f"pg-{name.replace('_', '-')}")
-            for name in ("mass_x", "mass_y")]
+                        label="inverse mass", css_class=f"pg-{name.replace('_', '-')}")
+            for name in ("inverse_mass_x", "inverse_mass_y")]
         self._seed_box = widgets.BoundedIntText(value=self.seed, min=0, max=2**31 - 1,
                                                 description="seed",
                                                 layout=widgets.Layout(width="150px"))
@@ -246,7 +257,7 @@ class TrajectoryView(View):
     def _name_mass_knobs(self):
         names = self.target.names
         for knob, i in zip(self._mass_knobs, self.coords):
-            knob.label.value = f"mass {names[i]}"
+            knob.label.value = f"inverse mass {names[i]}"
 
     @traitlets.observe("coords")
     def _on_coords(self, change):
@@ -254,25 +265,36 @@ class TrajectoryView(View):
             self._x_pick.value, self._y_pick.value = self.coords
             self._name_mass_knobs()
 
-    @traitlets.observe("mass_scale", "coords")
+    @traitlets.observe("inverse_mass", "coords")
     def _show_masses(self, change):
-        """``mass_x``/``mass_y`` follow the shown coordinates' entries of ``mass_scale``."""
-        if len(self.mass_scale) == self.target.dim:
-            self.mass_x = self.mass_scale[self.coords[0]]
-            self.mass_y = self.mass_scale[self.coords[1]]
+        """``inverse_mass_x``/``_y`` follow the shown coordinates' entries of ``inverse_mass``."""
+        if len(self.inverse_mass) == self.target.dim:
+            self.inverse_mass_x = self.inverse_mass[self.coords[0]]
+            self.inverse_mass_y = self.inverse_mass[self.coords[1]]
 
-    @traitlets.observe("mass_x", "mass_y")
+    @traitlets.observe("inverse_mass_x", "inverse_mass_y")
     def _set_mass(self, change):
-        i = self.coords[0 if change["name"] == "mass_x" else 1]
-        if len(self.mass_scale) == self.target.dim and self.mass_scale[i] != change["new"]:
-            masses = list(self.mass_scale)
-            masses[i] = float(change["new"])
-            self.mass_scale = masses
+        i = self.coords[0 if change["name"] == "inverse_mass_x" else 1]
+        if len(self.inverse_mass) == self.target.dim and self.inverse_mass[i] != change["new"]:
+            values = list(self.inverse_mass)
+            values[i] = float(change["new"])
+            self.inverse_mass = values
+
+    @property
+    def mass_scale(self):
+        """Deprecated: the mass diagonal, ``1 / inverse_mass`` (use ``inverse_mass``)."""
+        warn_renamed("mass_scale", "inverse_mass", "attribute")
+        return reciprocals(self.inverse_mass)
+
+    @mass_scale.setter
+    def mass_scale(self, value):
+        warn_renamed("mass_scale", "inverse_mass", "attribute")
+        self.inverse_mass = reciprocals(value)
 
     def _set_coordinates(self, coords):
         """Show ``coords`` in a region of three mass-scaled units around the start."""
         z = self.start
-        span = 3.0 * np.sqrt(1.0 / np.asarray(self.mass_scale))
+        span = 3.0 * np.sqrt(np.asarray(self.inverse_mass))
         with self.hold_trait_notifications():
             self.coords = coords
             self.xlim = (z[coords[0]] - span[coords[0]], z[coords[0]] + span[coords[0]])
@@ -321,7 +343,7 @@ class TrajectoryView(View):
 
     # ----------------------------------------------------------- computation
     def _metric(self):
-        return Metric(1.0 / np.asarray(self.mass_scale, dtype=float))
+        return Metric(np.asarray(self.inverse_mass, dtype=float))
 
     def _rng(self):
         ss = seed_sequence(self.seed)
@@ -349,17 +371,17 @@ class TrajectoryView(View):
         if self.trajectory is not None and not self._applying:
             self.momentum = self._fresh_momentum()
 
-    @traitlets.observe("mass_scale")
+    @traitlets.observe("inverse_mass")
     def _on_mass(self, change):
         if not isinstance(change["old"], list) or self._applying:
             return
         old, new = np.asarray(change["old"], dtype=float), np.asarray(change["new"], dtype=float)
         if self.momentum is not None and old.shape == new.shape:
-            # keep the same standard-normal draw: p = sqrt(M) z
-            self.momentum = self.momentum * np.sqrt(new / old)
+            # keep the same standard-normal draw: p = sqrt(M) z = z / sqrt(inverse mass)
+            self.momentum = self.momentum * np.sqrt(old / new)
 
     @traitlets.observe("step_size", "n_steps", "start", "momentum", "coords", "xlim", "ylim",
-                       "mass_scale")
+                       "inverse_mass")
     def _on_knob(self, change):
         if hasattr(self, "_energy"):
             self._recompute()
@@ -450,8 +472,8 @@ class TrajectoryView(View):
         z = self.start[list(self.coords)]
         scale = self._path.momentum_scale
         i, j = self.coords
-        p[i] = (float(x) - z[0]) / scale * self.mass_scale[i]
-        p[j] = (float(y) - z[1]) / scale * self.mass_scale[j]
+        p[i] = (float(x) - z[0]) / scale / self.inverse_mass[i]
+        p[j] = (float(y) - z[1]) / scale / self.inverse_mass[j]
         self.momentum = p
         self._click_readout.value = (
             f"<span style='font-family:monospace'>initial momentum "
@@ -476,8 +498,7 @@ class TrajectoryView(View):
             Any other argument of TrajectoryView; they win over the run's values.
 
         Default start: the last draw of chain 0; default region: where the run's draws
-        are (and the start). The mass matrix is ``1 / inverse_mass``
-        of the run's diagonal metric (a dense metric: its diagonal, said in the status line).
+        are (and the start). ``inverse_mass`` is that of the run's diagonal metric (a dense metric: its diagonal, said in the status line).
         """
         target, kernel = run_parts(run)
         if draw is not None and divergence is not None:
@@ -509,9 +530,9 @@ class TrajectoryView(View):
             if not -n_draws <= index < n_draws:
                 raise ValueError(f"`draw` index must be in range({n_draws}), got {index}")
             start = x[chain, index]
-        mass, note = mass_from_metric(kernel.metric)
+        inverse, note = inverse_mass_of(kernel.metric)
         args = dict(start=np.array(start, dtype=float), step_size=float(kernel.step_size),
-                    mass_scale=mass)
+                    inverse_mass=inverse)
         if getattr(kernel, "n_steps", None) is not None:
             args["n_steps"] = int(kernel.n_steps)
         if getattr(kernel, "persistence", None) is not None:
@@ -529,6 +550,9 @@ class TrajectoryView(View):
         return view
 
     # ------------------------------------------------------------- settings
+    #: saved before issue 12: ``mass_scale`` held the mass diagonal, 1 / inverse mass
+    RENAMED_SETTINGS = {"mass_scale": ("inverse_mass", reciprocals)}
+
     @classmethod
     def from_settings(cls, target, settings):
         """Build a view on ``target`` with saved ``settings`` (from ``view.settings``)."""

@@ -5,6 +5,7 @@ import numpy as np
 import traitlets
 from matplotlib.ticker import MaxNLocator
 
+from ..core._validate import warn_renamed
 from ..core.metric import Metric
 from ..core.nuts import MAX_DEPTH_LIMIT, NUTS
 from ..core.slices import resolve_coords
@@ -14,7 +15,7 @@ from ..draw.tree import draw_tree, draw_tree_energy, tree_rows
 from ._base import View, check_range, check_target, guarded, number, plural
 from ._controls import KnobControl
 from ._shared import GridCache, pilot, step_size_range
-from .trajectory_view import TrajectoryView, mass_from_metric, run_parts, run_region
+from .trajectory_view import TrajectoryView, inverse_mass_of, reciprocals, run_parts, run_region
 
 __all__ = ["DoublingView"]
 
@@ -49,11 +50,12 @@ class DoublingView(View):
         Start (sampler's scale). Default: a draw from a short pilot run.
     coords : pair of int or str
     step_size, max_depth, seed : initial knob values
-    mass_scale : sequence of float, optional
-        Diagonal of the mass matrix (the kernel's inverse metric is ``1 / mass_scale``).
+    inverse_mass : sequence of float, optional
+        Diagonal of the inverse mass matrix (the Metric's ``inverse_mass``); ``mass_scale=``
+        (its reciprocal, the former name) is read with a DeprecationWarning.
     xlim, ylim : (float, float), optional
     max_energy_error : float
-        Divergence threshold (1000, as in ``pg.NUTS``).
+        Largest ``|energy error|`` before the tree counts as divergent (1000, as in ``pg.NUTS``).
 
     Attributes
     ----------
@@ -77,8 +79,9 @@ class DoublingView(View):
     ).tag(setting=True)
     seed = traitlets.Int(0, help="Seed of the momentum, the doubling directions and the "
                                  "multinomial choices.").tag(setting=True)
-    mass_scale = traitlets.List(
-        traitlets.Float(), help="Diagonal of the mass matrix, one entry per coordinate."
+    inverse_mass = traitlets.List(
+        traitlets.Float(), help="Diagonal of the inverse mass matrix (the Metric's inverse_mass), "
+                                "one entry per coordinate."
     ).tag(setting=True)
     coords = traitlets.Tuple(traitlets.Int(), traitlets.Int(),
                              help="Indices of the two coordinates shown.").tag(setting=True)
@@ -90,7 +93,8 @@ class DoublingView(View):
                                       "start alone); a new tree shows all of them.")
 
     def __init__(self, target, *, start=None, coords=(0, 1), step_size=0.1, max_depth=10, seed=0,
-                 mass_scale=None, xlim=None, ylim=None, max_energy_error=1000.0):
+                 inverse_mass=None, xlim=None, ylim=None, max_energy_error=1000.0,
+                 mass_scale=None):
         check_target(target, min_dim=2)
         self.target = target
         self.max_energy_error = float(max_energy_error)
@@ -116,8 +120,11 @@ class DoublingView(View):
             self.coords = coords
             self.xlim = tuple(float(v) for v in xlim)
             self.ylim = tuple(float(v) for v in ylim)
-            self.mass_scale = ([1.0] * target.dim if mass_scale is None
-                               else [float(m) for m in mass_scale])
+            if mass_scale is not None:  # the former name held the mass, 1 / inverse mass
+                warn_renamed("mass_scale", "inverse_mass")
+                inverse_mass = reciprocals(mass_scale)
+            self.inverse_mass = ([1.0] * target.dim if inverse_mass is None
+                                 else [float(m) for m in inverse_mass])
             self.step_size = step_size
             self.max_depth = max_depth
             self.seed = seed
@@ -136,7 +143,7 @@ class DoublingView(View):
         return check_range(proposal, self._RANGES)
 
     # start, momentum and mass are edited exactly as in TrajectoryView (the same code)
-    _check_mass = traitlets.validate("mass_scale")(TrajectoryView._check_mass.func)
+    _check_mass = traitlets.validate("inverse_mass")(TrajectoryView._check_mass.func)
     _check_point = traitlets.validate("start", "momentum")(TrajectoryView._check_point.func)
     _set_coordinates = TrajectoryView._set_coordinates
     _start_pixels = TrajectoryView._start_pixels
@@ -148,7 +155,9 @@ class DoublingView(View):
     _axis_names = TrajectoryView._axis_names
     _grid = TrajectoryView._grid
     _metric = TrajectoryView._metric
-    _on_mass = traitlets.observe("mass_scale")(TrajectoryView._on_mass.func)
+    _on_mass = traitlets.observe("inverse_mass")(TrajectoryView._on_mass.func)
+    mass_scale = TrajectoryView.mass_scale  # deprecated, one release
+    RENAMED_SETTINGS = TrajectoryView.RENAMED_SETTINGS
 
     # -------------------------------------------------------------- controls
     def _build_controls(self):
@@ -249,7 +258,7 @@ class DoublingView(View):
             self.momentum = self._fresh_momentum()
 
     @traitlets.observe("step_size", "max_depth", "start", "momentum", "coords", "xlim", "ylim",
-                       "mass_scale")
+                       "inverse_mass")
     def _on_knob(self, change):
         if not self._replaying:
             self._fixed_note = ""  # no longer the run's transition as it was sampled
@@ -367,9 +376,9 @@ class DoublingView(View):
         if draw == 0:
             raise ValueError("`draw` must be >= 1: the start of the run's first kept transition "
                              "is not recorded (pick draw=1 or later)")
-        mass, note = mass_from_metric(kernel.metric)
+        inverse, note = inverse_mass_of(kernel.metric)
         args = dict(start=np.array(x[chain, draw - 1], dtype=float),
-                    step_size=float(kernel.step_size), mass_scale=mass)
+                    step_size=float(kernel.step_size), inverse_mass=inverse)
         if isinstance(kernel, NUTS):
             args["max_depth"] = int(kernel.max_depth)
             args["max_energy_error"] = float(kernel.max_energy_error)

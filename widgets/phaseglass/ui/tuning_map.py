@@ -1012,13 +1012,13 @@ class TuningMap(View):
                 kwargs["initial"] = pilot.initial
             view = ChainView(self.target, **kwargs, **region)
         else:
-            from .trajectory_view import TrajectoryView, mass_from_metric
+            from .trajectory_view import TrajectoryView, inverse_mass_of
 
             if pilot is not None:
                 region["start"] = pilot.start()
-            mass, note = mass_from_metric(self.mass_matrix)
+            inverse, note = inverse_mass_of(self.mass_matrix)
             view = TrajectoryView(self.target, step_size=column, n_steps=row,
-                                  persistence=a or 0.0, seed=self.seed, mass_scale=mass, **region)
+                                  persistence=a or 0.0, seed=self.seed, inverse_mass=inverse, **region)
             if note:
                 view.status = note
         name = self._cell_name(self._shown(), min(self.persistence_index, len(self._slices()) - 1), i, j)
