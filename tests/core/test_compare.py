@@ -219,3 +219,23 @@ def test_ctrl_c_stops_the_whole_comparison_not_only_the_running_cell():
     with pytest.raises(KeyboardInterrupt):
         pg.compare_kernels(target, [pg.RandomWalk(1.0), pg.RandomWalk(0.5)], **RUN)
     assert len(calls) == 300  # no later cell started
+
+
+def test_former_metric_adaptation_name_warns_and_gives_the_same_cells():
+    # issue 12: the mass-matrix shape warm-up estimates is mass_adaptation (metric = a Metric)
+    target = pg.demos.correlated_gaussian(2, 0.0, scales=[1.0, 3.0])
+    run = dict(n_seeds=1, n_draws=20, n_chains=2, warmup=40, seed=3)
+    new = pg.compare_kernels(target, {"a": {"kernel": pg.HMC(0.3, 4), "mass_adaptation": None}},
+                             **run)
+    with pytest.warns(DeprecationWarning, match="use `mass_adaptation`"):
+        old = pg.compare_kernels(target, {"a": {"kernel": pg.HMC(0.3, 4),
+                                                "metric_adaptation": None}}, **run)
+    with pytest.warns(DeprecationWarning, match="use `mass_adaptation`"):
+        shared = pg.compare_kernels(target, {"a": pg.HMC(0.3, 4)}, metric_adaptation=None, **run)
+    for q in QUANTITIES:
+        np.testing.assert_array_equal(old.cells[q], new.cells[q])
+        np.testing.assert_array_equal(shared.cells[q], new.cells[q])
+    assert new.options[0]["mass_adaptation"] is None
+    # ... and None was honoured: the default diagonal adaptation gives other cells
+    default = pg.compare_kernels(target, {"a": pg.HMC(0.3, 4)}, **run)
+    assert not all(np.array_equal(default.cells[q], new.cells[q]) for q in QUANTITIES)
