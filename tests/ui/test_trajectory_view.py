@@ -377,3 +377,18 @@ def test_the_figure_fits_the_column_and_nothing_is_cut(gaussian):
         assert b.y1 <= ax.get_window_extent(renderer).y0  # below the panels, not over them
     labels = [t.get_text() for t in key.get_texts()]
     assert "initial momentum" in labels and "max energy error \u00b11000" in labels
+
+
+def test_former_mass_scale_is_read_as_its_reciprocal_for_one_release(gaussian):
+    # issue 12: the view's mass knob is the core's inverse_mass; mass_scale held 1 / inverse mass
+    with pytest.warns(DeprecationWarning, match="use `inverse_mass`"):
+        view = make(gaussian, mass_scale=[4.0, 0.25])
+    assert view.inverse_mass == [0.25, 4.0]
+    with pytest.warns(DeprecationWarning, match="use `inverse_mass`"):
+        assert view.mass_scale == [4.0, 0.25]
+    saved = json.loads(json.dumps(view.settings))
+    saved["mass_scale"] = [1.0 / v for v in saved.pop("inverse_mass")]
+    with pytest.warns(DeprecationWarning, match="use `inverse_mass`"):
+        again = pg.TrajectoryView.from_settings(gaussian, saved)
+    assert again.inverse_mass == pytest.approx([0.25, 4.0], rel=1e-12)
+    np.testing.assert_allclose(again.trajectory.positions, view.trajectory.positions)
