@@ -489,6 +489,9 @@ class Target:
         self.n_grad += n
         if self.vectorized:
             v, g = _pair(self._batch("value_and_grad", self._user_vg, x))
+            if (type(v) is np.ndarray and type(g) is np.ndarray and v.dtype == _FLOAT
+                    and g.dtype == _FLOAT and v.shape == (n,) and g.shape == (n, self.dim)):
+                return v, g  # the integrators' hot path: nothing to convert or check
             return self._vg_values(v, g, n)
         vals = np.empty(n)
         grads = np.empty((n, self.dim))
@@ -564,18 +567,6 @@ class Target:
     def _value_and_grad_rows(self, pts):
         """Fast path for the integrators: (n, dim) float array in, no shape juggling."""
         if self._bounds is None:
-            if self.vectorized and self._user_vg is not None and "value_and_grad" in self._checked:
-                # the integrators' hot path, once the first batch was checked: float64
-                # arrays of the right shapes go back as they are, anything else through
-                # the same conversion and checks as _call_vg
-                n = pts.shape[0]
-                self.n_density += n
-                self.n_grad += n
-                v, g = _pair(self._user_vg(pts))
-                if (type(v) is np.ndarray and type(g) is np.ndarray and v.dtype == _FLOAT
-                        and g.dtype == _FLOAT and v.shape == (n,) and g.shape == (n, self.dim)):
-                    return v, g
-                return self._vg_values(v, g, n)
             return self._call_vg(pts)
         x = self._bounds.to_user(pts)
         v, gx = self._call_vg(x)
