@@ -5,24 +5,20 @@ import numpy as np
 import traitlets
 from matplotlib.ticker import MaxNLocator
 
-from ..core._validate import warn_renamed
-from ..core.metric import Metric
 from ..core.nuts import MAX_DEPTH_LIMIT, NUTS
-from ..core.slices import resolve_coords
 from ..core.streams import Streams
 from ..draw import legend
 from ..draw.tree import draw_tree, draw_tree_energy, tree_rows
-from ._base import View, check_range, check_target, guarded, number, plural
+from ._base import check_range, guarded, number, plural
 from ._controls import KnobControl
-from ._shared import GridCache, pilot, step_size_range
-from .trajectory_view import TrajectoryView, inverse_mass_of, reciprocals, run_parts, run_region
+from ._phase_space import PhaseSpaceView, run_arguments, run_parts
 
 __all__ = ["DoublingView"]
 
 _DEPTH_SLIDER_MAX = 12
 
 
-class DoublingView(View):
+class DoublingView(PhaseSpaceView):
     """One no-U-turn (NUTS) transition's doubling tree over the log-density, live.
 
     Left: contours of the log-density (a 2-D slice through the start for an
@@ -73,66 +69,27 @@ class DoublingView(View):
     True
     """
 
-    step_size = traitlets.Float(0.1, help="Leapfrog step size (epsilon).").tag(setting=True)
     max_depth = traitlets.Int(
         10, help="Most doublings a tree may make (at most 2**max_depth - 1 leapfrog steps)."
     ).tag(setting=True)
     seed = traitlets.Int(0, help="Seed of the momentum, the doubling directions and the "
                                  "multinomial choices.").tag(setting=True)
-    inverse_mass = traitlets.List(
-        traitlets.Float(), help="Diagonal of the inverse mass matrix (the Metric's inverse_mass), "
-                                "one entry per coordinate."
-    ).tag(setting=True)
-    coords = traitlets.Tuple(traitlets.Int(), traitlets.Int(),
-                             help="Indices of the two coordinates shown.").tag(setting=True)
-    start = traitlets.Any(help="Start point, shape (dim,), sampler's scale.").tag(setting=True)
-    momentum = traitlets.Any(help="Initial momentum, shape (dim,).").tag(setting=True)
-    xlim = traitlets.Tuple(traitlets.Float(), traitlets.Float(), help="x range shown.").tag(setting=True)
-    ylim = traitlets.Tuple(traitlets.Float(), traitlets.Float(), help="y range shown.").tag(setting=True)
     doublings = traitlets.Int(0, help="Doublings shown, in the order the tree made them (0: the "
                                       "start alone); a new tree shows all of them.")
 
     def __init__(self, target, *, start=None, coords=(0, 1), step_size=0.1, max_depth=10, seed=0,
                  inverse_mass=None, xlim=None, ylim=None, max_energy_error=1000.0,
                  mass_scale=None):
-        check_target(target, min_dim=2)
-        self.target = target
-        self.max_energy_error = float(max_energy_error)
-        coords = resolve_coords(coords, target.names, target.dim)
-        super().__init__(figsize=(7.6, 4.5))
-        self._grids = GridCache(target, n=90)
-        self._applying = False
-        self._drag = None
         self._fixed = None        # the uniforms of a run's transition (from_run), until a new seed
         self._fixed_note = ""
         self._quiet = False
         self._replaying = False
         self.tree = None
         self.info = None
-        self._pilot = pilot(target, seed=seed)
-        with self.hold_trait_notifications():
-            if start is None:
-                start = self._pilot.start()
-            if xlim is None or ylim is None:
-                px, py = self._pilot.region(coords, start)
-                xlim = px if xlim is None else xlim
-                ylim = py if ylim is None else ylim
-            self.coords = coords
-            self.xlim = tuple(float(v) for v in xlim)
-            self.ylim = tuple(float(v) for v in ylim)
-            if mass_scale is not None:  # the former name held the mass, 1 / inverse mass
-                warn_renamed("mass_scale", "inverse_mass")
-                inverse_mass = reciprocals(mass_scale)
-            self.inverse_mass = ([1.0] * target.dim if inverse_mass is None
-                                 else [float(m) for m in inverse_mass])
-            self.step_size = step_size
-            self.max_depth = max_depth
-            self.seed = seed
-            self.start = start
-            self.momentum = self._fresh_momentum()
-        self._build_controls()
-        self._build_figure()
-        self._recompute()
+        super().__init__(target, start=start, coords=coords, seed=seed, xlim=xlim, ylim=ylim,
+                         inverse_mass=inverse_mass, mass_scale=mass_scale,
+                         max_energy_error=max_energy_error, figsize=(7.6, 4.5),
+                         knobs=dict(step_size=step_size, max_depth=max_depth))
 
     # ------------------------------------------------------------ validation
     _RANGES = {"step_size": (0.0, None, "(]"), "max_depth": (1, MAX_DEPTH_LIMIT, "[]"),
@@ -142,29 +99,9 @@ class DoublingView(View):
     def _check_knob(self, proposal):
         return check_range(proposal, self._RANGES)
 
-    # start, momentum and mass are edited exactly as in TrajectoryView (the same code)
-    _check_mass = traitlets.validate("inverse_mass")(TrajectoryView._check_mass.func)
-    _check_point = traitlets.validate("start", "momentum")(TrajectoryView._check_point.func)
-    _set_coordinates = TrajectoryView._set_coordinates
-    _start_pixels = TrajectoryView._start_pixels
-    _on_press = TrajectoryView._on_press
-    _on_motion = TrajectoryView._on_motion
-    _on_release = TrajectoryView._on_release
-    move_start = TrajectoryView.move_start
-    set_momentum_towards = TrajectoryView.set_momentum_towards
-    _axis_names = TrajectoryView._axis_names
-    _grid = TrajectoryView._grid
-    _metric = TrajectoryView._metric
-    _on_mass = traitlets.observe("inverse_mass")(TrajectoryView._on_mass.func)
-    mass_scale = TrajectoryView.mass_scale  # deprecated, one release
-    RENAMED_SETTINGS = TrajectoryView.RENAMED_SETTINGS
-
     # -------------------------------------------------------------- controls
     def _build_controls(self):
-        low, high = step_size_range(self._pilot.step_size)
-        self._step_knob = KnobControl(self, "step_size", low=low, high=high, log=True,
-                                      label="step size", css_class="pg-step-size")
-        self._step_knob.slider.add_class("pg-primary")
+        self._shared_controls()
         self._depth_knob = KnobControl(self, "max_depth", low=1, high=_DEPTH_SLIDER_MAX,
                                        integer=True, label="max depth", css_class="pg-max-depth")
         self._doubling_knob = KnobControl(self, "doublings", low=0, high=self.max_depth,
@@ -175,25 +112,10 @@ class DoublingView(View):
         self._play.tooltip = "Play the doublings one by one, in the order the tree made them"
         self._play.add_class("pg-doubling-play")
         traitlets.link((self._play, "value"), (self, "doublings"))
-        self._seed_box = widgets.BoundedIntText(value=self.seed, min=0, max=2**31 - 1,
-                                                description="seed",
-                                                layout=widgets.Layout(width="150px"))
-        self._seed_box.tooltip = self.traits()["seed"].help
-        traitlets.link((self._seed_box, "value"), (self, "seed"))
-        self._readout = widgets.HTML()
-        self._readout.add_class("pg-readout")
-        self._click_readout = widgets.HTML(
-            "<span style='font-family:monospace'>click the left panel to move the start; press on "
-            "the start and drag to set the initial momentum</span>")
-        self._click_readout.add_class("pg-click-readout")
-        wrap = widgets.Layout(flex_flow="row wrap", align_items="center")
-        rows = [widgets.HBox([self._step_knob, self._depth_knob], layout=wrap),
-                widgets.HBox([self._play, self._doubling_knob, self._seed_box], layout=wrap)]
         if self.target.dim > 2:
             self._coordinate_pickers(self.target.names)
-            rows.append(widgets.HBox([self._x_pick, self._y_pick, self._swap_pick], layout=wrap))
-        self.children = rows + [self.figure.canvas, self._readout, self._click_readout,
-                                self._status_html]
+        self._lay_out([[self._step_knob, self._depth_knob],
+                       [self._play, self._doubling_knob, self._seed_box]])
 
     # ---------------------------------------------------------------- figure
     def _build_figure(self):
@@ -207,7 +129,7 @@ class DoublingView(View):
         self._tree_draw = draw_tree(self._ax, tree, coords=self.coords, metric=self._metric(),
                                     names=self.target.names)
         self._tree_draw.autoscale = False
-        self._path = self._tree_draw  # the name TrajectoryView's mouse handlers use
+        self._path = self._tree_draw  # the name PhaseSpaceView's mouse handlers use
         self._energy = draw_tree_energy(self._ax_err, tree)
         for ax in (self._ax, self._ax_err):
             ax.xaxis.set_major_locator(MaxNLocator(5))
@@ -228,9 +150,7 @@ class DoublingView(View):
                           e.error, e.abandoned, e.divergence, e.title])
         self._ax.set_xlim(self.xlim)
         self._ax.set_ylim(self.ylim)
-        fig.canvas.mpl_connect("button_press_event", self._on_press)
-        fig.canvas.mpl_connect("motion_notify_event", self._on_motion)
-        fig.canvas.mpl_connect("button_release_event", self._on_release)
+        self._connect_mouse()
 
     # ----------------------------------------------------------- computation
     def kernel(self):
@@ -272,11 +192,7 @@ class DoublingView(View):
 
     @guarded("redraw")
     def _recompute(self):
-        before = (self._grids.evaluations, self._grids.key)
-        grid = self._grid()
-        new_region = (self._grids.evaluations, self._grids.key) != before
-        if new_region:
-            self._density.update(grid)
+        new_region = self._update_contours()
         tree, info = self._build()
         self.tree, self.info = tree, info
         depth = int(info["tree_depth"][0])
@@ -288,19 +204,13 @@ class DoublingView(View):
             self._doubling_knob.set_range(0, max(depth, 1))
         finally:
             self._quiet = False
-        self._ax.set_xlim(self.xlim)
-        self._ax.set_ylim(self.ylim)
-        names = self._axis_names()
-        self._ax.set_xlabel(names[0])
-        self._ax.set_ylabel(names[1])
+        self._show_region()
         self._show(force_full=new_region)
 
     @guarded("redraw")
     def _show(self, force_full=False):
         tree = self.tree
         upto = min(self.doublings, int(self.info["tree_depth"][0]))
-        self._tree_draw.coords = tuple(self.coords)
-        self._tree_draw.metric = self._metric()
         self._tree_draw.update(tree, upto=upto)
         self._energy.update(tree, upto=upto)
         static = (self._grids.key, tuple(self.coords), self.xlim, self.ylim,
@@ -341,7 +251,6 @@ class DoublingView(View):
                  f"{number(float(info['accept_prob'][0]), 3)}"]
         return ("<span style='font-family:monospace'>" + "<br>".join(lines) + "</span>")
 
-    # ---------------------------------------------------------------- mouse
     # ------------------------------------------------------------- from a run
     @classmethod
     def from_run(cls, run, *, draw=-1, chain=0, **kwargs):
@@ -376,17 +285,11 @@ class DoublingView(View):
         if draw == 0:
             raise ValueError("`draw` must be >= 1: the start of the run's first kept transition "
                              "is not recorded (pick draw=1 or later)")
-        inverse, note = inverse_mass_of(kernel.metric)
-        args = dict(start=np.array(x[chain, draw - 1], dtype=float),
-                    step_size=float(kernel.step_size), inverse_mass=inverse)
+        knobs = {}
         if isinstance(kernel, NUTS):
-            args["max_depth"] = int(kernel.max_depth)
-            args["max_energy_error"] = float(kernel.max_energy_error)
-        args.update(kwargs)
-        if args.get("xlim") is None or args.get("ylim") is None:
-            xlim, ylim = run_region(run, args.get("coords", (0, 1)), args["start"])
-            args["xlim"] = xlim if args.get("xlim") is None else args["xlim"]
-            args["ylim"] = ylim if args.get("ylim") is None else args["ylim"]
+            knobs["max_depth"] = int(kernel.max_depth)
+            knobs["max_energy_error"] = float(kernel.max_energy_error)
+        args, note = run_arguments(run, kernel, x[chain, draw - 1], **{**knobs, **kwargs})
         view = cls(target, **args)
         replay = _replay(run, kernel, chain, draw) if isinstance(kernel, NUTS) else None
         same = (replay is not None and "momentum" not in kwargs and "seed" not in kwargs
@@ -412,17 +315,6 @@ class DoublingView(View):
             view._fixed_note += "; " + note
         view.status = view._fixed_note
         return view
-
-    # ------------------------------------------------------------- settings
-    from_settings = TrajectoryView.__dict__["from_settings"]
-
-    def apply_settings(self, settings):
-        """Restore saved knobs, start and momentum exactly (no fresh momentum draw)."""
-        self._applying = True
-        try:
-            return super().apply_settings(settings)
-        finally:
-            self._applying = False
 
 
 def _replay(run, kernel, chain, draw):
