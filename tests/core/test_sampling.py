@@ -338,7 +338,8 @@ def test_divergence_replays_are_integrated_only_when_read_and_never_counted(kern
     counted = (t.n_density, t.n_grad)
     assert not any(d.replayed for d in run.divergences)  # nothing integrated yet
     assert [(d[0], d[1]) for d in run.divergences] == [(d.chain, d.draw) for d in run.divergences]
-    assert not any(d.replayed for d in run.divergences)  # chain and draw integrate nothing
+    steps = [d.divergence_step for d in run.divergences]
+    assert not any(d.replayed for d in run.divergences)  # chain, draw and step integrate nothing
     # the same run with every replay integrated right after its transition (as before)
     s = pg.Sampler(t, kernel.copy(), n_chains=6, seed=2)
     eager = []
@@ -352,6 +353,7 @@ def test_divergence_replays_are_integrated_only_when_read_and_never_counted(kern
         assert lazy.replayed and lazy.trajectory is traj and lazy[2] is traj and len(lazy) == 3
         assert (chain, draw) == (c, d) and run.divergent[chain, draw] and traj.divergent
         _assert_same_trajectory(traj, tr)
+    assert steps == [d.trajectory.divergence_step for d in run.divergences]
     assert (t.n_density, t.n_grad) == counted_eager  # reading replays is not sampling work
     # nor is integrating them right away: the eager run cost what the lazy one did
     assert np.subtract(counted_eager, counted).tolist() == np.subtract(counted, start).tolist()

@@ -295,8 +295,9 @@ class Sampler:
         kernel = self.kernel
         if traj is not None:  # already integrated (record=True): nothing to defer
             for r in rows:
-                self.divergences.append(DivergenceReplay(int(r), draw,
-                                                         trajectory=one_chain(traj, int(r))))
+                one = one_chain(traj, int(r))
+                self.divergences.append(DivergenceReplay(int(r), draw, one.divergence_step,
+                                                         trajectory=one))
             return
         if start_momentum is None:
             return
@@ -306,13 +307,18 @@ class Sampler:
                 one = _ReplayBatch(*args, start[r:r + 1].copy(), start_momentum[r:r + 1].copy(),
                                    info["step_size"][r:r + 1].copy(),
                                    max(int(replay_steps[r]), 1), single=True)
-                self.divergences.append(DivergenceReplay(int(r), draw, batch=one, row=0))
+                # the replay runs to the divergent state: it diverges at its last step
+                self.divergences.append(DivergenceReplay(int(r), draw, one.n_steps, batch=one,
+                                                         row=0))
             return
         # fixed length: the divergent rows of one transition integrate together, as one batch
         batch = _ReplayBatch(*args, start[rows], start_momentum[rows], info["step_size"][rows],
                              kernel.n_steps, single=False)
+        # a chain that stopped at step k evaluated k gradients: n_grad is its divergent step
+        steps = info["n_grad"][rows]
         for i, r in enumerate(rows):
-            self.divergences.append(DivergenceReplay(int(r), draw, batch=batch, row=i))
+            self.divergences.append(DivergenceReplay(int(r), draw, int(steps[i]), batch=batch,
+                                                     row=i))
 
     # ---------------------------------------------------------------- warm-up
     def warm_up(self, n, *, target_accept=None, mass_adaptation="diagonal", progress=False,
@@ -427,15 +433,16 @@ class DivergenceReplay:
     what re-integration needs: the start, its momentum, the step size, the step
     count and references to the target and metric. The divergent rows of one
     transition are integrated together, exactly as ``pg.leapfrog`` would for
-    that batch, and never counted in ``target.n_grad``. ``chain`` and ``draw``
-    are read without integrating anything; ``replayed`` says whether the
-    trajectory exists yet.
+    that batch, and never counted in ``target.n_grad``. ``chain``, ``draw``
+    and ``divergence_step`` (the leapfrog step at which it diverged, as in
+    the trajectory) are read without integrating anything; ``replayed`` says
+    whether the trajectory exists yet.
     """
 
-    __slots__ = ("chain", "draw", "_batch", "_row", "_trajectory")
+    __slots__ = ("chain", "draw", "divergence_step", "_batch", "_row", "_trajectory")
 
-    def __init__(self, chain, draw, *, trajectory=None, batch=None, row=0):
-        self.chain, self.draw = chain, draw
+    def __init__(self, chain, draw, divergence_step, *, trajectory=None, batch=None, row=0):
+        self.chain, self.draw, self.divergence_step = chain, draw, divergence_step
         self._trajectory, self._batch, self._row = trajectory, batch, row
 
     @property
@@ -468,7 +475,8 @@ class DivergenceReplay:
 
     def __repr__(self):
         what = repr(self._trajectory) if self._trajectory is not None else "not replayed yet"
-        return f"DivergenceReplay(chain={self.chain}, draw={self.draw}, {what})"
+        return (f"DivergenceReplay(chain={self.chain}, draw={self.draw}, "
+                f"step {self.divergence_step}, {what})")
 
 
 #: The automatic warm-up length: as many transitions as draws, but at least
