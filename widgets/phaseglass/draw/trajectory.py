@@ -129,9 +129,36 @@ class _LineInView(Line2D):
 
 
 def _line_in_view(ax, keep, **kwargs):
+    """An empty ``_LineInView`` on ``ax``, left out of autoscaling (it may point far away)."""
     line = _LineInView([], [], keep=keep, **kwargs)
     ax.add_line(line)
+    exclude_from_autoscale(line)
     return line
+
+
+def _divergence_marker(ax, label):
+    """The ``X`` of a divergent step on an energy-error panel (on the edge when off-scale)."""
+    return _line_in_view(ax, "points", linestyle="none", label=label, zorder=4,
+                         **{k: v for k, v in style.DIVERGENT.items() if k != "linestyle"})
+
+
+def _arrow_in_view(ax, *, mutation_scale, linewidth, **kwargs):
+    """An empty ``_ArrowInView`` on ``ax`` (a momentum), left out of autoscaling."""
+    arrow = _ArrowInView((0, 0), (0, 0), arrowstyle="-|>", mutation_scale=mutation_scale,
+                         linewidth=linewidth, shrinkA=0, shrinkB=0, **kwargs)
+    ax.add_patch(arrow)
+    exclude_from_autoscale(arrow)
+    return arrow
+
+
+def _label_slice(ax, coords, names):
+    """Name the axes of a 2-D slice: the coordinates' names, or ``x[i]`` when none are given."""
+    if names is not None:
+        ax.set_xlabel(names[coords[0]])
+        ax.set_ylabel(names[coords[1]])
+    elif not ax.get_xlabel():
+        ax.set_xlabel(f"x[{coords[0]}] (sampler's scale)")
+        ax.set_ylabel(f"x[{coords[1]}] (sampler's scale)")
 
 
 def _check_upto(upto, n_steps):
@@ -303,20 +330,11 @@ def draw_trajectory(ax, trajectory, *, coords=(0, 1), accepted=None, chain=0, up
     (path,) = ax.plot([], [], label="leapfrog path", zorder=3, **style.PATH)
     div = _line_in_view(ax, "segment", label="divergent step", markevery=[1], zorder=4,
                         **style.DIVERGENT)
-    exclude_from_autoscale(div)
     (start,) = ax.plot([], [], label="start", zorder=5, **style.START)
     (end,) = ax.plot([], [], markersize=8, zorder=5, **style.UNDECIDED)
-    arrow = _ArrowInView((0, 0), (0, 0), arrowstyle="-|>", mutation_scale=12, linewidth=1.6,
-                            color=style.MOMENTUM["color"], label="initial momentum", zorder=4,
-                            shrinkA=0, shrinkB=0)
-    ax.add_patch(arrow)
-    exclude_from_autoscale(arrow)
-    if names is not None:
-        ax.set_xlabel(names[coords[0]])
-        ax.set_ylabel(names[coords[1]])
-    elif not ax.get_xlabel():
-        ax.set_xlabel(f"x[{coords[0]}] (sampler's scale)")
-        ax.set_ylabel(f"x[{coords[1]}] (sampler's scale)")
+    arrow = _arrow_in_view(ax, mutation_scale=12, linewidth=1.6, color=style.MOMENTUM["color"],
+                           label="initial momentum", zorder=4)
+    _label_slice(ax, coords, names)
     d = TrajectoryDrawing(ax=ax, path=path, start=start, end=end, divergent=div,
                           momentum=arrow, coords=coords, momentum_scale=float(momentum_scale),
                           metric=metric)
@@ -398,6 +416,32 @@ def _plain_number(v, pos=None):
     return text.replace("-", "\u2212")
 
 
+def _symlog_energy_axis(ax, threshold, linthresh):
+    """A symlog y axis for energy errors: room for small errors, plain numbers, no crowding."""
+    ax.set_yscale("symlog", linthresh=linthresh, linscale=3.0)  # room for small errors
+    # plain numbers, and only as many ticks as the axis has room for (no minor ticks)
+    ax.yaxis.set_major_locator(_SpacedTicks(_energy_ticks(threshold)))
+    ax.yaxis.set_major_formatter(FuncFormatter(_plain_number))
+    ax.yaxis.set_minor_locator(NullLocator())
+
+
+def _threshold_lines(ax, threshold):
+    """The lines at +-``threshold`` (the largest energy error allowed), the first labelled."""
+    return [ax.axhline(sign * threshold, zorder=1, label=lab, **style.THRESHOLD)
+            for sign, lab in ((1, f"max energy error \u00b1{threshold:g}"), (-1, None))]
+
+
+def _move_thresholds(ax, lines, threshold, *, symlog=True):
+    """Put the threshold ``lines`` at +-``threshold``; on a symlog axis show both, with ticks."""
+    for line, sign in zip(lines, (1, -1)):
+        line.set_ydata([sign * threshold, sign * threshold])
+    if symlog:
+        ax.set_ylim(-2.5 * threshold, 2.5 * threshold)
+        ticks = ax.yaxis.get_major_locator()
+        if isinstance(ticks, _SpacedTicks):
+            ticks.candidates = _energy_ticks(threshold)
+
+
 @dataclass(repr=False, eq=False)
 class EnergyErrorDrawing(Drawing):
     """Returned by ``draw_energy_error``.
@@ -446,8 +490,7 @@ class EnergyErrorDrawing(Drawing):
         err = traj.energy_error[:upto + 1]
         self.error.set_data(steps, err)
         thr = traj.max_energy_error
-        for line, sign in zip(self.thresholds, (1, -1)):
-            line.set_ydata([sign * thr, sign * thr])
+        _move_thresholds(self.ax, self.thresholds, thr, symlog=self.scale == "symlog")
         if traj.divergent and upto >= traj.divergence_step:
             k = traj.divergence_step
             v = traj.energy_error[k]
@@ -461,12 +504,7 @@ class EnergyErrorDrawing(Drawing):
             self.accept_line.set_data(steps, _accept_prob(err))
         self.ax.set_xlim(-0.5, traj.n_steps + 0.5)
         text = _verdict(traj, upto)
-        if self.scale == "symlog":
-            self.ax.set_ylim(-2.5 * thr, 2.5 * thr)
-            ticks = self.ax.yaxis.get_major_locator()
-            if isinstance(ticks, _SpacedTicks):
-                ticks.candidates = _energy_ticks(thr)
-        else:
+        if self.scale != "symlog":
             finite = err[np.isfinite(err)]
             top = max(float(np.max(np.abs(finite))) if finite.size else 1.0, 1e-3) * 1.15
             if self.autoscale:
@@ -511,21 +549,12 @@ def draw_energy_error(ax, trajectory, *, chain=0, upto=None, scale="symlog", lin
     traj = one_chain(trajectory, chain)
     style.dress(ax)
     if scale == "symlog":
-        ax.set_yscale("symlog", linthresh=linthresh, linscale=3.0)  # room for small errors
-        # plain numbers, and only as many ticks as the axis has room for (no minor ticks)
-        ax.yaxis.set_major_locator(_SpacedTicks(_energy_ticks(traj.max_energy_error)))
-        ax.yaxis.set_major_formatter(FuncFormatter(_plain_number))
-        ax.yaxis.set_minor_locator(NullLocator())
+        _symlog_energy_axis(ax, traj.max_energy_error, linthresh)
     ax.axhline(0.0, **style.REFERENCE, zorder=1)
-    thresholds = [
-        ax.axhline(sign * traj.max_energy_error, zorder=1, label=lab, **style.THRESHOLD)
-        for sign, lab in ((1, f"max energy error \u00b1{traj.max_energy_error:g}"), (-1, None))
-    ]
+    thresholds = _threshold_lines(ax, traj.max_energy_error)
     (error,) = ax.plot([], [], label="energy error \u0394H", zorder=3,
                        **{**style.PATH, "markersize": 3.5})
-    div = _line_in_view(ax, "points", linestyle="none", label="divergent step", zorder=4,
-                        **{k: v for k, v in style.DIVERGENT.items() if k != "linestyle"})
-    exclude_from_autoscale(div)
+    div = _divergence_marker(ax, "divergent step")
     verdict = ax.set_title("", loc="left", fontsize=9)
     ax.set_xlabel("leapfrog step")
     ax.set_ylabel("energy error \u0394H = H(step) \u2212 H(0)")

@@ -8,12 +8,12 @@ from matplotlib.collections import PathCollection
 from matplotlib.lines import Line2D
 from matplotlib.patches import FancyArrowPatch
 from matplotlib.text import Text
-from matplotlib.ticker import FuncFormatter, MaxNLocator, NullLocator
+from matplotlib.ticker import MaxNLocator
 
 from . import style
-from ._base import Drawing, exclude_from_autoscale
-from .trajectory import (_ArrowInView, _check_upto, _energy_ticks, _line_in_view,
-                         _plain_number, _SpacedTicks)
+from ._base import Drawing
+from .trajectory import (_arrow_in_view, _check_upto, _divergence_marker, _label_slice,
+                         _line_in_view, _move_thresholds, _symlog_energy_axis, _threshold_lines)
 
 __all__ = ["draw_tree", "draw_tree_energy", "draw_tree_depths", "tree_rows", "TreeDrawing",
            "TreeEnergyDrawing", "TreeDepthDrawing"]
@@ -213,11 +213,7 @@ class TreeDrawing(Drawing):
 
 
 def _arrow(ax, **kwargs):
-    a = _ArrowInView((0, 0), (0, 0), arrowstyle="-|>", mutation_scale=11, linewidth=1.4,
-                     shrinkA=0, shrinkB=0, **kwargs)
-    ax.add_patch(a)
-    exclude_from_autoscale(a)
-    return a
+    return _arrow_in_view(ax, mutation_scale=11, linewidth=1.4, **kwargs)
 
 
 def draw_tree(ax, tree, *, coords=(0, 1), chain=0, upto=None, momentum_scale=None, metric=None,
@@ -277,19 +273,13 @@ def draw_tree(ax, tree, *, coords=(0, 1), chain=0, upto=None, momentum_scale=Non
                       linewidths=0.6, alpha=0.75, label="candidates (area: chance of selection)")
     div = _line_in_view(ax, "segment", label="divergent subtree", markevery=[1], zorder=5,
                         **style.DIVERGENT)
-    exclude_from_autoscale(div)
     (ends,) = ax.plot([], [], zorder=6, label="U-turn: momenta compared", **TURN_ENDS)
     turn_arrows = [_arrow(ax, color=style.OKABE_ITO["orange"], zorder=6) for _ in range(2)]
     (start,) = ax.plot([], [], label="start", zorder=7, **style.START)
     (sel,) = ax.plot([], [], label="selected (next state)", markersize=9, zorder=7,
                      **style.ACCEPTED)
     arrow = _arrow(ax, color=style.MOMENTUM["color"], label="initial momentum", zorder=6)
-    if names is not None:
-        ax.set_xlabel(names[coords[0]])
-        ax.set_ylabel(names[coords[1]])
-    elif not ax.get_xlabel():
-        ax.set_xlabel(f"x[{coords[0]}] (sampler's scale)")
-        ax.set_ylabel(f"x[{coords[1]}] (sampler's scale)")
+    _label_slice(ax, coords, names)
     d = TreeDrawing(ax=ax, path=path, newest=newest, abandoned=gone, candidates=cand,
                     divergent=div, turn_span=span, turn_ends=ends, turn_momenta=turn_arrows,
                     start=start, selected=sel, momentum=arrow, coords=tuple(coords),
@@ -342,8 +332,6 @@ class TreeEnergyDrawing(Drawing):
         self.abandoned.set_data(off[gone], err[gone])
         self.abandoned.set_label("abandoned subtree" if gone.any() else "_abandoned subtree")
         thr = t["max_energy_error"]
-        for line, sign in zip(self.thresholds, (1, -1)):
-            line.set_ydata([sign * thr, sign * thr])
         if k >= 0 and dbl[k] < upto:
             v = err[k] if np.isfinite(err[k]) else thr * 1e6
             self.divergence.set_data([off[k]], [v])
@@ -353,10 +341,7 @@ class TreeEnergyDrawing(Drawing):
             self.divergence.set_label("_divergent state")
         lo, hi = int(off.min()), int(off.max())
         self.ax.set_xlim(lo - 0.5 - 0.02 * (hi - lo), hi + 0.5 + 0.02 * (hi - lo))
-        self.ax.set_ylim(-2.5 * thr, 2.5 * thr)
-        ticks = self.ax.yaxis.get_major_locator()
-        if isinstance(ticks, _SpacedTicks):
-            ticks.candidates = _energy_ticks(thr)
+        _move_thresholds(self.ax, self.thresholds, thr)
         finite = err[merged | gone]
         worst = float(np.max(np.abs(finite))) if finite.size else 0.0
         self.title.set_text(f"{int(np.count_nonzero(shown)) - 1} leapfrog states, "
@@ -378,21 +363,15 @@ def draw_tree_energy(ax, tree, *, chain=0, upto=None, linthresh=1.0):
     """
     t = tree_rows(tree, chain)
     style.dress(ax)
-    ax.set_yscale("symlog", linthresh=linthresh, linscale=3.0)
-    ax.yaxis.set_major_locator(_SpacedTicks(_energy_ticks(t["max_energy_error"])))
-    ax.yaxis.set_major_formatter(FuncFormatter(_plain_number))
-    ax.yaxis.set_minor_locator(NullLocator())
+    _symlog_energy_axis(ax, t["max_energy_error"], linthresh)
     ax.axhline(0.0, **style.REFERENCE, zorder=1)
     ax.axvline(0.0, **style.REFERENCE, zorder=1)
     thr = t["max_energy_error"]
-    thresholds = [ax.axhline(sign * thr, zorder=1, label=lab, **style.THRESHOLD)
-                  for sign, lab in ((1, f"max energy error \u00b1{thr:g}"), (-1, None))]
+    thresholds = _threshold_lines(ax, thr)
     (error,) = ax.plot([], [], label="energy error \u0394H", zorder=3,
                        **{**style.PATH, "markersize": 3.0})
     (gone,) = ax.plot([], [], label="abandoned subtree", zorder=3, **ABANDONED)
-    div = _line_in_view(ax, "points", linestyle="none", label="divergent state", zorder=4,
-                        **{k: v for k, v in style.DIVERGENT.items() if k != "linestyle"})
-    exclude_from_autoscale(div)
+    div = _divergence_marker(ax, "divergent state")
     title = ax.set_title("", loc="left", fontsize=8)
     ax.set_xlabel("steps from the start (< 0: backward)")
     ax.set_ylabel("\u0394H = H \u2212 H(start)")
