@@ -11,6 +11,8 @@ import urllib.request
 
 import pytest
 
+from _processes import alive
+
 from phaseglass import cli, launch
 
 
@@ -70,19 +72,6 @@ def _free_port():
     with socket.socket() as s:
         s.bind(("127.0.0.1", 0))
         return s.getsockname()[1]
-
-
-def _alive(pid):
-    """True while ``pid`` is a running (not zombie) process."""
-    try:
-        os.kill(pid, 0)
-    except ProcessLookupError:
-        return False
-    try:
-        with open(f"/proc/{pid}/stat") as f:
-            return f.read().rsplit(")", 1)[1].split()[0] != "Z"
-    except OSError:
-        return True
 
 
 def _server_pids(runtime_dir):
@@ -153,14 +142,14 @@ def test_demo_serves_the_tour_on_the_port_it_names_and_sigterm_stops_the_server(
         servers = _server_pids(runtime)
         assert len(servers) == 1 and proc.pid not in servers
         (server,) = servers
-        assert _alive(server)
+        assert alive(server)
 
         proc.terminate()  # SIGTERM to phaseglass only, as a process manager or `kill` sends it
         assert proc.wait(timeout=60) == 128 + 15
         gone = time.monotonic() + 10
-        while _alive(server) and time.monotonic() < gone:  # normally gone already: we waited for it
+        while alive(server) and time.monotonic() < gone:  # normally gone already: we waited for it
             time.sleep(0.1)
-        assert not _alive(server), "JupyterLab outlived phaseglass demo"
+        assert not alive(server), "JupyterLab outlived phaseglass demo"
         assert "stopping JupyterLab" in log.read_text()
         assert not list(runtime.glob("jpserver-*.json"))  # it shut down cleanly, not killed
     except AssertionError as exc:
@@ -171,7 +160,7 @@ def test_demo_serves_the_tour_on_the_port_it_names_and_sigterm_stops_the_server(
             proc.kill()
             proc.wait()
         for pid in servers | _server_pids(runtime):  # never leave a server behind, even on failure
-            if _alive(pid):
+            if alive(pid):
                 os.kill(pid, 9)
 
 
@@ -220,9 +209,9 @@ def test_a_stop_signal_is_passed_on_as_sigterm_and_waited_for(tmp_path, sig):
         assert proc.returncode == (0 if sig == signal.SIGINT else 128 + sig)
         assert marker.read_text().split() == ["SIGTERM"]  # JupyterLab stops its kernels on this
         assert f"stopping JupyterLab (pid {server}) after {sig.name}" in out
-        assert not _alive(server)
+        assert not alive(server)
     finally:
-        if _alive(server):
+        if alive(server):
             os.kill(server, 9)
 
 
@@ -234,9 +223,9 @@ def test_a_server_that_ignores_sigterm_is_killed_after_the_grace(tmp_path):
         assert proc.returncode == 128 + signal.SIGTERM
         assert marker.read_text().split() == ["SIGTERM"]
         assert "did not stop within 1 s; killing it" in out
-        assert not _alive(server)
+        assert not alive(server)
     finally:
-        if _alive(server):
+        if alive(server):
             os.kill(server, 9)
 
 

@@ -17,6 +17,8 @@ from pathlib import Path
 
 import pytest
 
+from _processes import alive
+
 from phaseglass import cli, launch
 
 FAST = ["--draws", "12", "--warmup", "0", "--chains", "1", "--seed", "2", "--no-grid", "--dpi", "20",
@@ -212,18 +214,6 @@ def test_report_believes_no_manifest_entry_outside_its_own_names(work, capsys):
 
 # ------------------------------------------------------------------ real processes
 
-def _alive(pid):
-    try:
-        os.kill(pid, 0)
-    except ProcessLookupError:
-        return False
-    try:
-        with open(f"/proc/{pid}/stat") as f:
-            return f.read().rsplit(")", 1)[1].split()[0] != "Z"
-    except OSError:
-        return True
-
-
 def _env():
     return dict(os.environ, MPLBACKEND="Agg")
 
@@ -295,18 +285,18 @@ def test_demo_killed_leaves_no_server(sig, work):
             assert proc.poll() is None, proc.stdout.read()
             time.sleep(0.05)
         server = int(pid_file.read_text())
-        assert _alive(server)
+        assert alive(server)
         proc.send_signal(sig)
         out, _ = proc.communicate(timeout=30)
         assert proc.returncode == 128 + sig
         assert marker.read_text().split() == ["SIGTERM"]
-        assert not _alive(server)
+        assert not alive(server)
         assert f"stopping JupyterLab (pid {server}) after {sig.name}" in out
     finally:
         if proc.poll() is None:
             proc.kill()
             proc.wait()
-        if server is not None and _alive(server):
+        if server is not None and alive(server):
             os.kill(server, signal.SIGKILL)
 
 
