@@ -1,8 +1,30 @@
-"""Fixtures shared by every test folder: a real Dask cluster for the executor tests."""
+"""Fixtures shared by every test folder: a demo target, a pixel check, a real Dask cluster."""
 
 import os
 
+import numpy as np
 import pytest
+
+
+@pytest.fixture(scope="session")
+def gaussian():
+    """Correlated Gaussian (correlation 0.9): standard deviations sqrt(1.9) and sqrt(0.1)."""
+    import phaseglass as pg
+
+    return pg.demos.correlated_gaussian()
+
+
+def _blank_fraction(img):
+    """Share of the pixels equal to the most common colour (1.0 means an empty picture)."""
+    flat = np.asarray(img)[..., :3].reshape(-1, 3)
+    _, counts = np.unique(flat, axis=0, return_counts=True)
+    return counts.max() / flat.shape[0]
+
+
+@pytest.fixture(scope="session")
+def blank_fraction():
+    """``blank_fraction(rgb)``: share of the most common colour (1.0 is an empty picture)."""
+    return _blank_fraction
 
 
 def optional_module(name, extra):

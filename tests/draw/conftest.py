@@ -1,4 +1,7 @@
-"""Shared fixtures for the drawing tests: Agg backend, small runs and trajectories, pixels."""
+"""Shared fixtures for the drawing tests: Agg backend, small runs and trajectories, pixels.
+
+``gaussian`` and ``blank_fraction`` come from tests/conftest.py.
+"""
 
 import matplotlib
 
@@ -27,28 +30,10 @@ def _pixels(fig):
     return np.asarray(canvas.buffer_rgba())[..., :3].copy()
 
 
-def _blank_fraction(img):
-    """Fraction of pixels equal to the most common colour (1.0 means an empty picture)."""
-    flat = img.reshape(-1, 3)
-    _, counts = np.unique(flat, axis=0, return_counts=True)
-    return counts.max() / flat.shape[0]
-
-
 @pytest.fixture(scope="session")
 def pixels():
     """``pixels(fig)``: render with Agg, return RGB pixels (h, w, 3)."""
     return _pixels
-
-
-@pytest.fixture(scope="session")
-def blank_fraction():
-    """``blank_fraction(img)``: share of the most common colour (1.0 is an empty picture)."""
-    return _blank_fraction
-
-
-@pytest.fixture(scope="session")
-def gaussian():
-    return pg.demos.correlated_gaussian()
 
 
 @pytest.fixture(scope="session")

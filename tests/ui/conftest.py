@@ -1,16 +1,13 @@
-"""Shared fixtures for the headless widget tests: demo targets and synthetic mouse events."""
+"""Shared fixtures for the headless widget tests: demo targets and synthetic mouse events.
+
+``gaussian`` and ``blank_fraction`` come from tests/conftest.py.
+"""
 
 import numpy as np
 import pytest
 from matplotlib.backend_bases import MouseEvent
 
 import phaseglass as pg
-
-
-@pytest.fixture(scope="session")
-def gaussian():
-    """Correlated Gaussian (correlation 0.9): standard deviations sqrt(1.9) and sqrt(0.1)."""
-    return pg.demos.correlated_gaussian()
 
 
 @pytest.fixture(scope="session")
@@ -38,15 +35,3 @@ def _fire(figure, ax, name, x, y, button=1):
 def fire():
     """``fire(figure, ax, name, x, y)``: a synthetic ``button_press_event`` (or motion, release)."""
     return _fire
-
-
-@pytest.fixture(scope="session")
-def blank_fraction():
-    """``blank_fraction(rgb)``: share of the most common colour (1.0 is an empty picture)."""
-
-    def share(img):
-        flat = np.asarray(img)[..., :3].reshape(-1, 3)
-        _, counts = np.unique(flat, axis=0, return_counts=True)
-        return counts.max() / flat.shape[0]
-
-    return share

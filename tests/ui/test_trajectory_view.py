@@ -7,19 +7,15 @@ import pytest
 import traitlets
 from PIL import Image
 
+from _views import START, key_below_panels_in_column, open_at_start
+
 import phaseglass as pg
 from phaseglass.core.streams import seed_sequence
 
-START = np.array([1.0, -0.5])
-REGION = {"xlim": (-3.5, 3.5), "ylim": (-3.5, 3.5)}
-
 
 def make(target, **kw):
-    """A view with a given start and region (skips the pilot run, keeps tests fast)."""
-    kw.setdefault("start", START)
-    for k, v in REGION.items():
-        kw.setdefault(k, v)
-    return pg.TrajectoryView(target, **kw)
+    """A TrajectoryView at ``START`` in the fixed region unless given."""
+    return open_at_start(pg.TrajectoryView, target, **kw)
 
 
 def reference(view):
@@ -357,25 +353,9 @@ def test_controls_are_labelled_in_full_and_wide_enough_to_aim(gaussian):
 
 
 def test_the_figure_fits_the_column_and_nothing_is_cut(gaussian):
-    from phaseglass.ui._base import COLUMN_WIDTH_IN
-
     view = make(gaussian)
-    width, height = view.figure.get_size_inches()
-    assert width <= COLUMN_WIDTH_IN
     view.step_size = 2.0  # a divergence: its X and dashed step reach the frame
-    view.render()
-    fig = view.figure
-    renderer = fig.canvas.get_renderer()
-    # everything drawn (labels, titles, tick labels in view, the legend) is on the canvas
-    drawn = fig.get_tightbbox(renderer)  # inches
-    assert drawn.x0 >= -0.01 and drawn.y0 >= -0.01
-    assert drawn.x1 <= width + 0.01 and drawn.y1 <= height + 0.01
-    (key,) = fig.legends  # one key below both panels, whole
-    b = key.get_window_extent(renderer)
-    assert b.x0 >= 0 and b.y0 >= 0 and b.x1 <= fig.bbox.x1 and b.y1 <= fig.bbox.y1
-    for ax in (view._ax, view._ax_err):
-        assert b.y1 <= ax.get_window_extent(renderer).y0  # below the panels, not over them
-    labels = [t.get_text() for t in key.get_texts()]
+    labels = key_below_panels_in_column(view)
     assert "initial momentum" in labels and "max energy error \u00b11000" in labels
 
 

@@ -4,18 +4,14 @@ import numpy as np
 import pytest
 import traitlets
 
-import phaseglass as pg
+from _views import START, key_below_panels_in_column, open_at_start
 
-START = np.array([1.0, -0.5])
-REGION = {"xlim": (-3.5, 3.5), "ylim": (-3.5, 3.5)}
+import phaseglass as pg
 
 
 def make(target, **kw):
-    """A view with a given start and region (skips the pilot's region, keeps tests fast)."""
-    kw.setdefault("start", START)
-    for k, v in REGION.items():
-        kw.setdefault(k, v)
-    return pg.DoublingView(target, **kw)
+    """A DoublingView at ``START`` in the fixed region unless given."""
+    return open_at_start(pg.DoublingView, target, **kw)
 
 
 def reference(view):
@@ -239,23 +235,8 @@ def test_the_primary_control_is_the_step_size_slider_and_repaints(gaussian):
 
 
 def test_the_figure_fits_the_column_and_nothing_is_cut(gaussian, sigma_min):
-    from phaseglass.ui._base import COLUMN_WIDTH_IN
-
     view = make(gaussian, step_size=3.0 * sigma_min, seed=2)  # a divergence reaches the frame
-    width, height = view.figure.get_size_inches()
-    assert width <= COLUMN_WIDTH_IN
-    view.render()
-    fig = view.figure
-    renderer = fig.canvas.get_renderer()
-    drawn = fig.get_tightbbox(renderer)  # inches
-    assert drawn.x0 >= -0.01 and drawn.y0 >= -0.01
-    assert drawn.x1 <= width + 0.01 and drawn.y1 <= height + 0.01
-    (key,) = fig.legends  # one key below both panels, whole
-    b = key.get_window_extent(renderer)
-    assert b.x0 >= 0 and b.y0 >= 0 and b.x1 <= fig.bbox.x1 and b.y1 <= fig.bbox.y1
-    for ax in (view._ax, view._ax_err):
-        assert b.y1 <= ax.get_window_extent(renderer).y0
-    labels = [t.get_text() for t in key.get_texts()]
+    labels = key_below_panels_in_column(view)
     assert "U-turn: momenta compared" in labels and "divergent subtree" in labels
 
 
