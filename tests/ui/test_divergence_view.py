@@ -451,3 +451,18 @@ def test_the_grid_follows_a_targets_run_once_ranked():
     fig = view.pair_grid(2)
     assert view.grid.pairs == [tuple(int(v) for v in p) for p in view.ranking.pairs[:2]]
     assert tuple(fig.get_size_inches())[0] <= 7.6
+
+
+def test_opening_replays_only_the_divergence_it_shows():
+    # a fresh run: its replays are integrated on first read (core/sampling.py DivergenceReplay)
+    run = pg.sample(pg.demos.get("apiaries-12"), pg.HMC(0.1, 8), **FUNNEL_SETTINGS)
+    assert run.n_divergent >= 5 and not any(item.replayed for item in run.divergences)
+    view = DivergenceView(run)
+    shown = [item.replayed for item in run.divergences]
+    assert sum(shown) == 1  # the selected one, nothing else
+    # the list's labels came from the replays' steps without integrating them
+    e = view.divergences[view.selected]
+    assert view.trajectory is e.trajectory and view._pick_list.options[0][0].endswith(
+        f"step {view.divergences[0].divergence_step}")
+    view.selected = (view.selected + 1) % len(view.divergences)
+    assert sum(item.replayed for item in run.divergences) == 2

@@ -640,10 +640,11 @@ class DivergenceView(View):
     def _collect_divergences(self, run):
         first, n = run.first_draw, run.n_draws
         # in the order they happened, so indices stay put while more draws come in
-        kept = sorted(((c, d - first, tr) for c, d, tr in run.divergences if first <= d < first + n),
-                      key=lambda e: (e[1], e[0]))
+        # entries read their replay's trajectory only when it is shown (see _Kept)
+        kept = sorted((_Kept(item[0], item[1] - first, item) for item in run.divergences
+                       if first <= item[1] < first + n), key=lambda e: (e.draw, e.chain))
         self.divergences = kept
-        where = {(c, t): i for i, (c, t, _) in enumerate(kept)}
+        where = {(e.chain, e.draw): i for i, e in enumerate(kept)}
         if run.divergent is not None and run.n_draws:
             chains, draws = np.nonzero(np.asarray(run.divergent, dtype=bool))  # chain-major, as drawn
             self._marker_index = np.array([where.get((int(c), int(t)), -1)
@@ -652,8 +653,8 @@ class DivergenceView(View):
             self._marker_index = np.zeros(0, dtype=int)
 
     def _label(self, i):
-        c, t, tr = self.divergences[i]
-        return f"{i + 1}: chain {c}, draw {t}, step {tr.divergence_step}"  # short: never cut
+        e = self.divergences[i]
+        return f"{i + 1}: chain {e.chain}, draw {e.draw}, step {e.divergence_step}"  # short: never cut
 
     @contextmanager
     def _sync(self):
@@ -682,7 +683,8 @@ class DivergenceView(View):
 
     @guarded("selection")
     def _show_selected(self):
-        c, t, tr = self.divergences[self.selected]
+        e = self.divergences[self.selected]
+        c, t, tr = e.chain, e.draw, e.trajectory
         self.trajectory = tr
         end = self._end()
         first = self._path is None
@@ -717,7 +719,7 @@ class DivergenceView(View):
         if self.selected < 0 or not self.divergences or self._run is None:
             self._ring.set_data([], [])
             return
-        c, t, _ = self.divergences[self.selected]
+        c, t = self.divergences[self.selected].chain, self.divergences[self.selected].draw
         xy = self._run.draws[c, t, list(self.coords)]
         self._ring.set_data([xy[0]], [xy[1]])
 
@@ -827,7 +829,8 @@ class DivergenceView(View):
             parts.append("coordinates where the divergences differ most from the other draws: "
                          + ", ".join(html.escape(self.names[k]) for k in r.top_pair))
         if self.trajectory is not None and self.selected >= 0:
-            c, t, tr = self.divergences[self.selected]
+            e = self.divergences[self.selected]
+            c, t, tr = e.chain, e.draw, e.trajectory
             k = tr.divergence_step
             dh = float(tr.energy_error[k])
             dh_text = (f"&Delta;H = {'+' if dh > 0 else ''}{number(dh)}" if np.isfinite(dh)
@@ -882,3 +885,33 @@ class DivergenceView(View):
             kw["background"] = False
         view = cls(run_or_target, **kw)
         return view.apply_settings(settings)
+
+
+class _Kept:
+    """One divergence as the view lists it: ``(chain, draw, Trajectory)`` when unpacked, ``draw``
+    counted from the run's first kept draw. The run's replay is integrated only when its
+    trajectory is read (a view of hundreds of divergences opens without replaying them all)."""
+
+    __slots__ = ("chain", "draw", "_item")
+
+    def __init__(self, chain, draw, item):
+        self.chain, self.draw, self._item = int(chain), int(draw), item
+
+    @property
+    def divergence_step(self):
+        step = getattr(self._item, "divergence_step", None)  # a lazy replay knows it unreplayed
+        return self.trajectory.divergence_step if step is None else step
+
+    @property
+    def trajectory(self):
+        return self._item[2]
+
+    def __len__(self):
+        return 3
+
+    def __iter__(self):
+        return iter((self.chain, self.draw, self.trajectory))
+
+    def __getitem__(self, index):
+        return (self.chain, self.draw, self.trajectory)[index] if index not in (0, 1) else \
+            (self.chain, self.draw)[index]
