@@ -5,7 +5,8 @@ import pytest
 
 import phaseglass as pg
 from phaseglass.core import diagnostics as dg
-from phaseglass.core.efficiency import MIN_ESS_DRAWS, ess_per_gradient, evaluation_cost
+from phaseglass.core.efficiency import (MIN_ESS_DRAWS, ess_per_gradient, evaluation_cost,
+                                        mean_acceptance)
 from phaseglass.core.run import Run
 
 
@@ -66,3 +67,20 @@ def test_the_digest_and_the_tuning_map_cells_use_the_same_number():
     assert 0 < per < 1
     assert run.summary().run_info["ess_per_gradient"] == per
     assert cell_quantities(run)["ESS per gradient"] == per
+
+
+def test_mean_acceptance_counts_a_missing_probability_as_zero():
+    x = np.zeros((2, 3, 1))
+    run = _run(x)
+    run.accept_prob = np.array([[1.0, 0.5, np.nan], [0.25, np.nan, 0.25]])
+    assert mean_acceptance(run) == pytest.approx(2.0 / 6.0)
+
+
+def test_the_tuning_map_cells_use_mean_acceptance():
+    from phaseglass.ui.tuning_map import cell_quantities
+
+    t = pg.demos.correlated_gaussian()
+    run = pg.sample(t, pg.HMC(0.5, 6), n_draws=60, n_chains=2, seed=6, warmup=0)
+    acc = cell_quantities(run)["acceptance"]
+    assert acc == mean_acceptance(run) == pytest.approx(float(np.mean(run.accept_prob)))
+    assert 0 < acc < 1

@@ -20,7 +20,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ._validate import RENAMED, check_int, warn_renamed
-from .efficiency import evaluation_cost, ess_per_gradient
+from .efficiency import evaluation_cost, ess_per_gradient, mean_acceptance
 from .kernels import Kernel
 from .streams import seed_sequence
 from .target import Target
@@ -215,8 +215,7 @@ def _measure(target, kernel, entropy, spawn_key, n_draws, n_chains, options, ini
     return {
         # per log-density evaluation for a gradient-free kernel (see evaluation_cost)
         "ESS per gradient": ess_per_gradient(run, cost=evaluation_cost(run)[0]),
-        "acceptance": float(np.mean(np.nan_to_num(np.asarray(run.accept_prob, dtype=float),
-                                                  nan=0.0))),
+        "acceptance": mean_acceptance(run),
         "divergences": float(run.n_divergent),
         "step size": float(getattr(run.kernel, knob)) if knob else np.nan,
         "R-hat max": float(np.nanmax(r)) if np.any(np.isfinite(r)) else np.nan,

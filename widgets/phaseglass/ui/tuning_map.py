@@ -13,7 +13,7 @@ import traitlets
 from ..core._validate import MAX_STEPS, warn_renamed
 from ..core.compare import (CellAborted, check_executor, pack, run_fixed, run_fixed_portable,
                             submit_packed)
-from ..core.efficiency import ess_per_gradient, evaluation_cost
+from ..core.efficiency import ess_per_gradient, evaluation_cost, mean_acceptance
 from ..core.kernels import HMC, PartialRefreshHMC, RandomWalk
 from ..core.metric import Metric
 from ..core.nuts import MAX_DEPTH_LIMIT, NUTS
@@ -81,16 +81,15 @@ def make_cell_kernel(kind, column, row=1, persistence=None, uniform="fresh", met
 def cell_quantities(run):
     """Acceptance, divergence rate and ESS per gradient of one short Run.
 
-    * ``acceptance``: mean acceptance probability ``min(1, exp(-dH))`` over all
-      transitions and chains (0 for a divergence); less noisy than the share of
-      accepted proposals and with the same expectation.
+    * ``acceptance``: ``mean_acceptance(run)``, the mean acceptance probability
+      ``min(1, exp(-dH))`` over all transitions and chains (0 for a divergence).
     * ``divergence rate``: share of transitions that diverged.
     * ``ESS per gradient``: the smallest bulk ESS over the coordinates divided by
       the gradient evaluations of the kept transitions (log-density evaluations for
       a gradient-free kernel). A run in which some chain never moved gets 0: a stuck
       chain is not mixing, whatever the between-chain spread says.
     """
-    acc = float(np.mean(np.nan_to_num(np.asarray(run.accept_prob, dtype=float), nan=0.0)))
+    acc = mean_acceptance(run)
     div = float(np.mean(run.divergent))
     per = ess_per_gradient(run, cost=evaluation_cost(run)[0])
     return {"acceptance": acc, "divergence rate": div, "ESS per gradient": per}
