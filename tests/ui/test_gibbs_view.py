@@ -252,6 +252,32 @@ def test_numeric_conditionals_and_coordinates_on_three_dimensions():
     np.testing.assert_allclose(view._paths.heads[1].get_xydata(), z[1, -1:, [0, 1]].T)
     np.testing.assert_array_equal(view._trace_y.lines[2].get_ydata(), z[2, :, 1])
     assert view._ax.get_ylabel() == t.names[1]
+    (row,) = [c for c in view.children if view._x_pick in getattr(c, "children", ())]
+    assert view._swap_pick in row.children  # the swap button sits in the picker row
+    view._swap_pick.click()
+    assert view.coords == (1, 0) and view._ax.get_xlabel() == t.names[1]
+
+
+def test_vectorized_conditionals_are_called_once_for_all_chains_in_the_pilot_too(target):
+    shapes = []
+
+    def conditionals(i, x):
+        shapes.append(np.shape(x))
+        return exact_conditionals(i, x)
+
+    from phaseglass.ui.gibbs_view import _PILOT_CHAINS
+
+    view = ShiftGibbsView(target, conditionals, n_chains=4, vectorized=True)
+    assert view.kernel.vectorized and view._pilot is not None
+    # the pilot's sweeps ask once for all its chains, x of shape (dim, chains); only the
+    # kernel's start-of-run checks ask chain by chain
+    assert (2, _PILOT_CHAINS) in shapes
+    shapes.clear()
+    ShiftGibbsView(target, conditionals, n_chains=4)
+    assert shapes and all(len(s) == 1 for s in shapes)  # not vectorized: one chain per call
+    run = pg.sample(target, pg.Gibbs(exact_conditionals, vectorized=True), n_draws=10,
+                    n_chains=2, warmup=0, seed=1)
+    assert pg.ShiftGibbsView.from_run(run, n_chains=3).kernel.vectorized
 
 
 # ------------------------------------------------------------ settings, errors

@@ -180,6 +180,12 @@ def test_coordinate_pickers_switch_the_slice(apiaries):
     # setting the trait moves the pickers too
     view.coords = (4, 3)
     assert (view._x_pick.value, view._y_pick.value) == (4, 3)
+    # the swap button sits in the picker row and swaps the axes (and their mass knobs)
+    (row,) = [c for c in view.children if view._x_pick in getattr(c, "children", ())]
+    assert view._swap_pick in row.children
+    view._swap_pick.click()
+    assert view.coords == (3, 4) and view._ax.get_xlabel() == apiaries.names[3]
+    assert view._mass_knobs[0].label.value == f"inverse mass {apiaries.names[3]}"
 
 
 def test_settings_round_trip_reproduces_the_trajectory(gaussian):

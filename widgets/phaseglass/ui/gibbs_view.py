@@ -120,6 +120,9 @@ class ShiftGibbsView(View):
     starts_from : array_like, shape (n, dim), optional
         Draws (user's scale) the chains' starts are spread over, e.g. an
         earlier run's; default a short ordinary-Gibbs pilot run.
+    vectorized : bool
+        Call ``conditionals(i, x)`` once for all chains, as ``pg.Gibbs(vectorized=True)``
+        (the pilot run too).
 
     Attributes
     ----------
@@ -185,7 +188,7 @@ class ShiftGibbsView(View):
 
     def __init__(self, target, conditionals=None, *, n_chains=4, shift=0.1, random_shift=False,
                  ordinary=False, seed=0, coords=(0, 1), capacity=2000, trail=30,
-                 grid_size=DEFAULT_GRID_SIZE, starts_from=None):
+                 grid_size=DEFAULT_GRID_SIZE, starts_from=None, vectorized=False):
         check_target(target, min_dim=2)
         pool = None
         if starts_from is not None:
@@ -199,7 +202,8 @@ class ShiftGibbsView(View):
         self.target = target
         self.capacity = int(capacity)
         # the kernel validates `conditionals` and `grid_size` (TypeError/ValueError naming them)
-        self.kernel = Gibbs(conditionals, shift=None, shared_stream=True, grid_size=grid_size)
+        self.kernel = Gibbs(conditionals, shift=None, shared_stream=True, grid_size=grid_size,
+                            vectorized=vectorized)
         super().__init__(figsize=(COLUMN_WIDTH_IN, 4.8))
         self.sampler = None
         self._run = None
@@ -261,7 +265,8 @@ class ShiftGibbsView(View):
         target, kernel = run_parts(run, needs_step_size=False)
         args = {"starts_from": np.asarray(run.draws, dtype=float).reshape(-1, target.dim)}
         if isinstance(kernel, Gibbs):
-            args.update(conditionals=kernel.conditionals, grid_size=kernel.grid_size)
+            args.update(conditionals=kernel.conditionals, grid_size=kernel.grid_size,
+                        vectorized=kernel.vectorized)
             if kernel.shift is None:
                 args["ordinary"] = True
             elif isinstance(kernel.shift, str):
@@ -274,7 +279,7 @@ class ShiftGibbsView(View):
     def _pilot_draws(self):
         """Draws (m, dim) of a short ordinary-Gibbs pilot (independent streams), sampler's scale."""
         pilot = Gibbs(self.kernel.conditionals, shift=None, shared_stream=False,
-                      grid_size=self.kernel.grid_size)
+                      grid_size=self.kernel.grid_size, vectorized=self.kernel.vectorized)
         try:
             with self.target.uncounted():  # a view is not sampling work
                 s = Sampler(self.target, pilot, n_chains=_PILOT_CHAINS, seed=_PILOT_SEED)
@@ -350,7 +355,9 @@ class ShiftGibbsView(View):
             widgets.HBox([self._chains_knob, self._trail_knob]),
         ]
         if self.target.dim > 2:
-            rows.append(widgets.HBox([self._x_pick, self._y_pick]))
+            rows.append(widgets.HBox([self._x_pick, self._y_pick, self._swap_pick],
+                                     layout=widgets.Layout(flex_flow="row wrap",
+                                                           align_items="center")))
         self.children = rows + [self.figure.canvas, self._readout, self._status_html]
 
     def _sync_enabled(self):
