@@ -466,3 +466,30 @@ def test_opening_replays_only_the_divergence_it_shows():
         f"step {view.divergences[0].divergence_step}")
     view.selected = (view.selected + 1) % len(view.divergences)
     assert sum(item.replayed for item in run.divergences) == 2
+
+
+def test_a_nuts_run_marks_and_ranks_divergences_where_their_transitions_started():
+    # NUTS keeps the valid part of a tree whose newest subtree diverged, so a divergent
+    # transition can move: its start is the previous draw, which is where its replay begins.
+    run = pg.sample(pg.demos.get("apiaries-12"), pg.NUTS(0.2), n_draws=150, n_chains=2,
+                    warmup=0, seed=3)
+    moved = [(c, t) for c, t, _ in run.divergences
+             if t > 0 and not np.allclose(run.unconstrained[c, t], run.unconstrained[c, t - 1])]
+    assert moved, "the test needs a divergent NUTS transition that moved"
+    view = DivergenceView(run, coords=(0, 1))
+    e = view.divergences[view.selected]
+    if e.draw > 0:
+        np.testing.assert_allclose(e.trajectory.positions[0], run.unconstrained[e.chain, e.draw - 1])
+        ring = np.asarray(view._ring.get_xydata()).reshape(-1)
+        np.testing.assert_allclose(ring, run.draws[e.chain, e.draw - 1, :2])
+    # the X markers are the divergent transitions' starts (previous draws), not their draws
+    from phaseglass.core.triage import transition_starts
+    starts = transition_starts(run, scale="user")
+    expected = starts[np.asarray(run.divergent, dtype=bool)][:, :2]
+    marks = np.asarray(view._pair.divergent.get_xydata()).reshape(-1, 2)
+    np.testing.assert_allclose(np.sort(marks, axis=0), np.sort(expected, axis=0))
+    c, t = moved[0]
+    np.testing.assert_allclose(starts[c, t], run.draws[c, t - 1])
+    # HMC never moves on a divergence: its starts are its draws
+    hmc = pg.sample(pg.demos.get("apiaries-12"), pg.HMC(0.1, 8), n_draws=40, n_chains=2, warmup=0, seed=1)
+    assert transition_starts(hmc) is not None and np.array_equal(transition_starts(hmc), hmc.unconstrained)

@@ -105,6 +105,9 @@ class Kernel:
     u_per_coordinate : bool
         Whether the recorded ``u`` holds one value per coordinate (Gibbs) rather
         than one per transition.
+    moves_when_divergent : bool
+        Whether a divergent transition can still move the chain (so its recorded
+        draw is not where it started); see ``triage.transition_starts``.
     """
 
     uses_gradient = True
@@ -112,6 +115,7 @@ class Kernel:
     default_target_accept = 0.8
     shared_stream = False
     u_per_coordinate = False
+    moves_when_divergent = False
     metric = Metric()
 
     def prepare(self, target):

@@ -105,6 +105,7 @@ class NUTS(Kernel):
     uses_gradient = True
     tuned_knob = "step_size"
     default_target_accept = 0.8
+    moves_when_divergent = True  # the tree's valid part is kept when a subtree diverges
     step_size = _Knob(_positive)
     max_depth = _Knob(_depth)
     metric = _Knob(_metric)

@@ -10,7 +10,7 @@ import math
 
 import numpy as np
 
-__all__ = ["DivergenceRanking", "divergence_ranking"]
+__all__ = ["DivergenceRanking", "divergence_ranking", "transition_starts"]
 
 
 class DivergenceRanking:
@@ -156,6 +156,9 @@ def divergence_ranking(run, *, max_pairs=50):
         raise ValueError("`run` must record `divergent` flags of shape (chain, draw) matching its draws")
     div = np.asarray(div, dtype=bool).reshape(-1)
     x = z.reshape(-1, z.shape[2])
+    if getattr(run.kernel, "moves_when_divergent", False):
+        # divergent transitions are compared where they started, the others where they are
+        x = np.where(div[:, None], transition_starts(run).reshape(-1, z.shape[2]), x)
     n1 = int(div.sum())
     n2 = int(div.size - n1)
     dim = x.shape[1]
@@ -166,6 +169,38 @@ def divergence_ranking(run, *, max_pairs=50):
         raise ValueError("`run` has non-finite draws; cannot rank them")
     u, zs, p = mann_whitney(x[div], x[~div])
     return DivergenceRanking(run.names, n1, n2, u, zs, p, max_pairs=int(max_pairs))
+
+
+def transition_starts(run, *, scale="sampler"):
+    """Where each recorded transition started, shaped like the draws (chain, draw, dim).
+
+    A kernel that rejects every divergent transition (HMC and its fixed-length
+    relatives) stays where it started, so its draw is its start. The no-U-turn
+    sampler keeps the valid part of a tree whose newest subtree diverged and can
+    still move (``kernel.moves_when_divergent``): its transition ``t`` started at
+    draw ``t - 1``. The first kept draw's start is known only from its replay;
+    without one its own draw stands in.
+
+    Parameters
+    ----------
+    run : Run
+    scale : {"sampler", "user"}
+        ``run.unconstrained`` or ``run.draws``.
+    """
+    if scale not in ("sampler", "user"):
+        raise ValueError(f'`scale` must be "sampler" or "user", got {scale!r}')
+    z = np.asarray(run.unconstrained if scale == "sampler" else run.draws, dtype=float)
+    if not getattr(run.kernel, "moves_when_divergent", False) or z.ndim != 3 or z.shape[1] == 0:
+        return z
+    starts = np.empty_like(z)
+    starts[:, 1:] = z[:, :-1]
+    starts[:, 0] = z[:, 0]
+    first = getattr(run, "first_draw", 0)
+    for item in run.divergences:
+        if item[1] == first and 0 <= item[0] < z.shape[0]:
+            s = np.asarray(item[2].positions[0], dtype=float)
+            starts[item[0], 0] = s if scale == "sampler" else run.target.to_user(s[None])[0]
+    return starts
 
 
 def _average_ranks(x):

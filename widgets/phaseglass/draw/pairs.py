@@ -13,12 +13,23 @@ __all__ = ["draw_pair", "draw_pair_panels", "draw_pair_grid", "PairDrawing", "Pa
            "PairGridDrawing"]
 
 
-def _pooled(x, divergent, coords):
+def _pooled(x, divergent, coords, starts=None):
+    """(other draws, divergent transitions' starts) of ``coords``, chains pooled."""
     pts = x[:, :, list(coords)].reshape(-1, 2)
     if divergent is None:
         return pts, np.empty((0, 2))
     d = divergent.reshape(-1)
-    return pts[~d], pts[d]
+    at = pts if starts is None else starts[:, :, list(coords)].reshape(-1, 2)
+    return pts[~d], at[d]
+
+
+def _starts_of(draws):
+    """A Run whose kernel can move on a divergence (NUTS): its transitions' starts, user scale."""
+    if getattr(getattr(draws, "kernel", None), "moves_when_divergent", False):
+        from phaseglass.core.triage import transition_starts
+
+        return transition_starts(draws, scale="user")
+    return None
 
 
 @dataclass(repr=False, eq=False)
@@ -31,7 +42,9 @@ class PairDrawing(Drawing):
     points : Line2D
         Non-divergent draws of all chains pooled (small dots).
     divergent : Line2D
-        Draws whose transition diverged (``X`` markers); empty when none.
+        Where each divergent transition started (``X`` markers): its draw, or
+        for a kernel that can move on a divergence (NUTS) the draw before;
+        empty when none.
     coords : tuple of int
     """
 
@@ -44,7 +57,7 @@ class PairDrawing(Drawing):
         """Show new draws (and divergences) with the same two artists."""
         x, _, div_run = as_chain_draws(draws)
         div = check_divergent(divergent, x.shape[:2]) if divergent is not None else div_run
-        ok, bad = _pooled(x, div, self.coords)
+        ok, bad = _pooled(x, div, self.coords, _starts_of(draws))
         self.points.set_data(ok[:, 0], ok[:, 1])
         self.points.set_label(f"draws ({ok.shape[0]})")
         self.divergent.set_data(bad[:, 0], bad[:, 1])
@@ -83,7 +96,9 @@ def draw_pair(ax, draws, coords=(0, 1), *, names=None, divergent=None, markersiz
     ax.set_xlabel(names[coords[0]])
     ax.set_ylabel(names[coords[1]])
     d = PairDrawing(ax=ax, points=pts, divergent=div, coords=coords)
-    return d.update(x, divergent if divergent is not None else div_run)
+    # a Run goes on to update() whole: a NUTS run marks where divergent transitions started
+    return d.update(draws if hasattr(draws, "draws") else x,
+                    divergent if divergent is not None else div_run)
 
 
 @dataclass(repr=False, eq=False)
@@ -187,7 +202,8 @@ def draw_pair_panels(axes, draws, pairs, *, names=None, divergent=None, titles=N
                          f"{len(titles)}")
     panels, texts = [], []
     for k, (ax, pair) in enumerate(zip(axes, pairs)):
-        panel = draw_pair(ax, x, pair, names=names, divergent=div, markersize=markersize)
+        panel = draw_pair(ax, draws if hasattr(draws, "draws") else x, pair, names=names,
+                          divergent=div, markersize=markersize)
         i, j = panel.coords
         ax.xaxis.label.set_fontsize(fontsize)
         ax.yaxis.label.set_fontsize(fontsize)

@@ -15,7 +15,7 @@ from ..core.run import CAUTION, Run
 from ..core.sampling import Sampler
 from ..core.slices import choose_limits, resolve_coords
 from ..core.target import Target
-from ..core.triage import divergence_ranking
+from ..core.triage import divergence_ranking, transition_starts
 from ..draw import draw_energy_error, draw_log_density, draw_pair, draw_trajectory, legend
 from ..draw.pairs import draw_pair_panels
 from ..draw.style import key_handles, note
@@ -720,7 +720,7 @@ class DivergenceView(View):
             self._ring.set_data([], [])
             return
         c, t = self.divergences[self.selected].chain, self.divergences[self.selected].draw
-        xy = self._run.draws[c, t, list(self.coords)]
+        xy = transition_starts(self._run, scale="user")[c, t, list(self.coords)]  # where it began
         self._ring.set_data([xy[0]], [xy[1]])
 
     @guarded("pick")
