@@ -260,7 +260,7 @@ class ShiftGibbsView(View):
         conditionals are then numeric. Any argument of ShiftGibbsView may be
         given and wins over the run's values.
         """
-        from .trajectory_view import run_parts
+        from ._phase_space import run_parts
 
         target, kernel = run_parts(run, needs_step_size=False)
         args = {"starts_from": np.asarray(run.draws, dtype=float).reshape(-1, target.dim)}
