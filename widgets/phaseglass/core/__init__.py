@@ -5,6 +5,7 @@ Pure numpy/scipy; never imports matplotlib or ipywidgets, so it works from a pla
 
 from . import demos
 from .compare import KernelComparison, compare_kernels
+from .conditionals import NormalConditional
 from .diagnostics import autocorrelation, ebfmi, ess, mcse, rhat
 from .gibbs import Gibbs
 from .kernels import HMC, Kernel, PartialRefreshHMC, RandomWalk
@@ -24,7 +25,7 @@ from .uniforms import DriftingUniform, FreshUniform
 #: ``estimate_metric``) stay importable from their own modules.
 __all__ = [
     "Target", "GradientCheck", "Metric", "leapfrog", "Trajectory",
-    "Kernel", "HMC", "PartialRefreshHMC", "RandomWalk", "Gibbs", "NUTS",
+    "Kernel", "HMC", "PartialRefreshHMC", "RandomWalk", "Gibbs", "NormalConditional", "NUTS",
     "FreshUniform", "DriftingUniform", "kernel_from_settings",
     "Sampler", "sample", "auto_warmup", "Run", "Digest",
     "ess", "rhat", "mcse", "autocorrelation", "ebfmi", "demos",

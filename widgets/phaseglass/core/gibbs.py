@@ -483,8 +483,9 @@ class Gibbs(Kernel):
         are called once for all chains with their parameters stacked: the same
         numbers, bit for bit, as one call per chain. Building a frozen
         distribution still costs scipy ~0.4 ms per call (inside your function),
-        so an object with ``cdf``/``ppf`` on ``scipy.special`` is much faster
-        (``benchmarks/core.py --gibbs-only``). ``None`` builds each conditional
+        so for a normal or truncated-normal conditional return
+        ``pg.NormalConditional(mean, sd, low=, high=)`` instead: the same
+        numbers, built in microseconds (``benchmarks/core.py --gibbs-only``). ``None`` builds each conditional
         numerically from the target's log-density (see Notes).
     shift : None, "random" or float in [0, 1)
         ``None`` for ordinary Gibbs sampling, else the shift ``c`` of the driving
