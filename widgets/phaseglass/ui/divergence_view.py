@@ -15,7 +15,7 @@ from ..core.run import CAUTION, Run
 from ..core.sampling import Sampler
 from ..core.slices import choose_limits, resolve_coords
 from ..core.target import Target
-from ..core.triage import divergence_ranking, transition_starts
+from ..core.triage import divergence_ranking
 from ..draw import draw_energy_error, draw_log_density, draw_pair, draw_trajectory, legend
 from ..draw.pairs import draw_pair_panels
 from ..draw.style import key_handles, note
@@ -719,8 +719,8 @@ class DivergenceView(View):
         if self.selected < 0 or not self.divergences or self._run is None:
             self._ring.set_data([], [])
             return
-        c, t = self.divergences[self.selected].chain, self.divergences[self.selected].draw
-        xy = transition_starts(self._run, scale="user")[c, t, list(self.coords)]  # where it began
+        start = self.divergences[self.selected].trajectory.positions[0]  # where the transition began
+        xy = self.target.to_user(start[None])[0, list(self.coords)]
         self._ring.set_data([xy[0]], [xy[1]])
 
     @guarded("pick")
@@ -913,5 +913,6 @@ class _Kept:
         return iter((self.chain, self.draw, self.trajectory))
 
     def __getitem__(self, index):
-        return (self.chain, self.draw, self.trajectory)[index] if index not in (0, 1) else \
-            (self.chain, self.draw)[index]
+        if index in (0, 1, -3, -2):  # chain and draw without replaying
+            return (self.chain, self.draw, None)[index]
+        return (self.chain, self.draw, self.trajectory)[index]
