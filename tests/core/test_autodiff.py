@@ -4,7 +4,6 @@ JAX is an optional extra. These tests skip, with the reason, when it is missing,
 under CI (``CI=true``), where the test extra installs it and a missing JAX is a failure.
 """
 
-import os
 import sys
 import threading
 
@@ -17,14 +16,9 @@ from phaseglass.core.diagnostics import ess, mcse
 
 
 def _jax():
-    try:
-        import jax
-    except ImportError:
-        if os.environ.get("CI", "").lower() in ("true", "1"):
-            pytest.fail("JAX is missing under CI: the test extra installs it "
-                        "(pip install -e \".[test]\")")
-        pytest.skip("JAX is not installed (pip install \"phaseglass[jax]\")")
-    return jax
+    from conftest import optional_module  # tests/ is on pytest's pythonpath (pyproject.toml)
+
+    return optional_module("jax", "jax")
 
 
 @pytest.fixture
