@@ -1,9 +1,8 @@
 """Fixtures shared by every test folder: a demo target, a pixel check, a real Dask cluster."""
 
-import os
-
 import numpy as np
 import pytest
+from _optional import optional_module
 
 
 @pytest.fixture(scope="session")
@@ -25,23 +24,6 @@ def _blank_fraction(img):
 def blank_fraction():
     """``blank_fraction(rgb)``: share of the most common colour (1.0 is an empty picture)."""
     return _blank_fraction
-
-
-def optional_module(name, extra):
-    """Import ``name``; skip (with the install command) when missing, fail under CI.
-
-    The test extra installs every optional dependency, so under CI (``CI=true``) a
-    missing one is a broken install, not a reason to skip.
-    """
-    import importlib
-
-    try:
-        return importlib.import_module(name)
-    except ImportError:
-        if os.environ.get("CI", "").lower() in ("true", "1"):
-            pytest.fail(f"{name} is missing under CI: the test extra installs it "
-                        f"(pip install -e \".[test]\")")
-        pytest.skip(f"{name} is not installed (pip install \"phaseglass[{extra}]\")")
 
 
 @pytest.fixture(scope="session")

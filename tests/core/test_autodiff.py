@@ -16,7 +16,7 @@ from phaseglass.core.diagnostics import ess, mcse
 
 
 def _jax():
-    from conftest import optional_module  # tests/ is on pytest's pythonpath (pyproject.toml)
+    from _optional import optional_module  # tests/ is on pytest's pythonpath (pyproject.toml)
 
     return optional_module("jax", "jax")
 
