@@ -94,7 +94,7 @@ def test_progress_counts_finished_futures_and_stop_cancels_the_pending_ones():
     assert m.running
     assert "computing on HeldExecutor's workers" in m._readout.value
     held.finish(1)
-    assert wait_for(lambda: m.n_done == 1)
+    assert wait_for(lambda: m.n_done == 1 and m._progress.value == 1)  # the readout follows the cell
     assert m.n_done == 1 and m._progress.value == 1 and not m._stop_button.disabled
     m.stop()
     assert m.wait(timeout=60)
