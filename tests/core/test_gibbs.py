@@ -359,12 +359,12 @@ _FAMILY_PARAMETERS = {
 
 
 def test_every_batched_family_has_a_test_case():
-    assert set(_FAMILY_PARAMETERS) == set(pg.core.gibbs._BATCHED_FAMILIES)
+    assert set(_FAMILY_PARAMETERS) == set(pg.core.frozen.BATCHED_FAMILIES)
 
 
 @pytest.mark.parametrize("family", sorted(_FAMILY_PARAMETERS))
 def test_frozen_family_is_evaluated_for_all_chains_at_once_with_the_same_numbers(family):
-    from phaseglass.core.gibbs import _frozen_batch
+    from phaseglass.core.frozen import frozen_batch
 
     rng = np.random.default_rng(sorted(_FAMILY_PARAMETERS).index(family))
     dists = []
@@ -373,7 +373,7 @@ def test_frozen_family_is_evaluated_for_all_chains_at_once_with_the_same_numbers
         dists.append(getattr(scipy.stats, family)(*args, **kwds))
     q = rng.uniform(size=7)
     v = np.array([float(d.ppf(p)) for d, p in zip(dists, rng.uniform(size=7))])
-    batch = _frozen_batch(dists, q, v)
+    batch = frozen_batch(dists, q, v)
     assert batch is not None  # recognised: one call for all chains
     # bit for bit what the per-chain calls give (the path the draws took before batching)
     np.testing.assert_array_equal(batch[0], [float(d.ppf(p)) for d, p in zip(dists, q)])
@@ -388,10 +388,10 @@ def test_frozen_family_is_evaluated_for_all_chains_at_once_with_the_same_numbers
     lambda k: scipy.stats.gumbel_r(0.1 * k),  # a family not in the list
 ], ids=["mixed-families", "array-parameter", "positional-and-keyword", "discrete", "unlisted"])
 def test_frozen_distributions_that_cannot_be_batched_take_the_per_chain_path(make):
-    from phaseglass.core.gibbs import _frozen_batch
+    from phaseglass.core.frozen import frozen_batch
 
     dists = [make(k) for k in range(4)]
-    assert _frozen_batch(dists, np.full(4, 0.3), np.zeros(4)) is None
+    assert frozen_batch(dists, np.full(4, 0.3), np.zeros(4)) is None
 
 
 @pytest.mark.parametrize("bounds", [None, list(zip(LO, HI))], ids=["plain", "declared-bounds"])
