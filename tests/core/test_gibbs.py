@@ -394,6 +394,100 @@ def test_frozen_distributions_that_cannot_be_batched_take_the_per_chain_path(mak
     assert frozen_batch(dists, np.full(4, 0.3), np.zeros(4)) is None
 
 
+@pytest.mark.parametrize("family", sorted(_FAMILY_PARAMETERS))
+def test_freeze_gives_scipys_frozen_distribution_with_the_same_numbers(family):
+    # reference: scipy.stats' own freezing, the object pg.freeze stands in for
+    from phaseglass.core.frozen import frozen_batch
+
+    rng = np.random.default_rng(100 + sorted(_FAMILY_PARAMETERS).index(family))
+    args, kwds = _FAMILY_PARAMETERS[family](rng)
+    ours = pg.freeze(getattr(scipy.stats, family), *args, **kwds)
+    theirs = getattr(scipy.stats, family)(*args, **kwds)
+    assert isinstance(ours, type(theirs))
+    q = rng.uniform(size=9)
+    x = theirs.ppf(rng.uniform(size=9))
+    for method, arg in (("ppf", q), ("cdf", x), ("logpdf", x), ("sf", x), ("isf", q)):
+        np.testing.assert_array_equal(getattr(ours, method)(arg), getattr(theirs, method)(arg))
+    np.testing.assert_array_equal(ours.support(), theirs.support())
+    np.testing.assert_array_equal(ours.stats("mv"), theirs.stats("mv"))
+    # the batched Gibbs path recognises it: one call for all chains, per-chain numbers
+    dists = [pg.freeze(getattr(scipy.stats, family), *a, **k)
+             for a, k in (_FAMILY_PARAMETERS[family](rng) for _ in range(5))]
+    v = np.array([float(d.ppf(0.4)) for d in dists])
+    batch = frozen_batch(dists, q[:5], v)
+    assert batch is not None
+    np.testing.assert_array_equal(batch[0], [float(d.ppf(p)) for d, p in zip(dists, q[:5])])
+    np.testing.assert_array_equal(batch[1], [float(d.cdf(t)) for d, t in zip(dists, v)])
+
+
+def test_freeze_keeps_its_own_random_state_and_pickles():
+    import pickle
+
+    d = pg.freeze(scipy.stats.norm, 1.0, 2.0)
+    family_state = scipy.stats.norm.random_state
+    d.random_state = 5
+    assert scipy.stats.norm.random_state is family_state  # the family is shared, its state is not
+    # reference: scipy's frozen normal drawing from a RandomState seeded alike
+    np.testing.assert_array_equal(d.rvs(3), scipy.stats.norm(1.0, 2.0).rvs(3, random_state=5))
+    back = pickle.loads(pickle.dumps(pg.freeze(scipy.stats.gamma, 2.5, scale=0.5)))
+    assert back.ppf(0.3) == scipy.stats.gamma(2.5, scale=0.5).ppf(0.3)
+
+
+@pytest.mark.parametrize("family, match", [
+    (scipy.stats.poisson, "got poisson_gen: a discrete family"),
+    (scipy.stats.norm(0.0, 1.0), "an already frozen distribution"),
+    (type(scipy.stats.norm), "got type: a class"),
+    ("norm", "got str: pass the family object"),
+])
+def test_freeze_refuses_what_is_not_a_continuous_family(family, match):
+    with pytest.raises(TypeError, match=r"`family` must be a scipy.stats continuous distribution "
+                                        r"family such as scipy.stats.norm, .*" + match):
+        pg.freeze(family, 1.0)
+
+
+def test_frozen_batch_skips_scipys_argument_handling_only_where_every_value_is_valid(monkeypatch):
+    from phaseglass.core.frozen import frozen_batch
+
+    dists = [scipy.stats.gamma(a, scale=s) for a, s in ((0.7, 1.0), (2.5, 0.3), (4.0, 2.0))]
+    q, v = np.array([0.1, 0.5, 0.97]), np.array([0.2, 1.0, 9.0])
+    expected = ([float(d.ppf(p)) for d, p in zip(dists, q)], [float(d.cdf(x)) for d, x in zip(dists, v)])
+
+    def refuse(*args, **kwds):
+        raise AssertionError("scipy's public method was called")
+
+    with monkeypatch.context() as m:
+        m.setattr(type(scipy.stats.gamma), "ppf", refuse)
+        m.setattr(type(scipy.stats.gamma), "cdf", refuse)
+        batch = frozen_batch(dists, q, v)
+    np.testing.assert_array_equal(batch[0], expected[0])
+    np.testing.assert_array_equal(batch[1], expected[1])
+    # a value outside the support goes through scipy's public cdf, which answers 0 there
+    v[0] = -1.0
+    batch = frozen_batch(dists, q, v)
+    np.testing.assert_array_equal(batch[1], [0.0] + expected[1][1:])
+
+
+@pytest.mark.parametrize("vectorized", [False, True], ids=["per-chain", "vectorized"])
+def test_gibbs_with_freeze_gives_the_draws_of_scipys_own_frozen_conditionals(vectorized):
+    class PerChain:  # scipy's frozen distribution behind a plain object: its public methods, per chain
+        def __init__(self, dist):
+            self.cdf, self.ppf = dist.cdf, dist.ppf
+
+    def frozen(make):
+        def conditionals(i, x):
+            loc, scale = conditional_normal(i, x)
+            return make(scipy.stats.truncnorm, (LO[i] - loc) / scale, (HI[i] - loc) / scale,
+                        loc=loc, scale=scale)
+        return conditionals
+
+    kw = dict(initial=STARTS, n_draws=6, n_chains=4, warmup=0, seed=26)
+    a = pg.sample(box_target(), pg.Gibbs(frozen(pg.freeze), shift=GOLDEN, vectorized=vectorized), **kw)
+    scipy_own = frozen(lambda family, *args, **kwds: PerChain(family(*args, **kwds)))
+    b = pg.sample(box_target(), pg.Gibbs(scipy_own, shift=GOLDEN), **kw)
+    np.testing.assert_array_equal(a.draws, b.draws)
+    np.testing.assert_array_equal(a.u, b.u)
+
+
 @pytest.mark.parametrize("bounds", [None, list(zip(LO, HI))], ids=["plain", "declared-bounds"])
 def test_batched_frozen_conditionals_give_the_per_chain_draws_exactly(bounds):
     class PerChain:  # the same frozen distribution behind a plain object: not recognised

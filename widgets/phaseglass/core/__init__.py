@@ -7,6 +7,7 @@ from . import demos
 from .compare import KernelComparison, compare_kernels
 from .conditionals import NormalConditional
 from .diagnostics import autocorrelation, ebfmi, ess, mcse, rhat
+from .frozen import freeze
 from .gibbs import Gibbs
 from .kernels import HMC, Kernel, PartialRefreshHMC, RandomWalk
 from .leapfrog import Trajectory, leapfrog
@@ -25,7 +26,7 @@ from .uniforms import DriftingUniform, FreshUniform
 #: ``estimate_metric``) stay importable from their own modules.
 __all__ = [
     "Target", "GradientCheck", "Metric", "leapfrog", "Trajectory",
-    "Kernel", "HMC", "PartialRefreshHMC", "RandomWalk", "Gibbs", "NormalConditional", "NUTS",
+    "Kernel", "HMC", "PartialRefreshHMC", "RandomWalk", "Gibbs", "NormalConditional", "freeze", "NUTS",
     "FreshUniform", "DriftingUniform", "kernel_from_settings",
     "Sampler", "sample", "auto_warmup", "Run", "Digest",
     "ess", "rhat", "mcse", "autocorrelation", "ebfmi", "demos",

@@ -20,7 +20,7 @@ import warnings
 import numpy as np
 
 from ._validate import check_int, user_stacklevel
-from .frozen import frozen_batch
+from .frozen import frozen_batch, frozen_values
 from .kernels import Kernel, _Knob
 
 __all__ = ["Gibbs"]
@@ -481,12 +481,16 @@ class Gibbs(Kernel):
         gamma, inverse gamma, beta, log-normal, Student t, Cauchy, Laplace,
         logistic, half-normal, chi-squared, Weibull), its ``ppf`` and ``cdf``
         are called once for all chains with their parameters stacked: the same
-        numbers, bit for bit, as one call per chain. Building a frozen
-        distribution still costs scipy ~0.4 ms per call (inside your function),
-        so for a normal or truncated-normal conditional return
-        ``pg.NormalConditional(mean, sd, low=, high=)`` instead: the same
-        numbers, built in microseconds (``benchmarks/core.py --gibbs-only``). ``None`` builds each conditional
-        numerically from the target's log-density (see Notes).
+        numbers, bit for bit, as one call per chain. For speed, build it with
+        ``pg.freeze(scipy.stats.norm, loc, scale)`` rather than
+        ``scipy.stats.norm(loc, scale)``: the same frozen distribution, without
+        the ~0.4 ms scipy spends setting up each one inside your function
+        (more than a whole sweep costs otherwise; ``benchmarks/core.py
+        --gibbs-only``). For a truncated normal, scipy's own ``truncnorm``
+        functions are slow too; ``pg.NormalConditional(mean, sd, low=, high=)``
+        gives the same numbers to round-off in a fraction of the time. ``None``
+        builds each conditional numerically from the target's log-density (see
+        Notes).
     shift : None, "random" or float in [0, 1)
         ``None`` for ordinary Gibbs sampling, else the shift ``c`` of the driving
         uniforms. ``shift=0`` is allowed so the failure it causes can be shown:
@@ -747,6 +751,9 @@ class Gibbs(Kernel):
         n = len(x)
         dist = self._user_conditional(i, None, x.T, context=(
             f"all {n} chains at once, x of shape {(x.shape[1], n)}: vectorized=True"))
+        fast = frozen_values(dist, u, x[:, i])  # a frozen scipy.stats family: one call each
+        if fast is not None:
+            return np.stack(fast)
         out = np.empty((2, n))
         for row, (what, arg) in enumerate((("ppf", u), ("cdf", x[:, i]))):
             try:
