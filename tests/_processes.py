@@ -18,3 +18,27 @@ def alive(pid):
             return f.read().rsplit(")", 1)[1].split()[0] != "Z"
     except OSError:
         return True
+
+
+def wait_for(condition, timeout=120.0):
+    """Poll ``condition`` until it holds (True) or ``timeout`` seconds pass (False)."""
+    import time
+
+    deadline = time.monotonic() + timeout
+    while not condition():
+        if time.monotonic() > deadline:
+            return False
+        time.sleep(0.02)
+    return True
+
+
+def end_pool(pool):
+    """Shut a ProcessPoolExecutor down without waiting, ending its workers.
+
+    For tests whose failure would leave a worker busy for a long time (a run that
+    did not stop): waiting for it would hang the suite.
+    """
+    processes = list((pool._processes or {}).values())
+    pool.shutdown(wait=False, cancel_futures=True)
+    for proc in processes:
+        proc.terminate()

@@ -7,12 +7,14 @@ tests/conftest.py (Dask is an optional extra: skipped without it, except under C
 """
 
 import concurrent.futures
+import os
 import time
 
 import numpy as np
 import pytest
 
 import phaseglass as pg
+from _processes import end_pool, wait_for
 from phaseglass.ui.tuning_map import TuningMap
 
 # a 2 x 2 map of short runs: CI has two cores
@@ -59,15 +61,6 @@ def test_partial_refresh_slices_and_a_mass_matrix_travel_too():
     for q, v in serial.values_all.items():
         np.testing.assert_array_equal(remote.values_all[q], v, err_msg=q)
 
-
-def wait_for(condition, timeout=120.0):
-    """Poll ``condition`` until it holds (True) or ``timeout`` seconds pass (False)."""
-    deadline = time.monotonic() + timeout
-    while not condition():
-        if time.monotonic() > deadline:
-            return False
-        time.sleep(0.02)
-    return True
 
 
 class HeldExecutor(concurrent.futures.Executor):
@@ -165,3 +158,43 @@ def test_a_new_pass_on_dask_is_not_cancelled_with_the_abandoned_one(dask_client)
     assert m.n_done == 4
     for q, v in serial.values_all.items():
         np.testing.assert_array_equal(m.values_all[q], v, err_msg=q)
+
+
+def test_stop_ends_a_cell_already_running_on_a_worker(tmp_path):
+    # one cell of 10**7 transitions (about an hour); its target writes a byte per evaluation
+    # made on a worker, so the file's size shows whether the cell still runs after Stop
+    path, here = tmp_path / "worker-calls", os.getpid()
+
+    def log_density(x):
+        if os.getpid() != here:
+            with open(path, "a") as f:
+                f.write(".")
+        return -0.5 * float(x @ x)
+
+    def grad(x):
+        if os.getpid() != here:
+            with open(path, "a") as f:
+                f.write(".")
+        return -x
+
+    def size():
+        return path.stat().st_size if path.exists() else 0
+
+    def stopped_growing():
+        before = size()
+        time.sleep(0.5)
+        return size() == before
+
+    pool = concurrent.futures.ProcessPoolExecutor(1)
+    try:
+        m = TuningMap(pg.Target(log_density, grad, dim=2), executor=pool,
+                      **dict(MAP, step_sizes=[0.3], n_steps=[2], n_draws=10 ** 7, n_chains=1))
+        m.compute()
+        assert wait_for(lambda: size() > 200), "the cell never started on the worker"
+        m.stop()
+        assert m.wait(timeout=60)
+        assert wait_for(stopped_growing), "the cell still runs on its worker"
+        assert size() < 10 ** 5 and m.n_done == 0  # stopped long before its end, left blank
+        assert m._progress.bar_style == "warning"
+    finally:
+        end_pool(pool)  # a cell that failed to stop would hold the worker for an hour

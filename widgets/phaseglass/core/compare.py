@@ -22,6 +22,7 @@ import numpy as np
 from ._validate import RENAMED, check_int, warn_renamed
 from .efficiency import evaluation_cost, ess_per_gradient, mean_acceptance
 from .kernels import Kernel
+from .stop_signal import CellAborted, StopSignal, stopping_when
 from .streams import seed_sequence
 from .target import Target
 
@@ -122,7 +123,14 @@ def run_packed(target_blob, call_blob, token=None):
     """
     target = pickle.loads(target_blob)
     fn, args, kwargs = pickle.loads(call_blob)
-    return fn(target, *args, **kwargs)
+    try:
+        return fn(target, *args, **kwargs)
+    except Exception as exc:
+        # the exception travels back pickled: a partial Run holds the target, whose
+        # functions plain pickle (ProcessPoolExecutor's) may not carry
+        if exc.__dict__.pop("partial_run", None) is not None and hasattr(exc, "add_note"):
+            exc.add_note("phaseglass: the partial Run stayed on the worker")
+        raise
 
 
 def submit_packed(executor, target_blob, fn, args=(), kwargs=None, name="kernel"):
@@ -138,10 +146,6 @@ def submit_packed(executor, target_blob, fn, args=(), kwargs=None, name="kernel"
 
 
 # ------------------------------------------------------------ fixed-knob runs
-
-class CellAborted(Exception):
-    """A run was abandoned because ``should_abort`` said so."""
-
 
 def run_fixed(target, kernel, *, n_draws, n_chains, burn_in=0, seed=0, initial=None,
               should_abort=None):
@@ -197,8 +201,12 @@ def run_fixed_portable(target, kernel, **kwargs):
 
 # --------------------------------------------------------------------- a cell
 
-def _measure(target, kernel, entropy, spawn_key, n_draws, n_chains, options, initial):
-    """One cell: a sampling run and its numbers, ``{quantity: float}``."""
+def _measure(target, kernel, entropy, spawn_key, n_draws, n_chains, options, initial, stop=None):
+    """One cell: a sampling run and its numbers, ``{quantity: float}``.
+
+    ``stop`` (a ``StopSignal.watch``) is polled between transitions: once it is True
+    the run gives up with ``CellAborted`` (its comparison has failed or was interrupted).
+    """
     from .diagnostics import rhat
     from .sampling import sample
 
@@ -207,7 +215,8 @@ def _measure(target, kernel, entropy, spawn_key, n_draws, n_chains, options, ini
     with warnings.catch_warnings():
         # sample() turns Ctrl-C into a shortened Run and a warning; a comparison stops instead
         warnings.filterwarnings("ignore", message="sampling interrupted")
-        run = sample(target, kernel, initial, n_draws, n_chains=n_chains, seed=seed, **options)
+        with stopping_when(stop):
+            run = sample(target, kernel, initial, n_draws, n_chains=n_chains, seed=seed, **options)
     if run.stopped == "interrupted":
         raise KeyboardInterrupt
     knob = run.kernel.tuned_knob
@@ -429,6 +438,10 @@ def compare_kernels(target, kernels, *, n_seeds=4, seed=0, n_draws=500, n_chains
         and closures travel; a target that cannot be pickled is refused before
         anything runs. The numbers are identical cell for cell to a run with
         ``executor=None`` (given the same numerical libraries on the workers).
+        When a cell fails or Ctrl-C interrupts the comparison, cells not yet
+        started are cancelled and running ones stop within about 0.1 s plus
+        one transition (``core/stop_signal.py``; on a non-Dask executor whose
+        workers are on other machines, running cells finish unseen).
 
     Returns
     -------
@@ -510,9 +523,10 @@ def _run_cells(target, jobs, executor, entries):
         return out
     blob = pack(target, "target")
     futures = {}
+    stop = StopSignal(executor)
     try:
         for key, args in jobs:
-            futures[submit_packed(executor, blob, _measure, args,
+            futures[submit_packed(executor, blob, _measure, args + (stop.watch,),
                                   name=f"kernels ({entries[key[0]][0]!r})")] = key
         out = {}
         for fut in concurrent.futures.as_completed(futures):
@@ -522,6 +536,8 @@ def _run_cells(target, jobs, executor, entries):
             except Exception as exc:
                 raise _note(exc, entries, *key)
         return out
-    finally:  # an error or Ctrl-C: what has not started is not wanted any more
+    finally:  # an error or Ctrl-C: what has not started is not wanted, what runs stops
         for fut in futures:
             fut.cancel()
+        if not all(fut.done() for fut in futures):
+            stop.set()

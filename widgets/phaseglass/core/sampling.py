@@ -16,6 +16,7 @@ from .kernels import ChainState, Kernel
 from .leapfrog import integrate, one_chain, trajectory_from
 from .run import Run
 from .streams import Streams
+from .stop_signal import CellAborted, check_stop
 from .target import Target
 
 __all__ = ["Sampler", "sample", "auto_warmup", "DivergenceReplay"]
@@ -263,6 +264,7 @@ class Sampler:
         return info
 
     def _one(self, record):
+        check_stop()  # a run on an executor's worker whose results are no longer wanted
         state = self.state
         start = state.position
         info = self.kernel.transition(self.target, state, self.streams, record=record)
@@ -587,6 +589,8 @@ def sample(target, kernel, initial=None, n_draws=1000, *, n_chains=4, warmup="au
         warnings.warn(_stopped_message(run, sampler, warmup, history, n_draws, "interrupted"),
                       UserWarning, stacklevel=2)
         return run
+    except CellAborted:  # nobody waits for this run any more (see core/stop_signal.py)
+        raise
     except Exception as exc:  # user code failed: keep what is finished and say where
         run = _partial_run(sampler, warmup, history, n_draws,
                            f"{type(exc).__name__} in the user's code")

@@ -19,6 +19,7 @@ from ..core.metric import Metric
 from ..core.nuts import MAX_DEPTH_LIMIT, NUTS
 from ..core.registry import KNOB_LABELS, kernel_kind
 from ..core.run import CAUTION
+from ..core.stop_signal import StopSignal
 from ..draw import draw_knob_grid
 from ._base import View, check_range, check_target, guarded, number, plural
 from ._shared import pilot
@@ -187,9 +188,11 @@ class TuningMap(View):
     the same numbers as computed here. The target travels to the workers
     pickled with cloudpickle (when installed; lambdas and closures travel too);
     one that cannot be pickled is refused when the map is built. Stop cancels
-    the cells not yet started; a cell already running on a worker cannot be
-    interrupted there: it finishes on its worker and its result is discarded
-    (the cell stays blank, as here).
+    the cells not yet started, and a cell already running on a worker stops
+    there within about 0.1 s plus one transition (the cell stays blank, as
+    here). On a Dask executor the stop request travels through the scheduler;
+    on any other, through a flag file, so a worker on another machine does not
+    see it and finishes its cell, whose result is then discarded.
 
     Parameters
     ----------
@@ -595,8 +598,10 @@ class TuningMap(View):
     def stop(self):
         """Stop the background pass within one transition; unfinished cells stay NaN.
 
-        With an ``executor``: cells not yet started are cancelled; a cell running on
-        a worker finishes there (it cannot be interrupted) and its result is ignored.
+        With an ``executor``: cells not yet started are cancelled, and a cell running
+        on a worker stops there within about 0.1 s plus one transition
+        (``core/stop_signal.py``; on a non-Dask executor whose workers are on other
+        machines it finishes unseen and its result is ignored).
         """
         job = self._job
         if job is not None:
@@ -672,6 +677,7 @@ class TuningMap(View):
         """
         c = job.config
         futures = {}
+        stop = StopSignal(self.executor)
         try:
             for k, i, j in job.cells:
                 if job.stop.is_set() or job.abort.is_set():
@@ -680,7 +686,7 @@ class TuningMap(View):
                     self.executor, self._target_blob, run_fixed_portable,
                     (self._cell_kernel(c, k, i, j),),
                     {"n_draws": c["n_draws"], "n_chains": c["n_chains"], "burn_in": c["burn_in"],
-                     "seed": c["seed"], "initial": initial})
+                     "seed": c["seed"], "initial": initial, "should_abort": stop.watch})
                 futures[fut] = (k, i, j)
             pending = set(futures)
             last_draw = time.perf_counter()
@@ -701,10 +707,12 @@ class TuningMap(View):
                     self._refresh(draw=True)
                     last_draw = time.perf_counter()
         finally:
-            # Stop, a settings change or an error: cells not started are not wanted; a
-            # running one cannot be interrupted on its worker and its result is ignored
+            # Stop, a settings change or an error: cells not started are not wanted, and
+            # running ones are asked to stop (their results would be ignored anyway)
             for fut in futures:
                 fut.cancel()
+            if not all(fut.done() for fut in futures):
+                stop.set()
 
     def _store_cell(self, job, k, i, j, out, error):
         c = job.config
