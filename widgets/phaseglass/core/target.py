@@ -446,15 +446,24 @@ class Target:
                     )
             return out
         out = np.empty(n)
-        for k in range(n):
-            v = real_values("log_density", self._user_logp(x[k]))
-            if v.size != 1:
-                raise ValueError(
-                    f"`log_density` must return a scalar for input of shape ({self.dim},), "
-                    f"got shape {v.shape}; pass vectorized=True if it takes a batch"
-                )
-            out[k] = v.reshape(())
+        f = self._user_logp
+        for k, point in enumerate(x):
+            v = f(point)
+            if type(v) is float or type(v) is np.float64:  # the common answer: nothing to check
+                out[k] = v
+            else:
+                out[k] = self._logp_scalar(v)
         return out
+
+    def _logp_scalar(self, value):
+        """One point's log-density from a non-vectorized ``log_density``, checked: a float."""
+        v = real_values("log_density", value)
+        if v.size != 1:
+            raise ValueError(
+                f"`log_density` must return a scalar for input of shape ({self.dim},), "
+                f"got shape {v.shape}; pass vectorized=True if it takes a batch"
+            )
+        return v.reshape(())
 
     def _check_grad_shape(self, g, n, single_call):
         want = (self.dim,) if single_call else (n, self.dim)
