@@ -30,6 +30,7 @@ DEFAULT_GRID_SIZE = 512
 
 _DROP = 25.0                            # nats below the maximum where the support search stops
 _BRACKET_POWERS = np.arange(-40.0, 41.0)  # bracketing offsets are scale * 2**j
+_BRACKET_STEPS = 2.0 ** _BRACKET_POWERS
 _FIRST_POWERS = slice(32, 49)           # j = -8..8, tried first: where nearly every search stops
 _EDGE_POINTS = 32                       # points per multisection pass at a truncation edge
 _EDGE_PASSES = 6                        # 33**6 ~ 1.3e9: the edge is found to ~8e-10 of its bracket
@@ -101,9 +102,10 @@ def _evaluate(target, position, i, values, *, allow_inf=False):
     pts[:, :, i] = values
     with np.errstate(all="ignore"):
         lp = np.asarray(target.log_density(pts.reshape(m * k, -1)), dtype=float).reshape(m, k)
-    lp = np.where(np.isnan(lp), -np.inf, lp)
-    if not allow_inf:
-        _no_inf(target, lp, pts, i)
+    if not np.isfinite(lp).all():  # else nothing to map or refuse
+        lp = np.where(np.isnan(lp), -np.inf, lp)
+        if not allow_inf:
+            _no_inf(target, lp, pts, i)
     return lp
 
 
@@ -127,20 +129,21 @@ def _bracket_log_density(target, position, i, z0, offsets):
     its larger ones with -inf (never reached). Other rows are evaluated at every offset.
     """
     m, J = offsets.shape
-    w = np.arange(J)[_FIRST_POWERS]
-    lpw = _evaluate(target, position, i, np.concatenate(
-        [z0[:, None], z0[:, None] - offsets[:, w], z0[:, None] + offsets[:, w]], axis=1),
-        allow_inf=True)
+    a, b = _FIRST_POWERS.start, _FIRST_POWERS.stop
+    values = np.empty((m, 1 + 2 * (b - a)))
+    values[:, 0] = z0
+    np.subtract(z0[:, None], offsets[:, a:b], out=values[:, 1:1 + b - a])
+    np.add(z0[:, None], offsets[:, a:b], out=values[:, 1 + b - a:])
+    lpw = _evaluate(target, position, i, values, allow_inf=True)
     lp0 = lpw[:, 0]
-    lp = np.full((m, 1 + 2 * J), -np.inf)
+    lp = np.empty((m, 1 + 2 * J))
     lp[:, 0] = lp0
-    redo = np.zeros(m, dtype=bool)
-    for side in (0, 1):
-        side_lp = lpw[:, 1 + side * len(w):1 + (side + 1) * len(w)]
-        j, found = _first_stop(side_lp, lp0)
-        redo |= ~found | (j == 0)
-        lp[:, 1 + side * J:1 + side * J + w[0]] = lp0[:, None]
-        lp[:, 1 + side * J + w[0]:1 + side * J + w[-1] + 1] = side_lp
+    sides = lp[:, 1:].reshape(m, 2, J)  # a view: (row, side, offset)
+    sides[:, :, :a] = lp0[:, None, None]
+    sides[:, :, a:b] = lpw[:, 1:].reshape(m, 2, b - a)
+    sides[:, :, b:] = -np.inf
+    j, found = _first_stop(lpw[:, 1:].reshape(2 * m, b - a), np.repeat(lp0, 2))
+    redo = np.any((~found | (j == 0)).reshape(m, 2), axis=1)
     redo &= np.isfinite(lp0)  # a non-finite start is reported by the caller
     if redo.any():
         r = np.flatnonzero(redo)
@@ -157,7 +160,7 @@ def _first_stop(lp, lp0):
     (index (m,), found (m,)).
     """
     running = np.maximum(np.maximum.accumulate(lp, axis=1), lp0[:, None])
-    stop = ~(lp >= running - _DROP)
+    stop = lp < running - _DROP  # never nan: _evaluate maps nan to -inf
     return np.argmax(stop, axis=1), stop.any(axis=1)
 
 
@@ -167,17 +170,20 @@ def _find_edges(target, position, i, z0, inner, outer, sign):
     Returns the outermost offset found with a finite log-density (within ~1e-9 of
     ``outer - inner`` of the edge), for rows (m,) moving in direction ``sign``.
     """
-    t = np.linspace(0.0, 1.0, _EDGE_POINTS + 2)[1:-1]
+    t = _unit_steps(_EDGE_POINTS + 2)[1:-1]
+    m = len(inner)
+    rows = np.arange(m)
+    ext = np.empty((m, _EDGE_POINTS + 2))  # inner, the offsets tried, outer
+    bad = np.empty((m, _EDGE_POINTS + 1), dtype=bool)
+    bad[:, -1] = True  # the first bad point is then ``outer`` when every point tried is finite
     for _ in range(_EDGE_PASSES):
-        offs = inner[:, None] + (outer - inner)[:, None] * t[None, :]
+        ext[:, 0], ext[:, -1] = inner, outer
+        offs = ext[:, 1:-1]
+        np.add(inner[:, None], (outer - inner)[:, None] * t, out=offs)
         lp = _evaluate(target, position, i, z0[:, None] + sign[:, None] * offs)
-        bad = ~np.isfinite(lp)
-        first_bad = np.where(bad.any(axis=1), np.argmax(bad, axis=1), _EDGE_POINTS)
-        rows = np.arange(len(inner))
-        new_inner = np.where(first_bad > 0, offs[rows, np.maximum(first_bad - 1, 0)], inner)
-        new_outer = np.where(first_bad < _EDGE_POINTS,
-                             offs[rows, np.minimum(first_bad, _EDGE_POINTS - 1)], outer)
-        inner, outer = new_inner, new_outer
+        np.logical_not(np.isfinite(lp), out=bad[:, :-1])
+        first_bad = np.argmax(bad, axis=1)
+        inner, outer = ext[rows, first_bad], ext[rows, first_bad + 1]
     return inner
 
 
@@ -192,41 +198,65 @@ def _adapted_nodes(nodes, logp, count):
     rest stay evenly spread so no stretch is left without nodes.
     """
     n, g = nodes.shape
-    h = np.diff(nodes, axis=1)
+    h = nodes[:, 1:] - nodes[:, :-1]
     l = logp - np.max(logp, axis=1, keepdims=True)
     finite = np.isfinite(l)
-    lf = np.where(finite, l, 0.0)
-    slope = np.diff(lf, axis=1) / h
-    curv = np.zeros((n, g))
-    curv[:, 1:-1] = np.abs(np.diff(slope, axis=1)) / (0.5 * (h[:, 1:] + h[:, :-1]))
+    all_finite = finite.all()
+    lf = l if all_finite else np.where(finite, l, 0.0)
+    slope = (lf[:, 1:] - lf[:, :-1]) / h
+    curv = np.empty((n, g))
+    np.divide(np.abs(slope[:, 1:] - slope[:, :-1]), 0.5 * (h[:, 1:] + h[:, :-1]), out=curv[:, 1:-1])
     curv[:, 0], curv[:, -1] = curv[:, 1], curv[:, -2]
-    ok = finite[:, 1:] & finite[:, :-1]
-    dens = np.where(ok, np.exp(np.maximum(lf[:, 1:], lf[:, :-1])), 0.0)  # upper bound on the segment
-    seg_curv = np.where(ok, np.maximum(curv[:, 1:], curv[:, :-1]), 0.0)
-    m = np.cbrt(dens * seg_curv)
+    # density (an upper bound on the segment) times curvature; 0 where an end is not finite
+    m = np.exp(np.maximum(lf[:, 1:], lf[:, :-1])) * np.maximum(curv[:, 1:], curv[:, :-1])
+    if not all_finite:
+        m[~(finite[:, 1:] & finite[:, :-1])] = 0.0
+    m = np.cbrt(m)
     mass = np.sum(m * h, axis=1, keepdims=True)
     width = nodes[:, -1:] - nodes[:, :1]
-    rho = np.where(mass > 0, (1.0 - _UNIFORM_SHARE) * m / np.where(mass > 0, mass, 1.0), 0.0)
-    rho = rho + np.where(mass > 0, _UNIFORM_SHARE, 1.0) / width
-    q = np.concatenate([np.zeros((n, 1)), np.cumsum(rho * h, axis=1)], axis=1)
+    if np.all(mass > 0):
+        rho = (1.0 - _UNIFORM_SHARE) * m / mass + _UNIFORM_SHARE / width
+    else:
+        rho = np.where(mass > 0, (1.0 - _UNIFORM_SHARE) * m / np.where(mass > 0, mass, 1.0), 0.0)
+        rho = rho + np.where(mass > 0, _UNIFORM_SHARE, 1.0) / width
+    q = np.empty((n, g))
+    q[:, 0] = 0.0
+    np.cumsum(rho * h, axis=1, out=q[:, 1:])
     q /= q[:, -1:]
-    t = np.linspace(0.0, 1.0, count)
-    out = _interp_rows(t, q, nodes)
+    out = _interp_rows(_unit_steps(count), q, nodes)
     out[:, 0], out[:, -1] = nodes[:, 0], nodes[:, -1]
     return out
+
+
+_STEPS = {}
+
+
+def _unit_steps(count):
+    """``np.linspace(0, 1, count)``, made once per ``count`` (read-only)."""
+    t = _STEPS.get(count)
+    if t is None:
+        t = _STEPS[count] = np.linspace(0.0, 1.0, count)
+        t.flags.writeable = False
+    return t
 
 
 def _interp_rows(t, xp, fp):
     """``np.interp(t, xp[k], fp[k])`` for every row ``k`` at once; rows of ``xp`` rise in [0, 1]."""
     n, g = xp.shape
-    shift = 2.0 * np.arange(n)[:, None]  # rows apart, so one sorted search serves them all
-    j = np.searchsorted((xp + shift).ravel(), (t[None, :] + shift).ravel(), side="right")
-    j = np.clip(j.reshape(n, -1) - 1 - g * np.arange(n)[:, None], 0, g - 2)
-    x0, x1 = np.take_along_axis(xp, j, 1), np.take_along_axis(xp, j + 1, 1)
-    f0, f1 = np.take_along_axis(fp, j, 1), np.take_along_axis(fp, j + 1, 1)
+    row = np.arange(n)[:, None]
+    shift = 2.0 * row  # rows apart, so one sorted search serves them all
+    j = np.searchsorted((xp + shift).ravel(), (t + shift).ravel(), side="right").reshape(n, -1)
+    first = g * row  # j - 1 is a flat index: keep it within its row's segments
+    j = np.minimum(np.maximum(j - 1, first), first + (g - 2))
+    xf, ff = xp.ravel(), fp.ravel()
+    x0, x1 = xf[j], xf[j + 1]
+    f0 = ff[j]
     with np.errstate(all="ignore"):
-        w = np.clip(np.where(x1 > x0, (t[None, :] - x0) / (x1 - x0), 1.0), 0.0, 1.0)
-    return f0 + w * (f1 - f0)
+        w = np.where(x1 > x0, (t - x0) / (x1 - x0), 1.0)
+    return f0 + np.minimum(np.maximum(w, 0.0), 1.0) * (ff[j + 1] - f0)
+
+
+_HALVES = 0.5 ** np.arange(_GRADED, 0, -1)  # 1/8, 1/4, 1/2: distances to the end, in its segment
 
 
 def _graded_ends(nodes):
@@ -235,11 +265,32 @@ def _graded_ends(nodes):
     At a truncation edge the log-density may fall like ``a log(distance)`` (a gamma at 0):
     geometric spacing resolves that at every scale, where even spacing cannot.
     """
-    h_lo = (nodes[:, 1] - nodes[:, 0])[:, None]
-    h_hi = (nodes[:, -1] - nodes[:, -2])[:, None]
-    halves = 0.5 ** np.arange(_GRADED, 0, -1)[None, :]  # 1/64 ... 1/2
-    return np.concatenate([nodes[:, :1], nodes[:, :1] + h_lo * halves, nodes[:, 1:-1],
-                           nodes[:, -1:] - h_hi * halves[:, ::-1], nodes[:, -1:]], axis=1)
+    n, g = nodes.shape
+    out = np.empty((n, g + 2 * _GRADED))
+    out[:, :1] = nodes[:, :1]
+    out[:, 1:1 + _GRADED] = nodes[:, :1] + (nodes[:, 1:2] - nodes[:, :1]) * _HALVES
+    out[:, 1 + _GRADED:_GRADED + g - 1] = nodes[:, 1:-1]
+    out[:, _GRADED + g - 1:-1] = nodes[:, -1:] - (nodes[:, -1:] - nodes[:, -2:-1]) * _HALVES[::-1]
+    out[:, -1:] = nodes[:, -1:]
+    return out
+
+
+_RUNS = {}
+
+
+def _runs(m):
+    """Nodes of the runs of four left and right of each of ``m - 1`` segments: (3, 2, m - 1).
+
+    ``[l, 0, j]`` is node ``l`` of run ``j-1..j+2`` of segment ``j``, ``[l, 1, j]`` of run
+    ``j..j+3`` (both shifted inwards at the ends), for ``l = 0, 1, 2``.
+    """
+    runs = _RUNS.get(m)
+    if runs is None:
+        seg = np.arange(m - 1)
+        k = np.stack([np.clip(seg - 1, 0, m - 4), np.clip(seg, 0, m - 4)])
+        runs = _RUNS[m] = np.stack([k, k + 1, k + 2])
+        runs.flags.writeable = False
+    return runs
 
 
 def _refined(nodes, logp, pieces):
@@ -253,35 +304,45 @@ def _refined(nodes, logp, pieces):
     smooth at this spacing: a power-law edge, a kink) or a node is not finite (-inf at an
     end of the segment stays -inf).
     """
+    # Work arrays keep the segments on the last axis, (n, [run,] piece, segment), so every
+    # broadcast loops over the long axis; the result is interleaved once at the end.
     n, m = nodes.shape
-    h = np.diff(nodes, axis=1)
-    t = h[:, :, None] * (np.arange(pieces) / pieces)  # (n, m - 1, pieces): offsets in the segment
-    finite = np.isfinite(logp)
-    y = np.where(finite, logp, 0.0)
-    # Newton's divided differences of every run of four nodes k..k+3
-    d1 = np.diff(y, axis=1) / h
-    d2 = np.diff(d1, axis=1) / (nodes[:, 2:] - nodes[:, :-2])
-    d3 = np.diff(d2, axis=1) / (nodes[:, 3:] - nodes[:, :-3])
-    ok = finite[:, :-3] & finite[:, 1:-2] & finite[:, 2:-1] & finite[:, 3:]
-    seg = np.arange(m - 1)
+    h = nodes[:, 1:] - nodes[:, :-1]
     start = nodes[:, :-1]
-
-    def cubic(k):  # the cubic through nodes k..k+3 (k per segment), on each segment's pieces
-        def dx(l):
-            return (start - nodes[:, k + l])[:, :, None] + t
-        return y[:, k, None] + dx(0) * (d1[:, k, None] + dx(1) * (
-            d2[:, k, None] + dx(2) * d3[:, k, None]))
-
-    left, right = np.clip(seg - 1, 0, m - 4), np.clip(seg, 0, m - 4)
-    la, lb = logp[:, :-1, None], logp[:, 1:, None]
+    t = h[:, None, :] * (np.arange(pieces) / pieces)[:, None]  # (n, pieces, m - 1): offsets
+    finite = np.isfinite(logp)
+    all_finite = finite.all()
+    y = logp if all_finite else np.where(finite, logp, 0.0)
+    # Newton's divided differences of every run of four nodes k..k+3
+    d1 = (y[:, 1:] - y[:, :-1]) / h
+    d2 = (d1[:, 1:] - d1[:, :-1]) / (nodes[:, 2:] - nodes[:, :-2])
+    d3 = (d2[:, 1:] - d2[:, :-1]) / (nodes[:, 3:] - nodes[:, :-3])
+    runs = _runs(m)
+    k = runs[0]
+    # offsets of each segment's pieces from node l of its left and right runs: (n, 2, pieces, m - 1)
+    gap = (start[:, None, None, :] - nodes.take(runs, axis=1))[:, :, :, None, :]
+    tt = t[:, None]
+    la, lb = logp[:, None, :-1], logp[:, None, 1:]
     with np.errstate(all="ignore"):
-        c_left, c_right = cubic(left), cubic(right)
-        line = np.where(np.isfinite(la) & np.isfinite(lb), la + (lb - la) * (t / h[:, :, None]), -np.inf)
+        # the left and right cubics of every segment at once (axis 1), in Newton form
+        c = y.take(k, axis=1)[:, :, None] + (gap[:, 0] + tt) * (
+            d1.take(k, axis=1)[:, :, None] + (gap[:, 1] + tt) * (
+                d2.take(k, axis=1)[:, :, None] + (gap[:, 2] + tt) * d3.take(k, axis=1)[:, :, None]))
+        c_left, c_right = c[:, 0], c[:, 1]
         mid = 0.5 * (c_left + c_right)
-        smooth = (ok[:, left] & ok[:, right])[:, :, None] & (np.abs(c_left - c_right) <= np.abs(mid - line))
-    out = np.where(smooth, mid, line)
-    return (np.concatenate([(start[:, :, None] + t).reshape(n, -1), nodes[:, -1:]], axis=1),
-            np.concatenate([out.reshape(n, -1), logp[:, -1:]], axis=1))
+        line = la + (lb - la) * (t / h[:, None, :])
+        if not all_finite:
+            line = np.where(np.isfinite(la) & np.isfinite(lb), line, -np.inf)
+        smooth = np.abs(c_left - c_right) <= np.abs(mid - line)
+    if not all_finite:
+        ok = finite[:, :-3] & finite[:, 1:-2] & finite[:, 2:-1] & finite[:, 3:]
+        smooth &= (ok.take(k[0], axis=1) & ok.take(k[1], axis=1))[:, None, :]
+    out_nodes = np.empty((n, (m - 1) * pieces + 1))
+    out_logp = np.empty((n, (m - 1) * pieces + 1))
+    np.copyto(out_nodes[:, :-1].reshape(n, m - 1, pieces), (start[:, None, :] + t).transpose(0, 2, 1))
+    np.copyto(out_logp[:, :-1].reshape(n, m - 1, pieces), np.where(smooth, mid, line).transpose(0, 2, 1))
+    out_nodes[:, -1], out_logp[:, -1] = nodes[:, -1], logp[:, -1]
+    return out_nodes, out_logp
 
 
 class GridConditional:
@@ -310,21 +371,28 @@ class GridConditional:
     def __init__(self, coordinate, nodes, log_density):
         self.coordinate = coordinate
         self.nodes = nodes
-        top = np.max(log_density, axis=1, keepdims=True)
-        self.log_density = log_density - top
-        self._h = np.diff(nodes, axis=1)
+        self.log_density = log_density - np.max(log_density, axis=1, keepdims=True)
+        self._h = nodes[:, 1:] - nodes[:, :-1]
         la, lb = self.log_density[:, :-1], self.log_density[:, 1:]
-        ok = np.isfinite(la) & np.isfinite(lb)
-        la, lb = np.where(ok, la, 0.0), np.where(ok, lb, 0.0)
+        finite = np.isfinite(self.log_density)
+        ok = None if finite.all() else finite[:, :-1] & finite[:, 1:]
+        if ok is not None:
+            la, lb = np.where(ok, la, 0.0), np.where(ok, lb, 0.0)
         self._d = lb - la  # log-density change across each segment
-        ad = np.abs(self._d)
+        nad = -np.abs(self._d)
         with np.errstate(divide="ignore", invalid="ignore"):
             # integral of exp(linear) over a segment = h * exp(max) * (1 - exp(-|d|)) / |d|
-            w = np.where(ad > _FLAT, -np.expm1(-ad) / np.where(ad > _FLAT, ad, 1.0), 1.0 - 0.5 * ad)
-        self._seg = np.where(ok, self._h * np.exp(np.maximum(la, lb)) * w, 0.0)
+            w = np.expm1(nad) / nad
+        flat = nad >= -_FLAT
+        if flat.any():
+            w[flat] = 1.0 + 0.5 * nad[flat]
+        seg = self._h * np.exp(np.maximum(la, lb)) * w
+        self._seg = seg if ok is None else np.where(ok, seg, 0.0)
         total = np.cumsum(self._seg, axis=1)
         self._norm = total[:, -1]
-        self.cum = np.concatenate([np.zeros((len(nodes), 1)), total / self._norm[:, None]], axis=1)
+        self.cum = np.empty(nodes.shape)
+        self.cum[:, 0] = 0.0
+        np.divide(total, self._norm[:, None], out=self.cum[:, 1:])
 
     @classmethod
     def from_target(cls, target, position, i, grid_size=DEFAULT_GRID_SIZE):
@@ -347,7 +415,7 @@ class GridConditional:
         rows = np.arange(n)
         # 1. bracket: offsets scale * 2**j, j = -40..40, on both sides (j = -8..8 first)
         scale = np.maximum(1.0, np.abs(z0))
-        offsets = scale[:, None] * 2.0 ** _BRACKET_POWERS[None, :]
+        offsets = scale[:, None] * _BRACKET_STEPS[None, :]
         J = offsets.shape[1]
         lp = _bracket_log_density(target, position, i, z0, offsets)
         lp0 = lp[:, 0]
@@ -357,10 +425,13 @@ class GridConditional:
                 f"the log-density is not finite at the current state of chain {k} "
                 f"({target.to_user(position[k])}); cannot build the conditional of coordinate {i}"
             )
+        sides = lp[:, 1:].reshape(n, 2, J)
+        stops, founds = _first_stop(sides.reshape(2 * n, J), np.repeat(lp0, 2))
+        stops, founds = stops.reshape(n, 2), founds.reshape(n, 2)
+        some_inf = np.any(lp == np.inf)
         ends, edges = [], []
         for side, sign in enumerate((-1.0, 1.0)):
-            side_lp = lp[:, 1 + side * J:1 + (side + 1) * J]
-            j, found = _first_stop(side_lp, lp0)
+            side_lp, j, found = sides[:, side], stops[:, side], founds[:, side]
             if not found.all():
                 k = int(np.flatnonzero(~found)[0])
                 raise ValueError(
@@ -370,17 +441,18 @@ class GridConditional:
                     "target a proper (normalisable) distribution?"
                 )
             # +inf only matters inside the bracket (far offsets may overflow harmlessly)
-            inside_lp = np.where(np.arange(J)[None, :] <= j[:, None], side_lp, 0.0)
-            if np.any(inside_lp == np.inf):
+            inside_lp = np.where(np.arange(J)[None, :] <= j[:, None], side_lp, 0.0) if some_inf else None
+            if some_inf and np.any(inside_lp == np.inf):
                 pts = np.repeat(position[:, None, :], J, axis=1)
                 pts[:, :, i] = z0[:, None] + sign * offsets
                 _no_inf(target, inside_lp, pts, i)
             ends.append(offsets[rows, j])
             # a -inf stop is a truncation edge between the previous offset and this one
             e = np.flatnonzero(~np.isfinite(side_lp[rows, j]))
-            inner = np.where(j[e] > 0, offsets[e, np.maximum(j[e] - 1, 0)], 0.0)
-            edges.append((e, np.full(len(e), sign), inner))
-        if any(len(e) for e, _, _ in edges):
+            if len(e):
+                inner = np.where(j[e] > 0, offsets[e, np.maximum(j[e] - 1, 0)], 0.0)
+                edges.append((e, np.full(len(e), sign), inner))
+        if edges:
             e = np.concatenate([e for e, _, _ in edges])
             sign = np.concatenate([s for _, s, _ in edges])
             inner = np.concatenate([v for _, _, v in edges])
@@ -393,7 +465,7 @@ class GridConditional:
         # 2. coarse equispaced grid, re-gridded onto the region within _DROP nats of the
         #    maximum while that region is narrow (a bracket far wider than the mass)
         coarse = max(16, grid_size // _COARSE_SHARE)
-        t = np.linspace(0.0, 1.0, coarse)
+        t = _unit_steps(coarse)
         nodes = np.empty((n, coarse))
         logp = np.empty((n, coarse))
         active = rows
@@ -421,8 +493,8 @@ class GridConditional:
         """Approximate conditional CDF at ``z`` (n_chains,), sampler scale; 0 or 1 off the grid."""
         z = np.asarray(z, dtype=float)
         nodes, rows = self.nodes, np.arange(len(self.nodes))
-        j = np.clip(np.sum(nodes <= z[:, None], axis=1) - 1, 0, nodes.shape[1] - 2)
-        s = np.clip((z - nodes[rows, j]) / self._h[rows, j], 0.0, 1.0)
+        j = np.minimum(np.maximum((nodes <= z[:, None]).sum(axis=1) - 1, 0), nodes.shape[1] - 2)
+        s = np.minimum(np.maximum((z - nodes[rows, j]) / self._h[rows, j], 0.0), 1.0)
         d = self._d[rows, j]
         with np.errstate(all="ignore"):
             # fraction of the segment's mass below s, for density exp(la + d s)
@@ -431,22 +503,23 @@ class GridConditional:
         frac = np.where(np.abs(d) <= _FLAT, s, np.where(d > 0, up, down))
         out = self.cum[rows, j] + frac * self._seg[rows, j] / self._norm
         out = np.where(z <= nodes[:, 0], 0.0, np.where(z >= nodes[:, -1], 1.0, out))
-        return np.clip(out, 0.0, 1.0)
+        return np.minimum(np.maximum(out, 0.0), 1.0)
 
     def ppf(self, u):
         """Inverse of ``cdf``: the point (n_chains,) on the sampler's scale with CDF ``u``."""
-        u = np.clip(np.asarray(u, dtype=float), 0.0, 1.0)
+        u = np.minimum(np.maximum(np.asarray(u, dtype=float), 0.0), 1.0)
         rows = np.arange(len(self.nodes))
-        j = np.minimum(np.sum(self.cum[:, 1:] < u[:, None], axis=1), self.nodes.shape[1] - 2)
+        j = np.minimum((self.cum[:, 1:] < u[:, None]).sum(axis=1), self.nodes.shape[1] - 2)
         seg = self._seg[rows, j]
         with np.errstate(all="ignore"):
-            q = np.clip(np.where(seg > 0, (u - self.cum[rows, j]) * self._norm / seg, 0.0), 0.0, 1.0)
+            q = np.where(seg > 0, (u - self.cum[rows, j]) * self._norm / seg, 0.0)
+            q = np.minimum(np.maximum(q, 0.0), 1.0)
             d = self._d[rows, j]
             sd = np.where(np.abs(d) > _FLAT, d, 1.0)
             up = 1.0 + np.log(q + (1.0 - q) * np.exp(-sd)) / sd
             down = np.log1p(q * np.expm1(sd)) / sd
         s = np.where(np.abs(d) <= _FLAT, q, np.where(d > 0, up, down))
-        return self.nodes[rows, j] + np.clip(s, 0.0, 1.0) * self._h[rows, j]
+        return self.nodes[rows, j] + np.minimum(np.maximum(s, 0.0), 1.0) * self._h[rows, j]
 
     def __repr__(self):
         n, g = self.nodes.shape
