@@ -98,7 +98,7 @@ def _evaluate(target, position, i, values, *, allow_inf=False):
     ``allow_inf`` (then the caller checks the part it uses with ``_no_inf``).
     """
     m, k = values.shape
-    pts = np.repeat(position[:, None, :], k, axis=1)
+    pts = position[:, None, :].repeat(k, axis=1)
     pts[:, :, i] = values
     with np.errstate(all="ignore"):
         lp = np.asarray(target.log_density(pts.reshape(m * k, -1)), dtype=float).reshape(m, k)
@@ -110,7 +110,7 @@ def _evaluate(target, position, i, values, *, allow_inf=False):
 
 
 def _no_inf(target, lp, pts, i):
-    if np.any(lp == np.inf):
+    if (lp == np.inf).any():
         r, c = np.argwhere(lp == np.inf)[0]
         raise ValueError(
             f"`log_density` returned +inf at {target.to_user(pts[r, c])} while building the "
@@ -142,8 +142,8 @@ def _bracket_log_density(target, position, i, z0, offsets):
     sides[:, :, :a] = lp0[:, None, None]
     sides[:, :, a:b] = lpw[:, 1:].reshape(m, 2, b - a)
     sides[:, :, b:] = -np.inf
-    j, found = _first_stop(lpw[:, 1:].reshape(2 * m, b - a), np.repeat(lp0, 2))
-    redo = np.any((~found | (j == 0)).reshape(m, 2), axis=1)
+    j, found = _first_stop(lpw[:, 1:].reshape(2 * m, b - a), lp0.repeat(2))
+    redo = (~found | (j == 0)).reshape(m, 2).any(axis=1)
     redo &= np.isfinite(lp0)  # a non-finite start is reported by the caller
     if redo.any():
         r = np.flatnonzero(redo)
@@ -161,7 +161,7 @@ def _first_stop(lp, lp0):
     """
     running = np.maximum(np.maximum.accumulate(lp, axis=1), lp0[:, None])
     stop = lp < running - _DROP  # never nan: _evaluate maps nan to -inf
-    return np.argmax(stop, axis=1), stop.any(axis=1)
+    return stop.argmax(axis=1), stop.any(axis=1)
 
 
 def _find_edges(target, position, i, z0, inner, outer, sign):
@@ -182,7 +182,7 @@ def _find_edges(target, position, i, z0, inner, outer, sign):
         np.add(inner[:, None], (outer - inner)[:, None] * t, out=offs)
         lp = _evaluate(target, position, i, z0[:, None] + sign[:, None] * offs)
         np.logical_not(np.isfinite(lp), out=bad[:, :-1])
-        first_bad = np.argmax(bad, axis=1)
+        first_bad = bad.argmax(axis=1)
         inner, outer = ext[rows, first_bad], ext[rows, first_bad + 1]
     return inner
 
@@ -199,7 +199,7 @@ def _adapted_nodes(nodes, logp, count):
     """
     n, g = nodes.shape
     h = nodes[:, 1:] - nodes[:, :-1]
-    l = logp - np.max(logp, axis=1, keepdims=True)
+    l = logp - logp.max(axis=1, keepdims=True)
     finite = np.isfinite(l)
     all_finite = finite.all()
     lf = l if all_finite else np.where(finite, l, 0.0)
@@ -212,16 +212,16 @@ def _adapted_nodes(nodes, logp, count):
     if not all_finite:
         m[~(finite[:, 1:] & finite[:, :-1])] = 0.0
     m = np.cbrt(m)
-    mass = np.sum(m * h, axis=1, keepdims=True)
+    mass = (m * h).sum(axis=1, keepdims=True)
     width = nodes[:, -1:] - nodes[:, :1]
-    if np.all(mass > 0):
+    if (mass > 0).all():
         rho = (1.0 - _UNIFORM_SHARE) * m / mass + _UNIFORM_SHARE / width
     else:
         rho = np.where(mass > 0, (1.0 - _UNIFORM_SHARE) * m / np.where(mass > 0, mass, 1.0), 0.0)
         rho = rho + np.where(mass > 0, _UNIFORM_SHARE, 1.0) / width
     q = np.empty((n, g))
     q[:, 0] = 0.0
-    np.cumsum(rho * h, axis=1, out=q[:, 1:])
+    (rho * h).cumsum(axis=1, out=q[:, 1:])
     q /= q[:, -1:]
     out = _interp_rows(_unit_steps(count), q, nodes)
     out[:, 0], out[:, -1] = nodes[:, 0], nodes[:, -1]
@@ -371,7 +371,7 @@ class GridConditional:
     def __init__(self, coordinate, nodes, log_density):
         self.coordinate = coordinate
         self.nodes = nodes
-        self.log_density = log_density - np.max(log_density, axis=1, keepdims=True)
+        self.log_density = log_density - log_density.max(axis=1, keepdims=True)
         self._h = nodes[:, 1:] - nodes[:, :-1]
         la, lb = self.log_density[:, :-1], self.log_density[:, 1:]
         finite = np.isfinite(self.log_density)
@@ -388,7 +388,7 @@ class GridConditional:
             w[flat] = 1.0 + 0.5 * nad[flat]
         seg = self._h * np.exp(np.maximum(la, lb)) * w
         self._seg = seg if ok is None else np.where(ok, seg, 0.0)
-        total = np.cumsum(self._seg, axis=1)
+        total = self._seg.cumsum(axis=1)
         self._norm = total[:, -1]
         self.cum = np.empty(nodes.shape)
         self.cum[:, 0] = 0.0
@@ -426,9 +426,9 @@ class GridConditional:
                 f"({target.to_user(position[k])}); cannot build the conditional of coordinate {i}"
             )
         sides = lp[:, 1:].reshape(n, 2, J)
-        stops, founds = _first_stop(sides.reshape(2 * n, J), np.repeat(lp0, 2))
+        stops, founds = _first_stop(sides.reshape(2 * n, J), lp0.repeat(2))
         stops, founds = stops.reshape(n, 2), founds.reshape(n, 2)
-        some_inf = np.any(lp == np.inf)
+        some_inf = (lp == np.inf).any()
         ends, edges = [], []
         for side, sign in enumerate((-1.0, 1.0)):
             side_lp, j, found = sides[:, side], stops[:, side], founds[:, side]
@@ -466,22 +466,24 @@ class GridConditional:
         #    maximum while that region is narrow (a bracket far wider than the mass)
         coarse = max(16, grid_size // _COARSE_SHARE)
         t = _unit_steps(coarse)
-        nodes = np.empty((n, coarse))
-        logp = np.empty((n, coarse))
+        nodes = nd = lo[:, None] + (hi - lo)[:, None] * t
+        logp = lpa = _evaluate(target, position, i, nd)
         active = rows
-        for _ in range(_MAX_REGRID + 1):
-            nd = lo[active, None] + (hi - lo)[active, None] * t[None, :]
-            lpa = _evaluate(target, position[active], i, nd)
-            nodes[active], logp[active] = nd, lpa
-            keep = lpa >= np.max(lpa, axis=1, keepdims=True) - _DROP
-            a = np.maximum(np.argmax(keep, axis=1) - 1, 0)
-            b = np.minimum(coarse - np.argmax(keep[:, ::-1], axis=1), coarse - 1)
+        for regrid in range(_MAX_REGRID + 1):
+            keep = lpa >= lpa.max(axis=1, keepdims=True) - _DROP
+            a = np.maximum(keep.argmax(axis=1) - 1, 0)
+            b = np.minimum(coarse - keep[:, ::-1].argmax(axis=1), coarse - 1)
             narrow = (b - a) < (coarse - 1) // 4
-            if not narrow.any():
+            if regrid == _MAX_REGRID or not narrow.any():
                 break
             r = np.arange(len(active))[narrow]
             active = active[narrow]
             lo[active], hi[active] = nd[r, a[narrow]], nd[r, b[narrow]]
+            nd = lo[active, None] + (hi - lo)[active, None] * t[None, :]
+            lpa = _evaluate(target, position[active], i, nd)
+            if regrid == 0:
+                logp = logp.copy()  # it may be the array the user's function returned
+            nodes[active], logp[active] = nd, lpa
         # 3. place grid_size // 4 nodes where interpolation error lives, evaluate there, and
         #    split every segment in four, log-densities from local cubics
         nodes = _graded_ends(_adapted_nodes(nodes, logp, max(16, grid_size // _REFINE) - 2 * _GRADED))
@@ -496,11 +498,13 @@ class GridConditional:
         j = np.minimum(np.maximum((nodes <= z[:, None]).sum(axis=1) - 1, 0), nodes.shape[1] - 2)
         s = np.minimum(np.maximum((z - nodes[rows, j]) / self._h[rows, j], 0.0), 1.0)
         d = self._d[rows, j]
+        rising = d > 0
+        a = np.where(rising, -d, d)  # -|d|: expm1(a s) / expm1(a) cannot overflow
         with np.errstate(all="ignore"):
-            # fraction of the segment's mass below s, for density exp(la + d s)
-            up = np.exp(d * (s - 1.0)) * np.expm1(-d * s) / np.expm1(-d)
-            down = np.expm1(d * s) / np.expm1(d)
-        frac = np.where(np.abs(d) <= _FLAT, s, np.where(d > 0, up, down))
+            # fraction of the segment's mass below s, for density exp(la + d s):
+            # expm1(d s) / expm1(d), times exp(-d) / exp(-d) where d > 0
+            frac = np.where(rising, np.exp(d * (s - 1.0)), 1.0) * np.expm1(a * s) / np.expm1(a)
+        frac = np.where(np.abs(d) <= _FLAT, s, frac)
         out = self.cum[rows, j] + frac * self._seg[rows, j] / self._norm
         out = np.where(z <= nodes[:, 0], 0.0, np.where(z >= nodes[:, -1], 1.0, out))
         return np.minimum(np.maximum(out, 0.0), 1.0)
