@@ -32,6 +32,7 @@ _DROP = 25.0                            # nats below the maximum where the suppo
 _BRACKET_POWERS = np.arange(-40.0, 41.0)  # bracketing offsets are scale * 2**j
 _BRACKET_STEPS = 2.0 ** _BRACKET_POWERS
 _FIRST_POWERS = slice(32, 49)           # j = -8..8, tried first: where nearly every search stops
+_SIDES = np.array([0, 1])               # offsets below, above the current value
 _EDGE_POINTS = 32                       # points per multisection pass at a truncation edge
 _EDGE_PASSES = 6                        # 33**6 ~ 1.3e9: the edge is found to ~8e-10 of its bracket
 _COARSE_SHARE = 16                      # the equispaced pass has grid_size // 16 nodes (at least 16)
@@ -127,6 +128,8 @@ def _bracket_log_density(target, position, i, z0, offsets):
     search (``_first_stop``) stops inside that window, past its first offset, needs no
     more: its smaller offsets are filled with its log-density at ``z0`` (never a stop) and
     its larger ones with -inf (never reached). Other rows are evaluated at every offset.
+    Also returns ``_first_stop`` of each side (``-`` then ``+``) as (m, 2) arrays (index,
+    found), for the rows whose log-density at ``z0`` is finite.
     """
     m, J = offsets.shape
     a, b = _FIRST_POWERS.start, _FIRST_POWERS.stop
@@ -145,12 +148,15 @@ def _bracket_log_density(target, position, i, z0, offsets):
     j, found = _first_stop(lpw[:, 1:].reshape(2 * m, b - a), lp0.repeat(2))
     redo = (~found | (j == 0)).reshape(m, 2).any(axis=1)
     redo &= np.isfinite(lp0)  # a non-finite start is reported by the caller
+    stops, founds = (j + a).reshape(m, 2), found.reshape(m, 2)  # as on the whole row
     if redo.any():
         r = np.flatnonzero(redo)
         lp[r] = _evaluate(target, position[r], i, np.concatenate(
             [z0[r, None], z0[r, None] - offsets[r], z0[r, None] + offsets[r]], axis=1),
             allow_inf=True)
-    return lp
+        j, found = _first_stop(lp[r, 1:].reshape(2 * len(r), J), lp[r, 0].repeat(2))
+        stops[r], founds[r] = j.reshape(-1, 2), found.reshape(-1, 2)
+    return lp, stops, founds
 
 
 def _first_stop(lp, lp0):
@@ -417,7 +423,7 @@ class GridConditional:
         scale = np.maximum(1.0, np.abs(z0))
         offsets = scale[:, None] * _BRACKET_STEPS[None, :]
         J = offsets.shape[1]
-        lp = _bracket_log_density(target, position, i, z0, offsets)
+        lp, stops, founds = _bracket_log_density(target, position, i, z0, offsets)
         lp0 = lp[:, 0]
         if not np.all(np.isfinite(lp0)):
             k = int(np.flatnonzero(~np.isfinite(lp0))[0])
@@ -425,43 +431,43 @@ class GridConditional:
                 f"the log-density is not finite at the current state of chain {k} "
                 f"({target.to_user(position[k])}); cannot build the conditional of coordinate {i}"
             )
-        sides = lp[:, 1:].reshape(n, 2, J)
-        stops, founds = _first_stop(sides.reshape(2 * n, J), lp0.repeat(2))
-        stops, founds = stops.reshape(n, 2), founds.reshape(n, 2)
+        sides = lp[:, 1:].reshape(n, 2, J)  # (chain, side, offset), sides - then +
         some_inf = (lp == np.inf).any()
-        ends, edges = [], []
-        for side, sign in enumerate((-1.0, 1.0)):
-            side_lp, j, found = sides[:, side], stops[:, side], founds[:, side]
-            if not found.all():
-                k = int(np.flatnonzero(~found)[0])
-                raise ValueError(
-                    f"the conditional of coordinate {i} (chain {k}) could not be bracketed: the "
-                    f"log-density stays within {_DROP:g} nats of its maximum out to an offset of "
-                    f"{sign * offsets[k, -1]:.3g} from x = {target.to_user(position[k])}. Is the "
-                    "target a proper (normalisable) distribution?"
-                )
-            # +inf only matters inside the bracket (far offsets may overflow harmlessly)
-            inside_lp = np.where(np.arange(J)[None, :] <= j[:, None], side_lp, 0.0) if some_inf else None
-            if some_inf and np.any(inside_lp == np.inf):
-                pts = np.repeat(position[:, None, :], J, axis=1)
-                pts[:, :, i] = z0[:, None] + sign * offsets
-                _no_inf(target, inside_lp, pts, i)
-            ends.append(offsets[rows, j])
-            # a -inf stop is a truncation edge between the previous offset and this one
-            e = np.flatnonzero(~np.isfinite(side_lp[rows, j]))
-            if len(e):
-                inner = np.where(j[e] > 0, offsets[e, np.maximum(j[e] - 1, 0)], 0.0)
-                edges.append((e, np.full(len(e), sign), inner))
-        if edges:
+        if some_inf or not founds.all():
+            for side, sign in enumerate((-1.0, 1.0)):
+                side_lp, j, found = sides[:, side], stops[:, side], founds[:, side]
+                if not found.all():
+                    k = int(np.flatnonzero(~found)[0])
+                    raise ValueError(
+                        f"the conditional of coordinate {i} (chain {k}) could not be bracketed: the "
+                        f"log-density stays within {_DROP:g} nats of its maximum out to an offset of "
+                        f"{sign * offsets[k, -1]:.3g} from x = {target.to_user(position[k])}. Is the "
+                        "target a proper (normalisable) distribution?"
+                    )
+                # +inf only matters inside the bracket (far offsets may overflow harmlessly)
+                inside_lp = np.where(np.arange(J)[None, :] <= j[:, None], side_lp, 0.0)
+                if np.any(inside_lp == np.inf):
+                    pts = np.repeat(position[:, None, :], J, axis=1)
+                    pts[:, :, i] = z0[:, None] + sign * offsets
+                    _no_inf(target, inside_lp, pts, i)
+        ends = offsets[rows[:, None], stops]  # (chain, side)
+        # a -inf stop is a truncation edge between the previous offset and this one
+        truncated = ~np.isfinite(sides[rows[:, None], _SIDES, stops])
+        if truncated.any():
+            edges = []
+            for side, sign in enumerate((-1.0, 1.0)):
+                j = stops[:, side]
+                e = np.flatnonzero(truncated[:, side])
+                if len(e):
+                    inner = np.where(j[e] > 0, offsets[e, np.maximum(j[e] - 1, 0)], 0.0)
+                    edges.append((e, np.full(len(e), sign), inner))
             e = np.concatenate([e for e, _, _ in edges])
             sign = np.concatenate([s for _, s, _ in edges])
             inner = np.concatenate([v for _, _, v in edges])
             side = (sign > 0).astype(int)
-            outer = np.where(side == 0, ends[0][e], ends[1][e])
-            found = _find_edges(target, position[e], i, z0[e], inner, outer, sign)
-            ends[0][e[side == 0]] = found[side == 0]
-            ends[1][e[side == 1]] = found[side == 1]
-        lo, hi = z0 - ends[0], z0 + ends[1]
+            outer = ends[e, side]
+            ends[e, side] = _find_edges(target, position[e], i, z0[e], inner, outer, sign)
+        lo, hi = z0 - ends[:, 0], z0 + ends[:, 1]
         # 2. coarse equispaced grid, re-gridded onto the region within _DROP nats of the
         #    maximum while that region is narrow (a bracket far wider than the mass)
         coarse = max(16, grid_size // _COARSE_SHARE)
