@@ -262,7 +262,7 @@ def _interp_rows(t, xp, fp):
     return f0 + np.minimum(np.maximum(w, 0.0), 1.0) * (ff[j + 1] - f0)
 
 
-_HALVES = 0.5 ** np.arange(_GRADED, 0, -1)  # 1/8, 1/4, 1/2: distances to the end, in its segment
+_HALVES = 0.5 ** np.arange(_GRADED, 0, -1)  # 2**-_GRADED ... 1/2 of the end segment from the end
 
 
 def _graded_ends(nodes):
