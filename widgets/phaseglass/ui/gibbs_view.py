@@ -98,8 +98,10 @@ class ShiftGibbsView(View):
     conditionals : callable, optional
         ``conditionals(i, x)`` returning the distribution of ``x[i]`` given the
         rest (an object with ``cdf`` and ``ppf``; a frozen ``scipy.stats``
-        distribution works), as for ``pg.Gibbs``. Default: numeric conditionals
-        built from the log-density.
+        distribution works, and ``pg.freeze(scipy.stats.norm, loc, scale)``
+        builds one without scipy's per-object set-up, so knob moves replay
+        faster), as for ``pg.Gibbs``. Default: numeric conditionals built from
+        the log-density.
     n_chains : int in [2, 10]
     shift : float in [0, 1)
         The shift ``c`` of the driving uniforms (0 is allowed, to show why it fails).
