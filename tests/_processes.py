@@ -42,3 +42,17 @@ def end_pool(pool):
     pool.shutdown(wait=False, cancel_futures=True)
     for proc in processes:
         proc.terminate()
+
+
+def process_pool(max_workers):
+    """A ProcessPoolExecutor whose workers come from a fork server.
+
+    Forking the test process itself is unsafe once JAX (imported by the autodiff tests)
+    has started its threads: Python warns that the fork may deadlock. Work reaches these
+    workers pickled, as it reaches a remote cluster.
+    """
+    import concurrent.futures
+    import multiprocessing
+
+    return concurrent.futures.ProcessPoolExecutor(
+        max_workers, mp_context=multiprocessing.get_context("forkserver"))

@@ -14,6 +14,7 @@ import numpy as np
 import pytest
 
 import phaseglass as pg
+from _processes import process_pool
 from phaseglass.core.compare import QUANTITIES, pack, run_packed, submit_packed
 
 # small on purpose: CI has two cores
@@ -27,7 +28,7 @@ def dask_executor(dask_client):
 
 @pytest.fixture(scope="module")
 def pool():
-    with concurrent.futures.ProcessPoolExecutor(2) as ex:
+    with process_pool(2) as ex:
         yield ex
 
 

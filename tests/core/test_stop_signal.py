@@ -15,7 +15,7 @@ import numpy as np
 import pytest
 
 import phaseglass as pg
-from _processes import end_pool, wait_for
+from _processes import end_pool, process_pool, wait_for
 from phaseglass.core.compare import pack, run_fixed_portable, submit_packed
 from phaseglass.core.stop_signal import CellAborted, StopSignal, stopping_when
 
@@ -48,7 +48,7 @@ def stopped_growing(path):
 
 @pytest.fixture
 def pool():
-    ex = concurrent.futures.ProcessPoolExecutor(2)
+    ex = process_pool(2)
     yield ex
     end_pool(ex)  # a run that failed to stop would hold a worker for an hour
 

@@ -14,7 +14,7 @@ import numpy as np
 import pytest
 
 import phaseglass as pg
-from _processes import end_pool, wait_for
+from _processes import end_pool, process_pool, wait_for
 from phaseglass.ui.tuning_map import TuningMap
 
 # a 2 x 2 map of short runs: CI has two cores
@@ -34,7 +34,7 @@ def test_serial_process_pool_and_dask_cluster_fill_the_same_cells(dask_client):
     serial = TuningMap(target, **MAP).compute(background=False)
     assert serial.n_done == 4 and np.all(np.isfinite(serial.values["acceptance"]))
     maps = []
-    with concurrent.futures.ProcessPoolExecutor(2) as pool:
+    with process_pool(2) as pool:
         maps.append(TuningMap(target, executor=pool, **MAP).compute(background=False))
         in_background = TuningMap(target, executor=pool, **MAP).compute()
         assert in_background.wait(timeout=300)
@@ -55,7 +55,7 @@ def test_partial_refresh_slices_and_a_mass_matrix_travel_too():
     kw = dict(MAP, kernel_kind="partial", persistence=[0.0, 0.9], step_sizes=[0.3], n_steps=[3],
               mass_matrix=pg.Metric([2.0, 0.5]))
     serial = TuningMap(target, **kw).compute(background=False)
-    with concurrent.futures.ProcessPoolExecutor(2) as pool:
+    with process_pool(2) as pool:
         remote = TuningMap(target, executor=pool, **kw).compute(background=False)
     assert serial.values_all["acceptance"].shape == (2, 1, 1)
     for q, v in serial.values_all.items():
@@ -139,7 +139,7 @@ def test_a_cell_failing_on_a_worker_lands_in_the_status_line():
         raise RuntimeError("model code failed")
 
     target = pg.Target(log_density, lambda x: -x, dim=2)
-    with concurrent.futures.ProcessPoolExecutor(1) as pool:
+    with process_pool(1) as pool:
         m = TuningMap(target, executor=pool, **dict(MAP, step_sizes=[0.3], n_steps=[2]))
         m.compute(background=False)
     assert m.n_done == 1 and m._state[0, 0, 0] == 2  # failed, left blank
@@ -185,7 +185,7 @@ def test_stop_ends_a_cell_already_running_on_a_worker(tmp_path):
         time.sleep(0.5)
         return size() == before
 
-    pool = concurrent.futures.ProcessPoolExecutor(1)
+    pool = process_pool(1)
     try:
         m = TuningMap(pg.Target(log_density, grad, dim=2), executor=pool,
                       **dict(MAP, step_sizes=[0.3], n_steps=[2], n_draws=10 ** 7, n_chains=1))
