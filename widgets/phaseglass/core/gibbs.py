@@ -14,6 +14,7 @@ uniform. Where the uniform comes from is the knob a widget turns:
 * ``shift="random"`` -- as above with a fresh ``c`` per transition.
 """
 
+import functools
 import numbers
 import warnings
 
@@ -234,16 +235,17 @@ def _adapted_nodes(nodes, logp, count):
     return out
 
 
-_STEPS = {}
-
-
+@functools.lru_cache(maxsize=None)
 def _unit_steps(count):
     """``np.linspace(0, 1, count)``, made once per ``count`` (read-only)."""
-    t = _STEPS.get(count)
-    if t is None:
-        t = _STEPS[count] = np.linspace(0.0, 1.0, count)
-        t.flags.writeable = False
+    t = np.linspace(0.0, 1.0, count)
+    t.flags.writeable = False
     return t
+
+
+def _unit(x):
+    """``x`` clipped to [0, 1] (``np.clip``'s dispatch costs more than the two ufuncs here)."""
+    return np.minimum(np.maximum(x, 0.0), 1.0)
 
 
 def _interp_rows(t, xp, fp):
@@ -259,7 +261,7 @@ def _interp_rows(t, xp, fp):
     f0 = ff[j]
     with np.errstate(all="ignore"):
         w = np.where(x1 > x0, (t - x0) / (x1 - x0), 1.0)
-    return f0 + np.minimum(np.maximum(w, 0.0), 1.0) * (ff[j + 1] - f0)
+    return f0 + _unit(w) * (ff[j + 1] - f0)
 
 
 _HALVES = 0.5 ** np.arange(_GRADED, 0, -1)  # 2**-_GRADED ... 1/2 of the end segment from the end
@@ -281,21 +283,17 @@ def _graded_ends(nodes):
     return out
 
 
-_RUNS = {}
-
-
+@functools.lru_cache(maxsize=None)
 def _runs(m):
     """Nodes of the runs of four left and right of each of ``m - 1`` segments: (3, 2, m - 1).
 
     ``[l, 0, j]`` is node ``l`` of run ``j-1..j+2`` of segment ``j``, ``[l, 1, j]`` of run
     ``j..j+3`` (both shifted inwards at the ends), for ``l = 0, 1, 2``.
     """
-    runs = _RUNS.get(m)
-    if runs is None:
-        seg = np.arange(m - 1)
-        k = np.stack([np.clip(seg - 1, 0, m - 4), np.clip(seg, 0, m - 4)])
-        runs = _RUNS[m] = np.stack([k, k + 1, k + 2])
-        runs.flags.writeable = False
+    seg = np.arange(m - 1)
+    k = np.stack([np.clip(seg - 1, 0, m - 4), np.clip(seg, 0, m - 4)])
+    runs = np.stack([k, k + 1, k + 2])
+    runs.flags.writeable = False
     return runs
 
 
@@ -502,7 +500,7 @@ class GridConditional:
         z = np.asarray(z, dtype=float)
         nodes, rows = self.nodes, np.arange(len(self.nodes))
         j = np.minimum(np.maximum((nodes <= z[:, None]).sum(axis=1) - 1, 0), nodes.shape[1] - 2)
-        s = np.minimum(np.maximum((z - nodes[rows, j]) / self._h[rows, j], 0.0), 1.0)
+        s = _unit((z - nodes[rows, j]) / self._h[rows, j])
         d = self._d[rows, j]
         rising = d > 0
         a = np.where(rising, -d, d)  # -|d|: expm1(a s) / expm1(a) cannot overflow
@@ -513,23 +511,23 @@ class GridConditional:
         frac = np.where(np.abs(d) <= _FLAT, s, frac)
         out = self.cum[rows, j] + frac * self._seg[rows, j] / self._norm
         out = np.where(z <= nodes[:, 0], 0.0, np.where(z >= nodes[:, -1], 1.0, out))
-        return np.minimum(np.maximum(out, 0.0), 1.0)
+        return _unit(out)
 
     def ppf(self, u):
         """Inverse of ``cdf``: the point (n_chains,) on the sampler's scale with CDF ``u``."""
-        u = np.minimum(np.maximum(np.asarray(u, dtype=float), 0.0), 1.0)
+        u = _unit(np.asarray(u, dtype=float))
         rows = np.arange(len(self.nodes))
         j = np.minimum((self.cum[:, 1:] < u[:, None]).sum(axis=1), self.nodes.shape[1] - 2)
         seg = self._seg[rows, j]
         with np.errstate(all="ignore"):
             q = np.where(seg > 0, (u - self.cum[rows, j]) * self._norm / seg, 0.0)
-            q = np.minimum(np.maximum(q, 0.0), 1.0)
+            q = _unit(q)
             d = self._d[rows, j]
             sd = np.where(np.abs(d) > _FLAT, d, 1.0)
             up = 1.0 + np.log(q + (1.0 - q) * np.exp(-sd)) / sd
             down = np.log1p(q * np.expm1(sd)) / sd
         s = np.where(np.abs(d) <= _FLAT, q, np.where(d > 0, up, down))
-        return self.nodes[rows, j] + np.minimum(np.maximum(s, 0.0), 1.0) * self._h[rows, j]
+        return self.nodes[rows, j] + _unit(s) * self._h[rows, j]
 
     def __repr__(self):
         n, g = self.nodes.shape
