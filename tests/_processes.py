@@ -56,3 +56,19 @@ def process_pool(max_workers):
 
     return concurrent.futures.ProcessPoolExecutor(
         max_workers, mp_context=multiprocessing.get_context("forkserver"))
+
+
+def stopped_growing(path, quiet=0.5):
+    """True once the file at ``path`` has not grown for ``quiet`` seconds (a missing file is empty).
+
+    The long-run tests write a byte per evaluation from the worker: a file that stops
+    growing means the run has ended.
+    """
+    import time
+
+    def size():
+        return path.stat().st_size if path.exists() else 0
+
+    before = size()
+    time.sleep(quiet)
+    return size() == before

@@ -9,13 +9,12 @@ tests/conftest.py: two worker processes on the loopback address).
 
 import concurrent.futures
 import pickle
-import time
 
 import numpy as np
 import pytest
 
 import phaseglass as pg
-from _processes import end_pool, process_pool, wait_for
+from _processes import end_pool, process_pool, stopped_growing, wait_for
 from phaseglass.core.compare import pack, run_fixed_portable, submit_packed
 from phaseglass.core.stop_signal import CellAborted, StopSignal, stopping_when
 
@@ -37,13 +36,6 @@ def counting_target(path, fail_beyond=np.inf):
 def evaluations(path):
     return path.stat().st_size if path.exists() else 0
 
-
-
-def stopped_growing(path):
-    """True once ``path`` has not grown for half a second (its run has ended)."""
-    before = evaluations(path)
-    time.sleep(0.5)
-    return evaluations(path) == before
 
 
 @pytest.fixture

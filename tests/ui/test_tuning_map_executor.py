@@ -8,13 +8,12 @@ tests/conftest.py (Dask is an optional extra: skipped without it, except under C
 
 import concurrent.futures
 import os
-import time
 
 import numpy as np
 import pytest
 
 import phaseglass as pg
-from _processes import end_pool, process_pool, wait_for
+from _processes import end_pool, process_pool, stopped_growing, wait_for
 from phaseglass.ui.tuning_map import TuningMap
 
 # a 2 x 2 map of short runs: CI has two cores
@@ -180,11 +179,6 @@ def test_stop_ends_a_cell_already_running_on_a_worker(tmp_path):
     def size():
         return path.stat().st_size if path.exists() else 0
 
-    def stopped_growing():
-        before = size()
-        time.sleep(0.5)
-        return size() == before
-
     pool = process_pool(1)
     try:
         m = TuningMap(pg.Target(log_density, grad, dim=2), executor=pool,
@@ -193,7 +187,7 @@ def test_stop_ends_a_cell_already_running_on_a_worker(tmp_path):
         assert wait_for(lambda: size() > 200), "the cell never started on the worker"
         m.stop()
         assert m.wait(timeout=60)
-        assert wait_for(stopped_growing), "the cell still runs on its worker"
+        assert wait_for(lambda: stopped_growing(path)), "the cell still runs on its worker"
         assert size() < 10 ** 5 and m.n_done == 0  # stopped long before its end, left blank
         assert m._progress.bar_style == "warning"
     finally:
