@@ -19,4 +19,5 @@ def optional_module(name, extra):
         if os.environ.get("CI", "").lower() in ("true", "1"):
             pytest.fail(f"{name} is missing under CI: the test extra installs it "
                         f"(pip install -e \".[test]\")")
-        pytest.skip(f"{name} is not installed (pip install \"phaseglass[{extra}]\")")
+        pytest.skip(f"{name} is not installed (pip install \"phaseglass[{extra}]\")",
+                    allow_module_level=True)

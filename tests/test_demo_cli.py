@@ -11,6 +11,7 @@ import urllib.request
 
 import pytest
 
+from _optional import optional_module
 from _processes import alive
 
 from phaseglass import cli, launch
@@ -98,7 +99,7 @@ def _isolated_env(tmp_path):
 def test_demo_serves_the_tour_on_the_port_it_names_and_sigterm_stops_the_server(tmp_path):
     """The port asked for is busy: the terminal names the port actually used, the tour is served
     there, and SIGTERM to `phaseglass demo` stops JupyterLab too (its pid is gone afterwards)."""
-    pytest.importorskip("jupyterlab", reason="the lab extra is not installed")
+    optional_module("jupyterlab", "lab")
     env = _isolated_env(tmp_path)
     runtime = tmp_path / "rt"
     busy = socket.socket()

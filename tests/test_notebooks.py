@@ -15,9 +15,11 @@ from pathlib import Path
 
 import pytest
 
-nbformat = pytest.importorskip("nbformat")
-nbclient = pytest.importorskip("nbclient")
-pytest.importorskip("ipykernel")
+from _optional import optional_module
+
+nbformat = optional_module("nbformat", "test")
+nbclient = optional_module("nbclient", "test")
+optional_module("ipykernel", "test")
 
 NOTEBOOKS_DIR = Path(__file__).resolve().parents[1] / "example_notebooks"
 NOTEBOOKS = sorted(NOTEBOOKS_DIR.glob("*.ipynb"))
